@@ -1,0 +1,65 @@
+//! # leastline
+//!
+//! Linear least-squares fitting for Rust programs: closed-form solvers (QR,
+//! Cholesky on the normal equations, SVD) behind one object-safe
+//! [`Solver`] trait, with observation weights, an intercept fitted by
+//! centering, and a report of how each fit went.
+//!
+//! ## Quick start
+//!
+//! ```
+//! use leastline::{Problem, Qr, Solver};
+//! use ndarray::array;
+//!
+//! // Five readings of a sensor against two known inputs.
+//! let x = array![[1.0, 0.2], [2.0, 0.1], [3.0, 0.4], [4.0, 0.3], [5.0, 0.5]];
+//! let y = array![2.9, 4.6, 7.3, 8.9, 11.2];
+//! let problem = Problem::new(x.view(), y.view())?;
+//! let fit = Qr::default().fit(&problem)?;
+//! println!("slopes {:?}, intercept {}", fit.model.coefficients(), fit.model.intercept());
+//! println!("rank {}, condition {:.1}", fit.report.rank, fit.report.condition);
+//! let y_new = fit.model.predict(array![[6.0, 0.2]].view())?;
+//! assert_eq!(y_new.len(), 1);
+//! # Ok::<(), leastline::Error>(())
+//! ```
+//!
+//! ## Which solver when
+//!
+//! | solver | use it for | cost (n rows, p columns) | condition |
+//! |---|---|---|---|
+//! | [`Qr`] (default) | general use; accurate | about 2 n p² | keeps cond(X) |
+//! | [`Cholesky`] | large, well-conditioned designs; fastest | about n p² | squares cond(X); refuses when too few digits would survive |
+//! | [`Svd`] | rank-deficient designs; minimum-norm solution and numerical rank | QR plus O(p³) | keeps cond(X) |
+//!
+//! ## Threads
+//!
+//! The passes over the design run in parallel on rayon's global pool, over
+//! a fixed partition of the rows (results do not depend on the thread
+//! count). To bound the threads, run the fit inside your own pool:
+//! `rayon::ThreadPoolBuilder::new().num_threads(2).build()?.install(|| solver.fit(&problem))`.
+//!
+//! ## Features
+//!
+//! - `serde`: `Serialize`/`Deserialize` for [`LinearModel`], [`Fit`] and [`FitReport`].
+//!
+//! ## What this crate is not
+//!
+//! Not a formula language, a data-frame library or a general optimiser: it
+//! fits linear models to numeric arrays you already have.
+#![warn(missing_docs)]
+#![warn(clippy::unwrap_used)]
+#![doc(test(attr(deny(warnings))))]
+
+pub mod error;
+mod linalg;
+pub mod model;
+mod prep;
+pub mod problem;
+pub mod solver;
+mod solvers;
+
+pub use error::{Error, Input, Result};
+pub use model::LinearModel;
+pub use problem::{Problem, ProblemBuilder};
+pub use solver::{Fit, FitReport, IterationReport, Solver};
+pub use solvers::{Cholesky, Qr, Svd};

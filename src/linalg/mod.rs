@@ -1,0 +1,57 @@
+//! The linear-algebra seam: every dense factorisation and product of the
+//! crate goes through this module, and only this module names the backend
+//! (faer). A LAPACK backend can replace these functions behind a cargo
+//! feature without touching any solver.
+//!
+//! Solvers call:
+//! - [`gram::centered_gram`]: the symmetric product `Z^T Z` of the centered,
+//!   weighted, scaled design over row blocks in parallel (half the flops of a
+//!   general product);
+//! - [`qr::tall_skinny_r`]: the `R` factor of the same matrix by Householder
+//!   QR of row blocks combined pairwise (TSQR), never forming `Q`;
+//! - [`cholesky`], [`svd`], [`triangular`]: small dense factorisations;
+//! - [`residuals`]: fused residual passes over the design.
+
+pub(crate) mod cholesky;
+pub(crate) mod gram;
+pub(crate) mod qr;
+pub(crate) mod residuals;
+pub(crate) mod svd;
+pub(crate) mod triangular;
+
+use faer::MatRef;
+use ndarray::ArrayView2;
+
+/// Views an ndarray matrix as a faer matrix without copying, whatever its
+/// strides (row-major, column-major, sliced, transposed, negative strides).
+pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
+    let (n, p) = x.dim();
+    let strides = x.strides();
+    // SAFETY: ndarray guarantees that `ptr + i*rs + j*cs` is a valid element
+    // for every i < n, j < p of this view, and the view borrows the data for
+    // 'a; faer accepts arbitrary (also negative) strides.
+    unsafe { MatRef::from_raw_parts(x.as_ptr(), n, p, strides[0], strides[1]) }
+}
+
+/// Rows per block for a transformed design with `k` columns: about 2 MiB of
+/// block, at least `2 k` rows so that a stacked QR stays tall.
+pub(crate) fn block_rows(k: usize) -> usize {
+    let target = (1usize << 18) / k.max(1);
+    target.clamp(256, 8192).max(2 * k)
+}
+
+/// Splits `0..n` into consecutive ranges of `block` rows, grouped into at
+/// most `max_groups` groups of consecutive blocks. The grouping depends on
+/// `n` and `block` only, never on the thread count, so reductions over
+/// groups are deterministic.
+pub(crate) fn block_groups(n: usize, block: usize, max_groups: usize) -> Vec<Vec<(usize, usize)>> {
+    let blocks: Vec<(usize, usize)> = (0..n.div_ceil(block))
+        .map(|b| (b * block, ((b + 1) * block).min(n)))
+        .collect();
+    let groups = blocks.len().clamp(1, max_groups.max(1));
+    let per = blocks.len().div_ceil(groups).max(1);
+    blocks.chunks(per).map(|c| c.to_vec()).collect()
+}
+
+/// Number of groups used by the parallel passes (fixed, not the thread count).
+pub(crate) const GROUPS: usize = 64;

@@ -1,0 +1,108 @@
+use faer::Mat;
+
+use crate::error::{Error, Result};
+use crate::linalg::{qr, svd::thin_svd};
+use crate::prep::Scaling;
+use crate::problem::Problem;
+use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
+
+/// Minimum-norm least squares through the singular value decomposition: the
+/// choice for rank-deficient designs.
+///
+/// Reduces the centered, weighted, scaled design to its triangle `R` by the
+/// same block QR as [`crate::Qr`], takes the SVD `R = U S V^T` (a `p x p`
+/// problem), and keeps the singular values `s_i > relative_cutoff * s_max`;
+/// their count is the numerical rank in the report. The default cutoff is
+/// `max(usable rows, columns) * f64::EPSILON`. Columns that are constant to
+/// that tolerance beside the intercept get coefficient 0.
+///
+/// When the rank is below the number of columns, the solution returned is
+/// the one of minimum Euclidean norm **in the caller's units** (the
+/// pseudo-inverse solution `X_c^+ y_c` of the centered problem): the scaled
+/// solution is projected off the null space mapped back to caller units.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Svd {
+    /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
+    pub relative_cutoff: Option<f64>,
+}
+
+impl Solver for Svd {
+    fn name(&self) -> &str {
+        "svd"
+    }
+
+    /// # Errors
+    /// [`Error::TooFewRows`]; [`Error::InvalidParameter`] for a bad cutoff;
+    /// [`Error::NoConvergence`] if the SVD iteration fails; [`Error::Overflow`].
+    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+        problem.require_determined()?;
+        let cutoff = match self.relative_cutoff {
+            Some(t) => check_tolerance("relative_cutoff", t)?,
+            None => problem.default_rank_tolerance(),
+        };
+        let p = problem.cols();
+        let scaling = Scaling::new(problem, cutoff);
+        let r = qr::tall_skinny_r(problem, &scaling, true);
+        // Keep only the informative (non-constant) columns.
+        let live: Vec<usize> = (0..p).filter(|&j| !scaling.constant[j]).collect();
+        let q = live.len();
+        let r11 = Mat::<f64>::from_fn(p, q, |i, c| r[(i, live[c])]);
+        let rhs: Vec<f64> = (0..p).map(|i| r[(i, p)]).collect();
+        let mut beta = vec![0.0; p];
+        let (rank, condition) = if q == 0 {
+            (0, 1.0)
+        } else {
+            let dec = thin_svd(r11.as_ref())?;
+            let smax = dec.s.first().copied().unwrap_or(0.0);
+            let rank = dec.s.iter().take_while(|&&s| s > cutoff * smax && s > 0.0).count();
+            // gamma = V_r S_r^-1 U_r^T rhs (scaled coordinates of live columns).
+            let mut gamma = vec![0.0; q];
+            for i in 0..rank {
+                let coef: f64 = (0..p).map(|k| dec.u[(k, i)] * rhs[k]).sum::<f64>() / dec.s[i];
+                for (c, g) in gamma.iter_mut().enumerate() {
+                    *g += dec.v[(c, i)] * coef;
+                }
+            }
+            let mut b: Vec<f64> = (0..q)
+                .map(|c| gamma[c] * (scaling.target_scale / scaling.scale[live[c]]))
+                .collect();
+            if rank < q {
+                project_off_null_space(&mut b, &dec.v, rank, &live, &scaling);
+            }
+            for (c, &j) in live.iter().enumerate() {
+                beta[j] = b[c];
+            }
+            let condition = if rank == 0 { 1.0 } else { smax / dec.s[rank - 1] };
+            (rank, condition)
+        };
+        if rank == 0 && q > 0 {
+            return Err(Error::NoConvergence { what: "singular value decomposition" });
+        }
+        finish_closed_form(problem, self.name(), beta, rank, condition, scaling.target_scale, 0.0)
+    }
+}
+
+/// Makes `b` (caller units) the minimum-norm member of `b + null space`,
+/// where the null space of the scaled problem is spanned by columns
+/// `rank..` of `v`; in caller units a null vector `n` becomes `n_c / s_c`.
+fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, live: &[usize], scaling: &Scaling) {
+    let q = b.len();
+    let k = v.ncols() - rank;
+    let mut a = Mat::<f64>::from_fn(q, k, |c, i| v[(c, rank + i)] / scaling.scale[live[c]]);
+    // Column scaling does not change the range; it keeps the QR well scaled.
+    for i in 0..k {
+        let norm = (0..q).map(|c| a[(c, i)] * a[(c, i)]).sum::<f64>().sqrt();
+        if norm > 0.0 {
+            for c in 0..q {
+                a[(c, i)] /= norm;
+            }
+        }
+    }
+    let qm = qr::thin_q(a.as_ref());
+    for i in 0..qm.ncols() {
+        let dot: f64 = (0..q).map(|c| qm[(c, i)] * b[c]).sum();
+        for c in 0..q {
+            b[c] -= qm[(c, i)] * dot;
+        }
+    }
+}

@@ -1,0 +1,2 @@
+//! Shared support code for the integration tests (`mod common;`).
+pub mod nist;
