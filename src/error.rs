@@ -161,7 +161,9 @@ pub enum Error {
         tolerance: f64,
     },
     /// An iterative solver diverged: the loss grew without bound or became non-finite.
-    #[error("diverged at iteration {iteration} with step {step:e}: loss {loss:e}; use a smaller step")]
+    #[error(
+        "diverged at iteration {iteration} with step {step:e}: loss {loss:e}; use a smaller step"
+    )]
     Diverged {
         /// Iteration (or epoch) at which divergence was detected.
         iteration: usize,

@@ -25,7 +25,10 @@ pub struct LinearModel {
 impl LinearModel {
     /// A model with the given slopes and intercept (use 0 for none).
     pub fn new(coefficients: Array1<f64>, intercept: f64) -> Self {
-        LinearModel { coefficients, intercept }
+        LinearModel {
+            coefficients,
+            intercept,
+        }
     }
 
     /// The slope of each column, in the caller's units.
@@ -85,7 +88,12 @@ impl LinearModel {
         let mut out = Array1::zeros(x.nrows());
         for (i, row) in x.rows().into_iter().enumerate() {
             out[i] = self.predict_row(row).map_err(|e| match e {
-                Error::NonFinite { input, column, value, .. } => Error::NonFinite {
+                Error::NonFinite {
+                    input,
+                    column,
+                    value,
+                    ..
+                } => Error::NonFinite {
                     input,
                     row: i,
                     column,
@@ -149,7 +157,11 @@ impl LinearModel {
         let ss_res: f64 = r.iter().map(|v| v * v).sum();
         let ss_tot: f64 = y.iter().map(|v| (v - mean) * (v - mean)).sum();
         if ss_tot == 0.0 {
-            return Ok(if ss_res == 0.0 { 1.0 } else { f64::NEG_INFINITY });
+            return Ok(if ss_res == 0.0 {
+                1.0
+            } else {
+                f64::NEG_INFINITY
+            });
         }
         Ok(1.0 - ss_res / ss_tot)
     }

@@ -111,7 +111,9 @@ pub(crate) fn finish_closed_form(
     penalty: f64,
 ) -> Result<Fit> {
     if beta.iter().any(|b| !b.is_finite()) {
-        return Err(Error::Overflow { what: "coefficient vector" });
+        return Err(Error::Overflow {
+            what: "coefficient vector",
+        });
     }
     let intercept = intercept_for(problem, &beta);
     if !intercept.is_finite() {

@@ -1,7 +1,9 @@
 //! Cholesky factorisation of a small symmetric matrix.
 
 use faer::dyn_stack::{MemBuffer, MemStack};
-use faer::linalg::cholesky::llt::factor::{cholesky_in_place, cholesky_in_place_scratch, LltRegularization};
+use faer::linalg::cholesky::llt::factor::{
+    cholesky_in_place, cholesky_in_place_scratch, LltRegularization,
+};
 use faer::{Mat, MatRef, Par};
 
 /// Outcome of [`factor`].
@@ -33,6 +35,8 @@ pub(crate) fn factor(a: MatRef<'_, f64>) -> Factor {
             }
             Factor::Ok(l)
         }
-        Err(faer::linalg::cholesky::llt::factor::LltError::NonPositivePivot { index }) => Factor::Failed { pivot: index },
+        Err(faer::linalg::cholesky::llt::factor::LltError::NonPositivePivot { index }) => {
+            Factor::Failed { pivot: index }
+        }
     }
 }

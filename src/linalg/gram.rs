@@ -16,7 +16,11 @@ use crate::problem::Problem;
 /// symmetric rank-k update (half the flops of a general product); groups
 /// are summed in a fixed order, so the result does not depend on the
 /// thread count. Extra memory: one block and one `k x k` matrix per group.
-pub(crate) fn centered_gram(problem: &Problem<'_>, scaling: &Scaling, with_target: bool) -> Mat<f64> {
+pub(crate) fn centered_gram(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    with_target: bool,
+) -> Mat<f64> {
     let k = problem.cols() + usize::from(with_target);
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
@@ -27,7 +31,14 @@ pub(crate) fn centered_gram(problem: &Problem<'_>, scaling: &Scaling, with_targe
             let mut block = Mat::<f64>::zeros(b, k);
             for &(r0, r1) in group {
                 let len = r1 - r0;
-                fill_block(problem, scaling, r0, r1, with_target, block.as_mut().subrows_mut(0, len));
+                fill_block(
+                    problem,
+                    scaling,
+                    r0,
+                    r1,
+                    with_target,
+                    block.as_mut().subrows_mut(0, len),
+                );
                 let blk = block.as_ref().subrows(0, len);
                 matmul(
                     acc.as_mut(),

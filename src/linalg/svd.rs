@@ -23,7 +23,14 @@ pub(crate) fn thin_svd(a: MatRef<'_, f64>) -> Result<Svd> {
     let mut s = faer::diag::Diag::<f64>::zeros(r);
     let mut u = Mat::<f64>::zeros(m, r);
     let mut v = Mat::<f64>::zeros(n, r);
-    let req = svd_scratch::<f64>(m, n, ComputeSvdVectors::Thin, ComputeSvdVectors::Thin, Par::Seq, Default::default());
+    let req = svd_scratch::<f64>(
+        m,
+        n,
+        ComputeSvdVectors::Thin,
+        ComputeSvdVectors::Thin,
+        Par::Seq,
+        Default::default(),
+    );
     let mut mem = MemBuffer::new(req);
     svd(
         a,
@@ -34,7 +41,9 @@ pub(crate) fn thin_svd(a: MatRef<'_, f64>) -> Result<Svd> {
         MemStack::new(&mut mem),
         Default::default(),
     )
-    .map_err(|_| Error::NoConvergence { what: "singular value decomposition" })?;
+    .map_err(|_| Error::NoConvergence {
+        what: "singular value decomposition",
+    })?;
     let s = (0..r).map(|i| s[i]).collect();
     Ok(Svd { u, s, v })
 }

@@ -1,7 +1,9 @@
 //! Triangular solves and condition estimates.
 
 use faer::linalg::triangular_inverse::{invert_lower_triangular, invert_upper_triangular};
-use faer::linalg::triangular_solve::{solve_lower_triangular_in_place, solve_upper_triangular_in_place};
+use faer::linalg::triangular_solve::{
+    solve_lower_triangular_in_place, solve_upper_triangular_in_place,
+};
 use faer::{Mat, MatRef, Par};
 
 /// Solves `R x = b` in place for upper-triangular `R`.

@@ -85,14 +85,21 @@ impl Solver for Cholesky {
         let l = match factor {
             chol::Factor::Ok(l) => {
                 // A pivot at rounding level of the Gram: diagnose as below.
-                let noise = (0..p).any(|j| l[(j, j)] * l[(j, j)] <= 4.0 * f64::EPSILON * g11[(j, j)]);
+                let noise =
+                    (0..p).any(|j| l[(j, j)] * l[(j, j)] <= 4.0 * f64::EPSILON * g11[(j, j)]);
                 if noise {
                     return Err(self.diagnose(problem, &scaling, tolerance, p, None));
                 }
                 l
             }
             chol::Factor::Failed { pivot } => {
-                return Err(self.diagnose(problem, &scaling, tolerance, p, Some((pivot, g11[(pivot, pivot)]))));
+                return Err(self.diagnose(
+                    problem,
+                    &scaling,
+                    tolerance,
+                    p,
+                    Some((pivot, g11[(pivot, pivot)])),
+                ));
             }
         };
         let condition = triangular::condition_lower(l.as_ref());
@@ -113,7 +120,15 @@ impl Solver for Cholesky {
             .zip(&scaling.scale)
             .map(|(g, s)| g * (scaling.target_scale / s))
             .collect();
-        finish_closed_form(problem, self.name(), beta, p, condition, scaling.target_scale, 0.0)
+        finish_closed_form(
+            problem,
+            self.name(),
+            beta,
+            p,
+            condition,
+            scaling.target_scale,
+            0.0,
+        )
     }
 }
 

@@ -21,7 +21,9 @@ pub(crate) fn small_pivots(
 ) -> Vec<usize> {
     pivots
         .enumerate()
-        .filter(|&(j, d)| scaling.constant[j] || d.abs() <= tolerance * scaling.raw_norm_bound(problem, j))
+        .filter(|&(j, d)| {
+            scaling.constant[j] || d.abs() <= tolerance * scaling.raw_norm_bound(problem, j)
+        })
         .map(|(j, _)| j)
         .collect()
 }

@@ -79,6 +79,14 @@ impl Solver for Qr {
             .map(|(g, s)| g * (scaling.target_scale / s))
             .collect();
         let condition = triangular::condition_upper(r11.as_ref());
-        finish_closed_form(problem, self.name(), beta, p, condition, scaling.target_scale, 0.0)
+        finish_closed_form(
+            problem,
+            self.name(),
+            beta,
+            p,
+            condition,
+            scaling.target_scale,
+            0.0,
+        )
     }
 }

@@ -54,7 +54,11 @@ impl Solver for Svd {
         } else {
             let dec = thin_svd(r11.as_ref())?;
             let smax = dec.s.first().copied().unwrap_or(0.0);
-            let rank = dec.s.iter().take_while(|&&s| s > cutoff * smax && s > 0.0).count();
+            let rank = dec
+                .s
+                .iter()
+                .take_while(|&&s| s > cutoff * smax && s > 0.0)
+                .count();
             // gamma = V_r S_r^-1 U_r^T rhs (scaled coordinates of live columns).
             let mut gamma = vec![0.0; q];
             for i in 0..rank {
@@ -72,20 +76,40 @@ impl Solver for Svd {
             for (c, &j) in live.iter().enumerate() {
                 beta[j] = b[c];
             }
-            let condition = if rank == 0 { 1.0 } else { smax / dec.s[rank - 1] };
+            let condition = if rank == 0 {
+                1.0
+            } else {
+                smax / dec.s[rank - 1]
+            };
             (rank, condition)
         };
         if rank == 0 && q > 0 {
-            return Err(Error::NoConvergence { what: "singular value decomposition" });
+            return Err(Error::NoConvergence {
+                what: "singular value decomposition",
+            });
         }
-        finish_closed_form(problem, self.name(), beta, rank, condition, scaling.target_scale, 0.0)
+        finish_closed_form(
+            problem,
+            self.name(),
+            beta,
+            rank,
+            condition,
+            scaling.target_scale,
+            0.0,
+        )
     }
 }
 
 /// Makes `b` (caller units) the minimum-norm member of `b + null space`,
 /// where the null space of the scaled problem is spanned by columns
 /// `rank..` of `v`; in caller units a null vector `n` becomes `n_c / s_c`.
-fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, live: &[usize], scaling: &Scaling) {
+fn project_off_null_space(
+    b: &mut [f64],
+    v: &Mat<f64>,
+    rank: usize,
+    live: &[usize],
+    scaling: &Scaling,
+) {
     let q = b.len();
     let k = v.ncols() - rank;
     let mut a = Mat::<f64>::from_fn(q, k, |c, i| v[(c, rank + i)] / scaling.scale[live[c]]);
