@@ -14,6 +14,7 @@
 
 pub(crate) mod cholesky;
 pub(crate) mod gram;
+pub(crate) mod householder;
 pub(crate) mod qr;
 pub(crate) mod residuals;
 pub(crate) mod svd;

@@ -6,43 +6,19 @@
 //! as one Householder QR of the whole matrix, and needs one block of extra
 //! memory per group instead of a copy of the design.
 
-use faer::dyn_stack::{MemBuffer, MemStack};
-use faer::linalg::qr::no_pivoting::factor::{
-    qr_in_place, qr_in_place_scratch, recommended_block_size,
-};
-use faer::{Mat, MatMut, Par};
+use faer::{Mat, MatMut};
 use rayon::prelude::*;
 
 use super::{block_groups, block_rows, GROUPS};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
-/// Factors `a` in place (Householder, sequential) and leaves only the upper
-/// triangle `R` in its top `k` rows (everything else zeroed).
-fn qr_keep_r(mut a: MatMut<'_, f64>) {
-    let (m, k) = (a.nrows(), a.ncols());
-    if k == 0 || m == 0 {
-        return;
-    }
-    let bs = recommended_block_size::<f64>(m, k);
-    let mut h = Mat::<f64>::zeros(bs, m.min(k));
-    let req = qr_in_place_scratch::<f64>(m, k, bs, Par::Seq, Default::default());
-    let mut mem = MemBuffer::new(req);
-    qr_in_place(
-        a.rb_mut(),
-        h.as_mut(),
-        Par::Seq,
-        MemStack::new(&mut mem),
-        Default::default(),
-    );
-    for j in 0..k {
-        for i in (j + 1)..m {
-            a[(i, j)] = 0.0;
-        }
-    }
+/// Factors `a` in place and leaves a `k x k` factor `R` with
+/// `R^T R = a^T a` in its top rows (everything else zeroed); see
+/// [`super::householder::reduce_to_square`] for rank-deficient blocks.
+fn qr_keep_r(a: MatMut<'_, f64>) -> bool {
+    super::householder::reduce_to_square(a)
 }
-
-use faer::reborrow::ReborrowMut;
 
 /// Returns the upper-triangular `k x k` factor `R` with `Z = Q R`, where `Z`
 /// is the centered, weighted, scaled design (plus the target as a last
@@ -56,11 +32,12 @@ pub(crate) fn tall_skinny_r(
     let k = problem.cols() + usize::from(with_target);
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
-    let partials: Vec<Mat<f64>> = groups
+    let partials: Vec<(Mat<f64>, bool)> = groups
         .par_iter()
         .map(|group| {
-            // Top k rows: the running triangle; below: the next block.
+            // Top k rows: the running factor; below: the next block.
             let mut buf = Mat::<f64>::zeros(k + b, k);
+            let mut triangular = true;
             for &(r0, r1) in group {
                 let len = r1 - r0;
                 fill_block(
@@ -71,65 +48,35 @@ pub(crate) fn tall_skinny_r(
                     with_target,
                     buf.as_mut().subrows_mut(k, len),
                 );
-                qr_keep_r(buf.as_mut().subrows_mut(0, k + len));
+                triangular = qr_keep_r(buf.as_mut().subrows_mut(0, k + len));
             }
-            buf.as_ref().subrows(0, k).to_owned()
+            (buf.as_ref().subrows(0, k).to_owned(), triangular)
         })
         .collect();
-    if partials.len() == 1 {
-        return partials
+    let (r, triangular) = if partials.len() == 1 {
+        partials
             .into_iter()
             .next()
-            .unwrap_or_else(|| Mat::zeros(k, k));
+            .unwrap_or_else(|| (Mat::zeros(k, k), true))
+    } else {
+        let mut stacked = Mat::<f64>::zeros(k * partials.len(), k);
+        for (g, (part, _)) in partials.iter().enumerate() {
+            stacked
+                .as_mut()
+                .subrows_mut(g * k, k)
+                .copy_from(part.as_ref());
+        }
+        let triangular = qr_keep_r(stacked.as_mut());
+        (stacked.as_ref().subrows(0, k).to_owned(), triangular)
+    };
+    if triangular {
+        r
+    } else {
+        super::householder::triangle_of(r.as_ref())
     }
-    let mut stacked = Mat::<f64>::zeros(k * partials.len(), k);
-    for (g, part) in partials.iter().enumerate() {
-        stacked
-            .as_mut()
-            .subrows_mut(g * k, k)
-            .copy_from(part.as_ref());
-    }
-    qr_keep_r(stacked.as_mut());
-    stacked.as_ref().subrows(0, k).to_owned()
 }
 
-/// Householder QR of a small dense matrix (copied): returns the thin `Q`
-/// (`m x min(m, k)`) by applying the reflectors to the identity.
+/// Thin `Q` of a small dense matrix (see [`super::householder::thin_q`]).
 pub(crate) fn thin_q(a: faer::MatRef<'_, f64>) -> Mat<f64> {
-    let (m, k) = (a.nrows(), a.ncols());
-    let r = m.min(k);
-    if r == 0 {
-        return Mat::zeros(m, 0);
-    }
-    let mut qr = a.to_owned();
-    let bs = recommended_block_size::<f64>(m, k);
-    let mut h = Mat::<f64>::zeros(bs, r);
-    let req = qr_in_place_scratch::<f64>(m, k, bs, Par::Seq, Default::default());
-    let mut mem = MemBuffer::new(req);
-    qr_in_place(
-        qr.as_mut(),
-        h.as_mut(),
-        Par::Seq,
-        MemStack::new(&mut mem),
-        Default::default(),
-    );
-    let mut q = Mat::<f64>::zeros(m, r);
-    for j in 0..r {
-        q[(j, j)] = 1.0;
-    }
-    let essentials = qr.as_ref().subcols(0, r);
-    let req =
-        faer::linalg::householder::apply_block_householder_sequence_on_the_left_in_place_scratch::<
-            f64,
-        >(m, bs, r);
-    let mut mem = MemBuffer::new(req);
-    faer::linalg::householder::apply_block_householder_sequence_on_the_left_in_place_with_conj(
-        essentials,
-        h.as_ref(),
-        faer::Conj::No,
-        q.as_mut(),
-        Par::Seq,
-        MemStack::new(&mut mem),
-    );
-    q
+    super::householder::thin_q(a)
 }

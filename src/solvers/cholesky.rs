@@ -6,7 +6,7 @@ use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 
-use super::small_pivots;
+use super::dependent_columns;
 
 /// Normal equations solved by Cholesky: the fastest closed form.
 ///
@@ -144,7 +144,7 @@ impl Cholesky {
         failed: Option<(usize, f64)>,
     ) -> Error {
         let r = tall_skinny_r(problem, scaling, false);
-        let dependent = small_pivots(problem, scaling, (0..p).map(|j| r[(j, j)]), tolerance);
+        let dependent = dependent_columns(problem, scaling, r.as_ref(), tolerance);
         if !dependent.is_empty() {
             return Error::RankDeficient {
                 rank: p - dependent.len(),

@@ -6,7 +6,7 @@ use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 
-use super::small_pivots;
+use super::dependent_columns;
 
 /// Householder QR of the centered design: the default solver.
 ///
@@ -61,7 +61,12 @@ impl Solver for Qr {
         let p = problem.cols();
         let scaling = Scaling::new(problem, tolerance);
         let r = tall_skinny_r(problem, &scaling, true);
-        let dependent = small_pivots(problem, &scaling, (0..p).map(|j| r[(j, j)]), tolerance);
+        let dependent = dependent_columns(
+            problem,
+            &scaling,
+            r.as_ref().submatrix(0, 0, p, p),
+            tolerance,
+        );
         if !dependent.is_empty() {
             return Err(Error::RankDeficient {
                 rank: p - dependent.len(),
