@@ -63,3 +63,8 @@ pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Svd};
+
+/// The README's code blocks, run as doctests.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+pub struct ReadmeDoctests;
