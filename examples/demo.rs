@@ -44,7 +44,9 @@ fn frostgate_records(days: usize, seed: u64) -> (Array2<f64>, Array1<f64>) {
         let weekday = d % 7 < 5;
         let doors = (if weekday { 140.0 } else { 60.0 }) + 18.0 * normal(&mut rng);
         let pallets = (if weekday { 310.0 } else { 90.0 }) + 0.9 * doors + 35.0 * normal(&mut rng);
-        let defrost = (4.0 + 0.12 * temp + 0.8 * normal(&mut rng)).round().max(0.0);
+        let defrost = (4.0 + 0.12 * temp + 0.8 * normal(&mut rng))
+            .round()
+            .max(0.0);
         let staffed = (if weekday { 16.0 } else { 6.0 }) + 1.5 * normal(&mut rng);
         let row = [temp, doors, pallets, defrost, staffed];
         let mut kwh = base_load + 160.0 * normal(&mut rng);

@@ -26,6 +26,21 @@ use super::dependent_columns;
 /// the cause: it runs a QR of the design (this error path only) and reports
 /// [`Error::RankDeficient`] with the dependent columns if QR finds them,
 /// else [`Error::IllConditioned`].
+///
+/// ```
+/// use leastline::{Cholesky, Error, Problem, Solver};
+/// use ndarray::Array2;
+///
+/// // A degree-9 polynomial in x on [0, 1]: the Gram matrix is hopeless.
+/// let x = Array2::from_shape_fn((40, 9), |(i, j)| (i as f64 / 39.0).powi(j as i32 + 1));
+/// let y = x.column(0).mapv(|t| (3.0 * t).sin());
+/// let problem = Problem::new(x.view(), y.view())?;
+/// match Cholesky::default().fit(&problem) {
+///     Err(Error::IllConditioned { expected_digits, .. }) => assert!(expected_digits < 4.0),
+///     other => panic!("expected a refusal, got {other:?}"),
+/// }
+/// # Ok::<(), leastline::Error>(())
+/// ```
 #[derive(Debug, Clone, PartialEq)]
 pub struct Cholesky {
     /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses

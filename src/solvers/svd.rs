@@ -20,6 +20,21 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 /// the one of minimum Euclidean norm **in the caller's units** (the
 /// pseudo-inverse solution `X_c^+ y_c` of the centered problem): the scaled
 /// solution is projected off the null space mapped back to caller units.
+///
+/// ```
+/// use leastline::{Problem, Solver, Svd};
+/// use ndarray::array;
+///
+/// // The second column is twice the first: only their combination is identified.
+/// let x = array![[1.0, 2.0], [2.0, 4.0], [3.0, 6.0], [4.0, 8.0]];
+/// let y = array![1.0, 2.1, 2.9, 4.2];
+/// let fit = Svd::default().fit(&Problem::new(x.view(), y.view())?)?;
+/// assert_eq!(fit.report.rank, 1);
+/// let b = fit.model.coefficients();
+/// // Minimum norm: b is proportional to (1, 2).
+/// assert!((b[1] - 2.0 * b[0]).abs() < 1e-12);
+/// # Ok::<(), leastline::Error>(())
+/// ```
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Svd {
     /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
