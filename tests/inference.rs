@@ -579,7 +579,8 @@ fn inference_round_trips_through_json() {
         (a.prediction_upper[0] - b.prediction_upper[0]).abs()
             <= 1e-14 * a.prediction_upper[0].abs()
     );
-    let d = inf.diagnostics(&problem).unwrap();
+    // ... and still gives the diagnostics of the problem it came from.
+    let d = back.diagnostics(&problem).unwrap();
     let _: leastline::inference::Diagnostics =
         serde_json::from_str(&serde_json::to_string(&d).unwrap()).unwrap();
 }

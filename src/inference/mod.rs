@@ -318,6 +318,12 @@ pub(crate) fn ratio(a: f64, b: f64) -> f64 {
     }
 }
 
+/// Equal to a relative `1e-12` (a value restored from text may differ in
+/// its last bits).
+fn close(a: f64, b: f64) -> bool {
+    (a - b).abs() <= 1e-12 * a.abs().max(b.abs())
+}
+
 /// What prediction and diagnostics need, kept in scaled coordinates.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
@@ -334,6 +340,8 @@ struct Basis {
     total_weight: f64,
     /// Column means used for centering (zeros without intercept).
     means: Vec<f64>,
+    /// Weighted mean of the target (zero without intercept).
+    target_mean: f64,
     /// The middle matrix in orthonormal coordinates (`q x q`), in scaled
     /// units: `sigma~^2 I` for the classical covariance.
     meat: Array2<f64>,
@@ -607,6 +615,7 @@ impl Inference {
             weight_scale: ws,
             total_weight: w_scaled,
             means: problem.stats.means.clone(),
+            target_mean: problem.stats.target_mean,
             meat: Array2::from_shape_fn((q, q), |(i, j)| meat[(i, j)]),
             sigma2_scaled,
             gamma,
@@ -683,8 +692,14 @@ impl Inference {
             && scaling.scale == self.basis.scale
             && scaling.target_scale == self.basis.target_scale
             && problem.stats.weight_scale == self.basis.weight_scale
-            && problem.stats.total_weight == self.basis.total_weight
-            && problem.stats.means == self.basis.means;
+            && close(problem.stats.total_weight, self.basis.total_weight)
+            && close(problem.stats.target_mean, self.basis.target_mean)
+            && problem
+                .stats
+                .means
+                .iter()
+                .zip(&self.basis.means)
+                .all(|(&a, &b)| close(a, b));
         if !same {
             return Err(refuse(InferenceRefusal::DifferentProblem {
                 fit_rows: self.usable_rows,
