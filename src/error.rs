@@ -184,6 +184,13 @@ pub enum Error {
         /// Why not.
         reason: &'static str,
     },
+    /// Inference (standard errors, tests, intervals) was refused for a fit;
+    /// the refusal says why and carries its numbers.
+    #[error("inference refused: {refusal}")]
+    InferenceRefused {
+        /// Why inference is not available for this fit.
+        refusal: crate::inference::InferenceRefusal,
+    },
 }
 
 /// Shorthand for results of this crate.

@@ -40,7 +40,8 @@
 //!
 //! ## Features
 //!
-//! - `serde`: `Serialize`/`Deserialize` for [`LinearModel`], [`Fit`] and [`FitReport`].
+//! - `serde`: `Serialize`/`Deserialize` for [`LinearModel`], [`Fit`] and [`FitReport`]
+//!   (and the [`inference`] results).
 //!
 //! ## What this crate is not
 //!
@@ -51,6 +52,7 @@
 #![doc(test(attr(deny(warnings))))]
 
 pub mod error;
+pub mod inference;
 mod linalg;
 pub mod model;
 mod prep;
@@ -59,6 +61,7 @@ pub mod solver;
 mod solvers;
 
 pub use error::{Error, Input, Result};
+pub use inference::{CovarianceKind, Inference, InferenceOptions};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};

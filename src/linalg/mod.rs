@@ -10,11 +10,15 @@
 //! - [`qr::tall_skinny_r`]: the `R` factor of the same matrix by Householder
 //!   QR of row blocks combined pairwise (TSQR), never forming `Q`;
 //! - [`cholesky`], [`svd`], [`triangular`]: small dense factorisations;
-//! - [`residuals`]: fused residual passes over the design.
+//! - [`residuals`]: fused residual passes over the design;
+//! - [`leverage`], [`products`]: the row pass and small products used by
+//!   inference (leverages without the hat matrix, sandwich middle matrices).
 
 pub(crate) mod cholesky;
 pub(crate) mod gram;
 pub(crate) mod householder;
+pub(crate) mod leverage;
+pub(crate) mod products;
 pub(crate) mod qr;
 pub(crate) mod residuals;
 pub(crate) mod svd;

@@ -1,0 +1,211 @@
+//! Goodness of fit, the overall test and collinearity measures.
+
+use faer::{Mat, MatRef};
+
+use super::distributions::f_upper_tail;
+use super::ratio;
+use crate::error::Result;
+use crate::linalg::products::{inverse_quadratic_form, upper_times};
+use crate::linalg::svd::thin_svd;
+use crate::problem::Problem;
+
+/// How well the model fits, and the overall test that every slope is zero.
+///
+/// **R² with an intercept** is centered: `1 - RSS / TSS` with
+/// `TSS = sum w (y - ybar_w)^2`. **Without an intercept** it is
+/// *uncentered*: `TSS = sum w y^2` (sums of squares about zero, which is
+/// what a model forced through the origin explains); `centered` is then
+/// `false`. The two are not comparable with each other.
+///
+/// **Likelihood** (Gaussian errors with variance `sigma^2 / w_i`, at the
+/// maximum-likelihood `sigma^2 = RSS / n`):
+/// `log L = -n/2 (ln(2 pi) + ln(RSS / n) + 1) + 1/2 sum ln w_i`
+/// over the usable rows (the last term is 0 without weights).
+/// `AIC = -2 log L + 2 m` and `BIC = -2 log L + m ln n`, where
+/// `m = likelihood_parameters` **counts the residual variance**: the
+/// coefficients, the intercept and `sigma^2`. An exact fit (`RSS = 0`)
+/// has `log L = +inf`.
+#[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[non_exhaustive]
+pub struct GoodnessOfFit {
+    /// R², centered or uncentered (see `centered`).
+    pub r_squared: f64,
+    /// `1 - (1 - R²) (n - i) / (n - k)` with `i = 1` for a centered and
+    /// `i = 0` for an uncentered R².
+    pub adjusted_r_squared: f64,
+    /// Whether the sums of squares are about the weighted mean (`true`,
+    /// model with intercept) or about zero (`false`, no intercept).
+    pub centered: bool,
+    /// Total sum of squares (centered or not, as R²), weighted.
+    pub total_sum_of_squares: f64,
+    /// Sum of squares explained by the slopes, `||R gamma||^2` in caller
+    /// units: equals `TSS - RSS` at the least-squares solution.
+    pub regression_sum_of_squares: f64,
+    /// Weighted residual sum of squares of the fit's coefficients.
+    pub residual_sum_of_squares: f64,
+    /// The test that every slope is zero; `None` without slopes, or when a
+    /// sandwich middle matrix is singular.
+    pub overall: Option<OverallTest>,
+    /// Gaussian log-likelihood at the estimates.
+    pub log_likelihood: f64,
+    /// Akaike's information criterion.
+    pub aic: f64,
+    /// Schwarz's Bayesian information criterion.
+    pub bic: f64,
+    /// Parameters counted by AIC and BIC: `k + 1` (the variance counts).
+    pub likelihood_parameters: usize,
+}
+
+/// The F test that every slope is zero (the intercept is not tested).
+///
+/// It is the Wald statistic `b^T C^-1 b / p` for the slopes `b` with the
+/// selected covariance `C`. With the classical covariance it equals the
+/// usual ratio `(SS_regression / p) / (RSS / (n - k))` of sums of squares;
+/// with a sandwich covariance it is the heteroskedasticity-consistent Wald
+/// test. Referred to the F distribution with `p` and `n - k` degrees of
+/// freedom.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[non_exhaustive]
+pub struct OverallTest {
+    /// The F statistic.
+    pub statistic: f64,
+    /// Numerator degrees of freedom (the number of slopes).
+    pub df_model: usize,
+    /// Denominator degrees of freedom (residual).
+    pub df_residual: usize,
+    /// Upper-tail probability.
+    pub p_value: f64,
+}
+
+/// How close the columns are to being linearly dependent.
+///
+/// **VIF:** `VIF_j = 1 / (1 - R_j^2)`, where `R_j^2` is from regressing
+/// column `j` on the others with an intercept; equivalently the `j`-th
+/// diagonal entry of the inverse of the columns' (weighted) correlation
+/// matrix, computed here from the triangular factor as
+/// `||R e_j||^2 ||e_j^T R^-1||^2` (scale-free). Without an intercept the
+/// columns are not centered and the VIFs are of the uncentered cross
+/// products (`centered` is `false`); they are then not the usual ones.
+///
+/// **Condition number:** the ratio of the largest to the smallest singular
+/// value of the (centered, weighted) design after scaling every column to
+/// unit length; values above about 30 to 100 are commonly read as strong
+/// collinearity.
+#[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[non_exhaustive]
+pub struct Collinearity {
+    /// Variance inflation factor of every column.
+    pub vif: Vec<f64>,
+    /// 2-norm condition number of the unit-column design.
+    pub condition_number: f64,
+    /// Whether the columns were centered (model with intercept).
+    pub centered: bool,
+}
+
+pub(super) struct Inputs<'a, 'p> {
+    pub problem: &'a Problem<'p>,
+    pub r: MatRef<'a, f64>,
+    pub gamma: &'a [f64],
+    /// The middle matrix; `sigma~^2 I` when `classical`.
+    pub meat: MatRef<'a, f64>,
+    pub classical: bool,
+    pub rss: f64,
+    pub tss: f64,
+    /// Caller units per scaled unit of a sum of squares.
+    pub unit: f64,
+    pub df: usize,
+    pub parameters: usize,
+}
+
+pub(super) fn compute(inp: Inputs<'_, '_>) -> GoodnessOfFit {
+    let problem = inp.problem;
+    let p = problem.cols();
+    let n = problem.usable_rows() as f64;
+    let centered = problem.has_intercept();
+    let dff = inp.df as f64;
+    let r_squared = if inp.tss > 0.0 {
+        1.0 - inp.rss / inp.tss
+    } else if inp.rss == 0.0 {
+        1.0
+    } else {
+        f64::NEG_INFINITY
+    };
+    let lost = if centered { 1.0 } else { 0.0 };
+    let adjusted_r_squared = 1.0 - (1.0 - r_squared) * ((n - lost) / dff);
+    let rg = upper_times(inp.r, inp.gamma);
+    let ess_scaled: f64 = rg.iter().map(|v| v * v).sum();
+    let overall = if p == 0 {
+        None
+    } else {
+        let mpp = inp.meat.submatrix(0, 0, p, p);
+        let wald = if inp.classical {
+            // Classical: M = sigma~^2 I.
+            Some(ratio(ess_scaled, mpp[(0, 0)]))
+        } else {
+            inverse_quadratic_form(mpp, &rg)
+        };
+        wald.map(|w| {
+            let statistic = w / p as f64;
+            OverallTest {
+                statistic,
+                df_model: p,
+                df_residual: inp.df,
+                p_value: f_upper_tail(statistic, p as f64, dff),
+            }
+        })
+    };
+    let log_weights: f64 = match problem.weights() {
+        Some(w) => w.iter().filter(|&&v| v > 0.0).map(|v| v.ln()).sum(),
+        None => 0.0,
+    };
+    let two_pi = 2.0 * std::f64::consts::PI;
+    let log_likelihood = -0.5 * n * (two_pi.ln() + (inp.rss / n).ln() + 1.0) + 0.5 * log_weights;
+    let m = inp.parameters + 1;
+    GoodnessOfFit {
+        r_squared,
+        adjusted_r_squared,
+        centered,
+        total_sum_of_squares: inp.tss,
+        regression_sum_of_squares: ess_scaled * inp.unit,
+        residual_sum_of_squares: inp.rss,
+        overall,
+        log_likelihood,
+        aic: -2.0 * log_likelihood + 2.0 * m as f64,
+        bic: -2.0 * log_likelihood + m as f64 * n.ln(),
+        likelihood_parameters: m,
+    }
+}
+
+pub(super) fn collinearity(
+    r: MatRef<'_, f64>,
+    rinv: MatRef<'_, f64>,
+    centered: bool,
+) -> Result<Collinearity> {
+    let p = r.ncols();
+    let col_norm: Vec<f64> = (0..p)
+        .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum::<f64>().sqrt())
+        .collect();
+    let vif: Vec<f64> = (0..p)
+        .map(|j| {
+            let row: f64 = (j..p).map(|c| rinv[(j, c)] * rinv[(j, c)]).sum();
+            col_norm[j] * col_norm[j] * row
+        })
+        .collect();
+    let condition_number = if p == 0 {
+        1.0
+    } else {
+        let unit = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] / col_norm[j]);
+        let svd = thin_svd(unit.as_ref())?;
+        let smax = svd.s.first().copied().unwrap_or(1.0);
+        let smin = svd.s.last().copied().unwrap_or(1.0);
+        ratio(smax, smin)
+    };
+    Ok(Collinearity {
+        vif,
+        condition_number,
+        centered,
+    })
+}
