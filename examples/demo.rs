@@ -160,5 +160,13 @@ fn main() {
     if let Ok(r2) = fit.model.r_squared(x.view(), y.view()) {
         println!("\nresidual standard deviation {rmse:.1} kWh, R^2 {r2:.4}");
     }
+    // Uncertainty of the default fit, in the crate's own summary layout.
+    match fit
+        .inference(&problem)
+        .and_then(|inf| inf.with_names(PREDICTORS))
+    {
+        Ok(inference) => println!("\nuncertainty of the {} fit\n{inference}", fits[0].0),
+        Err(e) => println!("\nno inference: {e}"),
+    }
     println!("(synthetic data: the effects are invented for this demo)");
 }
