@@ -63,3 +63,4 @@ pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Svd};
+pub use solvers::Refinement;
