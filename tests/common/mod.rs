@@ -1,3 +1,3 @@
 //! Shared support code for the integration tests (`mod common;`).
-pub mod nist;
 pub mod exact;
+pub mod nist;
