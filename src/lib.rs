@@ -62,5 +62,5 @@ pub use error::{Error, Input, Result};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
-pub use solvers::{Cholesky, Qr, Svd};
 pub use solvers::Refinement;
+pub use solvers::{Cholesky, Qr, Svd};
