@@ -463,3 +463,58 @@ fn cholesky_digit_estimate_is_within_three_digits_of_delivery() {
         }
     }
 }
+
+/// Edge cases of the refined path: no panic, typed results, and exact
+/// identities where they exist.
+#[test]
+fn refinement_edge_cases() {
+    // Intercept only (no columns): the refined intercept is the mean, and
+    // for these values the mean is exactly 0.25 (identity).
+    let x = Array2::<f64>::zeros((4, 0));
+    let y = ndarray::array![0.1, 0.2, 0.3, 0.4];
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let f = Qr::refined().fit(&problem).expect("fits");
+    assert_eq!(f.model.intercept(), 0.25);
+
+    // An exact line through integers: refinement recovers it exactly.
+    let x = ndarray::array![[1.0], [2.0], [3.0], [4.0], [5.0]];
+    let y = ndarray::array![7.0, 10.0, 13.0, 16.0, 19.0];
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let f = Qr::refined().fit(&problem).expect("fits");
+    assert_eq!(f.model.coefficients()[0], 3.0);
+    assert_eq!(f.model.intercept(), 4.0);
+    assert_eq!(f.report.residual_sum_of_squares, 0.0);
+
+    // Zero-weight rows are ignored, even with wild values in them.
+    let x = ndarray::array![[1.0], [2.0], [3.0], [1e6], [4.0]];
+    let y = ndarray::array![2.0, 4.1, 5.9, -1e9, 8.2];
+    let w = ndarray::array![1.0, 1.0, 1.0, 0.0, 1.0];
+    let kept_x = ndarray::array![[1.0], [2.0], [3.0], [4.0]];
+    let kept_y = ndarray::array![2.0, 4.1, 5.9, 8.2];
+    let weighted = Problem::builder(x.view(), y.view())
+        .weights(w.view())
+        .build()
+        .expect("valid");
+    let a = Qr::refined().fit(&weighted).expect("fits");
+    let best = exact::least_squares(kept_x.view(), kept_y.view(), true);
+    assert!(min_lre(&estimates(&a, true), &best) >= 15.0);
+
+    // Values near the top of the f64 range: the error-free products
+    // overflow, refinement gives up quietly and the coefficients stay
+    // finite (the residual sum of squares, about 1e608, is not
+    // representable: infinite, never NaN).
+    let x = ndarray::array![[1e305], [2e305], [3e305], [4e305]];
+    let y = ndarray::array![1.0e305, 2.1e305, 2.9e305, 4.2e305];
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let f = Qr::refined().fit(&problem).expect("fits");
+    assert!(f.model.coefficients()[0].is_finite() && f.model.intercept().is_finite());
+    assert!(!f.report.residual_sum_of_squares.is_nan());
+
+    // Tiny values: still the exact solution.
+    let x = ndarray::array![[1e-200], [2e-200], [3e-200], [4e-200]];
+    let y = ndarray::array![1.0e-200, 2.1e-200, 2.9e-200, 4.2e-200];
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let f = Qr::refined().fit(&problem).expect("fits");
+    let best = exact::least_squares(x.view(), y.view(), true);
+    assert!(min_lre(&estimates(&f, true), &best) >= 14.0);
+}

@@ -155,6 +155,13 @@ impl Solver for Qr {
         let residuals =
             crate::linalg::extended::residuals(problem, refined.intercept, &refined.beta);
         let rss = crate::linalg::extended::weighted_sum_of_squares(problem, &residuals);
+        // Outside the range of the error-free products (|values| near
+        // 1e300) the extended sum may overflow: keep the plain one then.
+        let rss = if rss.is_finite() {
+            rss
+        } else {
+            fit.report.residual_sum_of_squares
+        };
         fit.model = LinearModel::new(Array1::from(refined.beta), refined.intercept);
         fit.report.residual_sum_of_squares = rss;
         fit.report.iterations = Some(IterationReport {

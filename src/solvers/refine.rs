@@ -59,8 +59,6 @@ pub(crate) struct Refined {
     pub beta: Vec<f64>,
     pub steps: usize,
     pub converged: bool,
-    /// Relative size of the last correction applied (or found).
-    pub last_change: f64,
     /// Largest `|a_j^T W e| / (|W^(1/2) a_j| |W^(1/2) (y - ybar)|)` over
     /// the centered columns `a_j` and the constant, at the start of the
     /// last step.
@@ -130,7 +128,6 @@ pub(crate) fn refine(
         beta: Vec::new(),
         steps: 0,
         converged: false,
-        last_change: f64::INFINITY,
         gradient: f64::NAN,
         losses: Vec::new(),
     };
@@ -223,14 +220,12 @@ pub(crate) fn refine(
         if change > prev {
             // Growing corrections: the refinement does not converge here;
             // keep the previous iterate.
-            out.last_change = change;
             break;
         }
         for (b, db) in beta.iter_mut().zip(&d_beta) {
             *b += db;
         }
         intercept += d_intercept;
-        out.last_change = change;
         if change <= settings.tolerance {
             out.converged = true;
             break;
