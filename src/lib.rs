@@ -65,6 +65,7 @@ pub use inference::{CovarianceKind, Inference, InferenceOptions};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
+pub use solvers::Refinement;
 pub use solvers::{Cholesky, Qr, Svd};
 
 /// The README's code blocks, run as doctests.

@@ -391,7 +391,8 @@ fn every_validation_error_names_what_and_where() {
     let problem = Problem::new(x.view(), y.view()).unwrap();
     assert!(matches!(
         Qr {
-            rank_tolerance: Some(-1.0)
+            rank_tolerance: Some(-1.0),
+            ..Default::default()
         }
         .fit(&problem)
         .unwrap_err(),

@@ -13,8 +13,11 @@
 //! - [`residuals`]: fused residual passes over the design;
 //! - [`leverage`], [`products`]: the row pass and small products used by
 //!   inference (leverages without the hat matrix, sandwich middle matrices).
+//! - [`extended`]: residual passes in double-double arithmetic for
+//!   iterative refinement.
 
 pub(crate) mod cholesky;
+pub(crate) mod extended;
 pub(crate) mod gram;
 pub(crate) mod householder;
 pub(crate) mod leverage;

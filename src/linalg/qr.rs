@@ -6,6 +6,7 @@
 //! as one Householder QR of the whole matrix, and needs one block of extra
 //! memory per group instead of a copy of the design.
 
+use faer::reborrow::ReborrowMut;
 use faer::{Mat, MatMut};
 use rayon::prelude::*;
 
@@ -29,7 +30,41 @@ pub(crate) fn tall_skinny_r(
     scaling: &Scaling,
     with_target: bool,
 ) -> Mat<f64> {
-    let k = problem.cols() + usize::from(with_target);
+    let last = if with_target {
+        LastColumn::Target
+    } else {
+        LastColumn::None
+    };
+    factor_r(problem, scaling, last)
+}
+
+/// As [`tall_skinny_r`], with the last column `sqrt(w_i) v_i * inv_scale`
+/// built from a caller-supplied vector `v` (one entry per row) instead of
+/// the target: `R[..p, p]` is then `Q^T (W^(1/2) v) * inv_scale` for the
+/// same `Q` as the design's (the design columns are factored exactly as
+/// with the target, whatever the last column holds). Iterative refinement
+/// uses it to apply `Q^T` to a residual without storing `Q`.
+pub(crate) fn tall_skinny_r_with(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    v: &[f64],
+    inv_scale: f64,
+) -> Mat<f64> {
+    factor_r(problem, scaling, LastColumn::Vector(v, inv_scale))
+}
+
+/// What the column after the design holds.
+#[derive(Clone, Copy)]
+enum LastColumn<'v> {
+    None,
+    Target,
+    Vector(&'v [f64], f64),
+}
+
+fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> Mat<f64> {
+    let with_last = !matches!(last, LastColumn::None);
+    let p = problem.cols();
+    let k = p + usize::from(with_last);
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
     let partials: Vec<(Mat<f64>, bool)> = groups
@@ -40,14 +75,26 @@ pub(crate) fn tall_skinny_r(
             let mut triangular = true;
             for &(r0, r1) in group {
                 let len = r1 - r0;
-                fill_block(
-                    problem,
-                    scaling,
-                    r0,
-                    r1,
-                    with_target,
-                    buf.as_mut().subrows_mut(k, len),
-                );
+                let mut block = buf.as_mut().subrows_mut(k, len);
+                match last {
+                    LastColumn::None | LastColumn::Target => {
+                        fill_block(problem, scaling, r0, r1, with_last, block.rb_mut())
+                    }
+                    LastColumn::Vector(v, inv_scale) => {
+                        fill_block(
+                            problem,
+                            scaling,
+                            r0,
+                            r1,
+                            false,
+                            block.rb_mut().subcols_mut(0, p),
+                        );
+                        for (local, i) in (r0..r1).enumerate() {
+                            block[(local, p)] =
+                                problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
+                        }
+                    }
+                }
                 triangular = qr_keep_r(buf.as_mut().subrows_mut(0, k + len));
             }
             (buf.as_ref().subrows(0, k).to_owned(), triangular)

@@ -2,10 +2,12 @@
 
 mod cholesky;
 mod qr;
+mod refine;
 mod svd;
 
 pub use cholesky::Cholesky;
 pub use qr::Qr;
+pub use refine::Refinement;
 pub use svd::Svd;
 
 use crate::prep::Scaling;

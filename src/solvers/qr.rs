@@ -1,12 +1,17 @@
 use faer::Mat;
+use ndarray::Array1;
 
 use crate::error::{Error, Result};
 use crate::linalg::{qr::tall_skinny_r, triangular};
+use crate::model::LinearModel;
 use crate::prep::Scaling;
 use crate::problem::Problem;
-use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
+use crate::solver::{
+    check_tolerance, finish_closed_form, intercept_for, Fit, IterationReport, Solver,
+};
 
 use super::dependent_columns;
+use super::refine::{refine, Refinement};
 
 /// Householder QR of the centered design: the default solver.
 ///
@@ -26,6 +31,20 @@ use super::dependent_columns;
 /// `rank_tolerance * max|x_j|` (a constant column beside the intercept).
 /// The default tolerance is `max(usable rows, columns) * f64::EPSILON`.
 ///
+/// **Refinement (opt-in):** with `refinement: Some(..)` (or [`Qr::refined`])
+/// the solution is refined iteratively with residuals computed in
+/// double-double arithmetic from the original data, the intercept
+/// included, until it is the least-squares solution of the data as given
+/// to nearly full double precision; see [`Refinement`] for the method and
+/// its cost. The report's `iterations` then holds the number of steps,
+/// whether the tolerance was met, the final loss `RSS / (2 sum w)`, the
+/// relative gradient `max_j |a_j^T W e| / (|W^(1/2) a_j| |W^(1/2) (y - ybar)|)`
+/// over the centered columns `a_j` and the constant (0 at the exact
+/// solution; evaluated at the start of the last step) as `gradient_norm`, and `sum w e^2 / (2 sum w)` of the residual estimate at
+/// the start of each step as `loss_history`. The residual sum of squares in the
+/// report is then computed from extended-precision residuals of the
+/// returned coefficients.
+///
 /// ```
 /// use leastline::{Problem, Qr, Solver};
 /// use ndarray::array;
@@ -41,6 +60,33 @@ use super::dependent_columns;
 pub struct Qr {
     /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
     pub rank_tolerance: Option<f64>,
+    /// Iterative refinement in extended precision; `None` (default) for
+    /// plain QR.
+    pub refinement: Option<Refinement>,
+}
+
+impl Qr {
+    /// QR with iterative refinement at its default settings: the most
+    /// accurate solver of the crate (see [`Refinement`]).
+    ///
+    /// ```
+    /// use leastline::{Problem, Qr, Solver};
+    /// use ndarray::array;
+    ///
+    /// // A quadratic calibration curve of a pressure gauge.
+    /// let x = array![[1.0, 1.0], [2.0, 4.0], [3.0, 9.0], [4.0, 16.0], [5.0, 25.0]];
+    /// let y = array![2.05, 2.98, 4.11, 5.02, 5.94];
+    /// let fit = Qr::refined().fit(&Problem::new(x.view(), y.view())?)?;
+    /// let steps = fit.report.iterations.as_ref().map_or(0, |it| it.iterations);
+    /// assert!(steps >= 1);
+    /// # Ok::<(), leastline::Error>(())
+    /// ```
+    pub fn refined() -> Self {
+        Qr {
+            refinement: Some(Refinement::default()),
+            ..Qr::default()
+        }
+    }
 }
 
 impl Solver for Qr {
@@ -51,7 +97,9 @@ impl Solver for Qr {
     /// # Errors
     /// [`Error::TooFewRows`]; [`Error::RankDeficient`] naming the dependent
     /// columns; [`Error::InvalidParameter`] for a bad tolerance;
-    /// [`Error::Overflow`] if a coefficient is not representable.
+    /// [`Error::Overflow`] if a coefficient is not representable. With
+    /// refinement, [`Error::InvalidParameter`] for a bad refinement
+    /// tolerance.
     fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
         problem.require_determined()?;
         let tolerance = match self.rank_tolerance {
@@ -84,14 +132,52 @@ impl Solver for Qr {
             .map(|(g, s)| g * (scaling.target_scale / s))
             .collect();
         let condition = triangular::condition_upper(r11.as_ref());
-        finish_closed_form(
+        let Some(settings) = &self.refinement else {
+            return finish_closed_form(
+                problem,
+                self.name(),
+                beta,
+                p,
+                condition,
+                scaling.target_scale,
+                0.0,
+            );
+        };
+        let start = intercept_for(problem, &beta);
+        let refined = refine(problem, &scaling, &r11, condition, settings, start, beta)?;
+        let mut fit = finish_closed_form(
             problem,
             self.name(),
-            beta,
+            refined.beta.clone(),
             p,
             condition,
             scaling.target_scale,
             0.0,
-        )
+        )?;
+        if !refined.intercept.is_finite() {
+            return Err(Error::Overflow { what: "intercept" });
+        }
+        let residuals =
+            crate::linalg::extended::residuals(problem, refined.intercept, &refined.beta);
+        let rss = crate::linalg::extended::weighted_sum_of_squares(problem, &residuals);
+        // Outside the range of the error-free products (|values| near
+        // 1e300) the extended sum may overflow: keep the plain one then.
+        let rss = if rss.is_finite() {
+            rss
+        } else {
+            fit.report.residual_sum_of_squares
+        };
+        fit.model = LinearModel::new(Array1::from(refined.beta), refined.intercept);
+        fit.report.residual_sum_of_squares = rss;
+        fit.report.iterations = Some(IterationReport {
+            iterations: refined.steps,
+            converged: refined.converged,
+            stopped_by_observer: false,
+            final_loss: rss / (2.0 * problem.total_weight()),
+            gradient_norm: refined.gradient,
+            step: 1.0,
+            loss_history: refined.losses,
+        });
+        Ok(fit)
     }
 }

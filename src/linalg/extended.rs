@@ -1,0 +1,362 @@
+//! Extended-precision residual passes for iterative refinement.
+//!
+//! Double-double arithmetic built on error-free transformations: the sum
+//! `a + b` and the product `a * b` of two `f64` are each represented exactly
+//! as an unevaluated pair `hi + lo` ([`two_sum`], [`two_product`]). An
+//! [`Accumulator`] keeps a running sum and its accumulated rounding errors
+//! (the compensated dot product of Ogita, Rump and Oishi), so a dot product
+//! comes out as accurate as if it had been computed in twice the working
+//! precision and rounded once at the end.
+//!
+//! The passes read the caller's **original** data (no centering, no
+//! scaling), so the residual `y_i - b0 - x_i . b` they produce is that of
+//! the problem as given, with the intercept explicit. Rows are processed in
+//! fixed chunks in parallel and partial sums are combined in chunk order, so
+//! results do not depend on the thread count.
+
+use ndarray::Axis;
+use rayon::prelude::*;
+
+use crate::problem::{Problem, STATS_CHUNK};
+
+/// `a + b = s + e` exactly, with `s = fl(a + b)` (Knuth's branch-free form).
+#[inline]
+pub(crate) fn two_sum(a: f64, b: f64) -> (f64, f64) {
+    let s = a + b;
+    let bb = s - a;
+    let e = (a - (s - bb)) + (b - bb);
+    (s, e)
+}
+
+/// Splits `a` into two halves of 26 significant bits each (Veltkamp).
+#[cfg(not(target_feature = "fma"))]
+#[inline]
+fn split(a: f64) -> (f64, f64) {
+    const FACTOR: f64 = 134_217_729.0; // 2^27 + 1
+    let c = FACTOR * a;
+    let hi = c - (c - a);
+    (hi, a - hi)
+}
+
+/// `a * b = p + e` exactly, with `p = fl(a * b)` (Dekker), as long as no
+/// intermediate overflows (|a|, |b| below about 2^995) or underflows.
+#[cfg(not(target_feature = "fma"))]
+#[inline]
+pub(crate) fn two_product(a: f64, b: f64) -> (f64, f64) {
+    let p = a * b;
+    let (ah, al) = split(a);
+    let (bh, bl) = split(b);
+    let e = ((ah * bh - p) + ah * bl + al * bh) + al * bl;
+    (p, e)
+}
+
+/// `a * b = p + e` exactly, with `p = fl(a * b)` (one fused multiply-add).
+#[cfg(target_feature = "fma")]
+#[inline]
+pub(crate) fn two_product(a: f64, b: f64) -> (f64, f64) {
+    let p = a * b;
+    (p, a.mul_add(b, -p))
+}
+
+/// A compensated running sum: `hi` is the ordinary floating-point sum and
+/// `lo` collects the exact rounding error of every addition.
+#[derive(Debug, Clone, Copy, Default)]
+pub(crate) struct Accumulator {
+    hi: f64,
+    lo: f64,
+}
+
+impl Accumulator {
+    /// Adds `v`.
+    #[inline]
+    pub(crate) fn add(&mut self, v: f64) {
+        let (s, e) = two_sum(self.hi, v);
+        self.hi = s;
+        self.lo += e;
+    }
+
+    /// Adds the exact product `a * b`.
+    #[inline]
+    pub(crate) fn add_product(&mut self, a: f64, b: f64) {
+        let (p, e) = two_product(a, b);
+        self.add(p);
+        self.lo += e;
+    }
+
+    /// Adds `w * a * b` (the product `a * b` exactly, then scaled by `w`).
+    #[inline]
+    pub(crate) fn add_weighted_product(&mut self, w: f64, a: f64, b: f64) {
+        if w == 1.0 {
+            self.add_product(a, b);
+            return;
+        }
+        let (p, e) = two_product(a, b);
+        let (q, f) = two_product(w, p);
+        self.add(q);
+        self.lo += f + w * e;
+    }
+
+    /// Adds another accumulator.
+    #[inline]
+    pub(crate) fn merge(&mut self, other: Accumulator) {
+        self.add(other.hi);
+        self.lo += other.lo;
+    }
+
+    /// The sum, rounded once to `f64`.
+    #[inline]
+    pub(crate) fn value(self) -> f64 {
+        self.hi + self.lo
+    }
+}
+
+/// `y_i - b0 - x_i . beta - e_i` in extended precision, rounded once.
+#[inline]
+fn row_residual(row: ndarray::ArrayView1<'_, f64>, y: f64, b0: f64, beta: &[f64], e: f64) -> f64 {
+    let mut acc = Accumulator::default();
+    acc.add(y);
+    acc.add(-b0);
+    for (&v, &b) in row.iter().zip(beta) {
+        acc.add_product(-v, b);
+    }
+    acc.add(-e);
+    acc.value()
+}
+
+/// Residuals `y_i - b0 - x_i . beta` of the original problem, each computed
+/// in extended precision and rounded once (every row, weighted or not).
+pub(crate) fn residuals(problem: &Problem<'_>, b0: f64, beta: &[f64]) -> Vec<f64> {
+    let x = problem.design();
+    let y = problem.target();
+    let mut out = vec![0.0; problem.rows()];
+    out.par_chunks_mut(STATS_CHUNK)
+        .enumerate()
+        .for_each(|(c, chunk)| {
+            let r0 = c * STATS_CHUNK;
+            for (k, o) in chunk.iter_mut().enumerate() {
+                let i = r0 + k;
+                *o = row_residual(x.index_axis(Axis(0), i), y[i], b0, beta, 0.0);
+            }
+        });
+    out
+}
+
+/// Weighted sum of squares `sum_i w_i r_i^2` (caller's weights), compensated.
+pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
+    let parts: Vec<Accumulator> = r
+        .par_chunks(STATS_CHUNK)
+        .enumerate()
+        .map(|(c, chunk)| {
+            let r0 = c * STATS_CHUNK;
+            let mut acc = Accumulator::default();
+            for (k, &v) in chunk.iter().enumerate() {
+                acc.add_weighted_product(problem.scaled_weight(r0 + k), v, v);
+            }
+            acc
+        })
+        .collect();
+    let mut total = Accumulator::default();
+    for p in parts {
+        total.merge(p);
+    }
+    total.value() * problem.stats.weight_scale
+}
+
+/// `sum_i w_i (y_i - ybar)^2` with the scaled weights (`ybar` the
+/// centering mean, 0 without an intercept), compensated.
+pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>) -> f64 {
+    let y = problem.target();
+    let ym = problem.stats.target_mean;
+    let n = problem.rows();
+    let parts: Vec<Accumulator> = (0..n.div_ceil(STATS_CHUNK))
+        .into_par_iter()
+        .map(|c| {
+            let mut acc = Accumulator::default();
+            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
+                let d = y[i] - ym;
+                acc.add_weighted_product(problem.scaled_weight(i), d, d);
+            }
+            acc
+        })
+        .collect();
+    let mut total = Accumulator::default();
+    for p in parts {
+        total.merge(p);
+    }
+    total.value()
+}
+
+/// What one refinement step needs from a pass over the original data, for
+/// the augmented system `e + A theta = y`, `A^T W e = 0` with
+/// `A = [1, X]` (the column of ones only with an intercept).
+#[derive(Debug, Clone)]
+pub(crate) struct Defects {
+    /// `f_i = y_i - b0 - x_i . beta - e_i` (extended precision, rounded).
+    pub f: Vec<f64>,
+    /// `sum_i w_i f_i` (scaled weights).
+    pub weighted_f: f64,
+    /// `-sum_i w_i e_i` (scaled weights): the intercept's row of `-A^T W e`.
+    pub g0: f64,
+    /// `-sum_i w_i x_ij e_i` (scaled weights), extended precision.
+    pub g: Vec<f64>,
+    /// `sum_i w_i (x_ij - m_j) f_i` (working precision; `m` the centering means).
+    pub centered_xf: Vec<f64>,
+    /// `sum_i w_i (x_ij - m_j)`: zero up to the rounding of the means.
+    pub centered_x: Vec<f64>,
+}
+
+impl Defects {
+    /// Whether every number came out finite.
+    pub(crate) fn is_finite(&self) -> bool {
+        self.weighted_f.is_finite()
+            && self.g0.is_finite()
+            && self.f.iter().all(|v| v.is_finite())
+            && self.g.iter().all(|v| v.is_finite())
+            && self.centered_xf.iter().all(|v| v.is_finite())
+    }
+}
+
+struct DefectPart {
+    weighted_f: Accumulator,
+    g0: Accumulator,
+    g: Vec<Accumulator>,
+    centered_xf: Vec<f64>,
+    centered_x: Vec<f64>,
+}
+
+/// One pass over the original data computing the [`Defects`] of the current
+/// solution `(b0, beta)` and residual estimate `e`.
+pub(crate) fn defects(problem: &Problem<'_>, b0: f64, beta: &[f64], e: &[f64]) -> Defects {
+    let x = problem.design();
+    let y = problem.target();
+    let p = problem.cols();
+    let means = &problem.stats.means;
+    let mut f = vec![0.0; problem.rows()];
+    let parts: Vec<DefectPart> = f
+        .par_chunks_mut(STATS_CHUNK)
+        .enumerate()
+        .map(|(c, chunk)| {
+            let r0 = c * STATS_CHUNK;
+            let mut part = DefectPart {
+                weighted_f: Accumulator::default(),
+                g0: Accumulator::default(),
+                g: vec![Accumulator::default(); p],
+                centered_xf: vec![0.0; p],
+                centered_x: vec![0.0; p],
+            };
+            for (k, out) in chunk.iter_mut().enumerate() {
+                let i = r0 + k;
+                let row = x.index_axis(Axis(0), i);
+                let fi = row_residual(row, y[i], b0, beta, e[i]);
+                *out = fi;
+                let w = problem.scaled_weight(i);
+                if w == 0.0 {
+                    continue;
+                }
+                part.weighted_f.add(w * fi);
+                part.g0.add_product(-w, e[i]);
+                for (j, &v) in row.iter().enumerate() {
+                    part.g[j].add_weighted_product(w, -v, e[i]);
+                    let d = v - means[j];
+                    part.centered_xf[j] += w * d * fi;
+                    part.centered_x[j] += w * d;
+                }
+            }
+            part
+        })
+        .collect();
+    let mut weighted_f = Accumulator::default();
+    let mut g0 = Accumulator::default();
+    let mut g = vec![Accumulator::default(); p];
+    let mut centered_xf = vec![0.0; p];
+    let mut centered_x = vec![0.0; p];
+    for part in parts {
+        weighted_f.merge(part.weighted_f);
+        g0.merge(part.g0);
+        for j in 0..p {
+            g[j].merge(part.g[j]);
+            centered_xf[j] += part.centered_xf[j];
+            centered_x[j] += part.centered_x[j];
+        }
+    }
+    Defects {
+        f,
+        weighted_f: weighted_f.value(),
+        g0: g0.value(),
+        g: g.into_iter().map(Accumulator::value).collect(),
+        centered_xf,
+        centered_x,
+    }
+}
+
+/// Applies a correction to the residual estimate:
+/// `e_i += (f_i - c) - (x_i - m) . d_beta` (working precision).
+pub(crate) fn update_residuals(
+    problem: &Problem<'_>,
+    e: &mut [f64],
+    f: &[f64],
+    c: f64,
+    d_beta: &[f64],
+) {
+    let x = problem.design();
+    let means = &problem.stats.means;
+    e.par_chunks_mut(STATS_CHUNK)
+        .enumerate()
+        .for_each(|(ci, chunk)| {
+            let r0 = ci * STATS_CHUNK;
+            for (k, ei) in chunk.iter_mut().enumerate() {
+                let i = r0 + k;
+                let row = x.index_axis(Axis(0), i);
+                let mut fit = 0.0;
+                for ((&v, &m), &d) in row.iter().zip(means).zip(d_beta) {
+                    fit += (v - m) * d;
+                }
+                *ei += (f[i] - c) - fit;
+            }
+        });
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn two_sum_is_exact() {
+        // Identity: with a = 1 and b = 2^-60, the sum rounds to 1 and the
+        // error term holds b exactly.
+        let b = (-60.0f64).exp2();
+        assert_eq!(two_sum(1.0, b), (1.0, b));
+        assert_eq!(two_sum(b, 1.0), (1.0, b));
+    }
+
+    #[test]
+    fn two_product_is_exact() {
+        // (1 + 2^-30)^2 = 1 + 2^-29 + 2^-60: the last term is below half an
+        // ulp of the rounded product and must appear as the error.
+        let a = 1.0 + (-30.0f64).exp2();
+        let (p, e) = two_product(a, a);
+        assert_eq!(p, 1.0 + (-29.0f64).exp2());
+        assert_eq!(e, (-60.0f64).exp2());
+    }
+
+    #[test]
+    fn accumulator_recovers_cancelled_digits() {
+        // 1e16 + 1 - 1e16 is 1 exactly; plain f64 summation gives 0 (or 2).
+        let mut acc = Accumulator::default();
+        for v in [1e16, 1.0, -1e16] {
+            acc.add(v);
+        }
+        assert_eq!(acc.value(), 1.0);
+        // A dot product with massive cancellation: (1 + 2^-30)^2 - (1 + 2^-29) = 2^-60.
+        let a = 1.0 + (-30.0f64).exp2();
+        let mut acc = Accumulator::default();
+        acc.add_product(a, a);
+        acc.add(-(1.0 + (-29.0f64).exp2()));
+        assert_eq!(acc.value(), (-60.0f64).exp2());
+        // Weighted: 3 * (a * a) - 3 * (1 + 2^-29) = 3 * 2^-60.
+        let mut acc = Accumulator::default();
+        acc.add_weighted_product(3.0, a, a);
+        acc.add_weighted_product(3.0, -1.0, 1.0 + (-29.0f64).exp2());
+        assert_eq!(acc.value(), 3.0 * (-60.0f64).exp2());
+    }
+}

@@ -1,0 +1,244 @@
+//! Iterative refinement of a least-squares solution with residuals in
+//! extended precision (opt-in on the QR path).
+
+use faer::Mat;
+
+use crate::error::{Error, Result};
+use crate::linalg::{extended, qr::tall_skinny_r_with, triangular};
+use crate::prep::Scaling;
+use crate::problem::{pow2_scale, Problem};
+
+/// Settings of iterative refinement, the opt-in path of [`crate::Qr`] to a
+/// solution correct to nearly full double precision.
+///
+/// Each step computes, in double-double arithmetic from the caller's
+/// original data (no centering, intercept explicit), how far the current
+/// coefficients and residuals are from satisfying the least-squares
+/// conditions `e = y - b0 - X b` and `[1 X]^T W e = 0`, and solves for a
+/// correction with the triangle `R` of the QR factorisation (Björck's
+/// refinement of the augmented system). The coefficients themselves stay
+/// `f64`; the extended precision is spent where digits are lost, in the
+/// residuals.
+///
+/// The correction is solved by the semi-normal equations `R^T R d = ...`
+/// (one extra pass over the data per step) when the condition estimate
+/// `c` of `R` has `c^2 * eps <= 1e-3`, and otherwise by applying `Q^T`
+/// through a repeated QR of the design with the correction as last column
+/// (a full QR pass per step; `Q` is never stored). Either way the extra
+/// memory is two vectors of `n` entries, never a copy of the design.
+///
+/// Refinement stops when the largest relative change of a coefficient (the
+/// intercept included) is at most `tolerance`, when a step stops shrinking
+/// the change at least by half, or after `max_steps` steps; a step that
+/// would grow it is discarded. The fit report's
+/// [`IterationReport`](crate::IterationReport) says how it went.
+///
+/// It cannot recover digits that the `f64` inputs no longer hold: it
+/// converges to the exact least-squares solution *of the data as given*.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Refinement {
+    /// Most refinement steps (default 10).
+    pub max_steps: usize,
+    /// Stop when no coefficient changes by more than this fraction of
+    /// itself (default `4 * f64::EPSILON`, a few units in the last place).
+    pub tolerance: f64,
+}
+
+impl Default for Refinement {
+    fn default() -> Self {
+        Refinement {
+            max_steps: 10,
+            tolerance: 4.0 * f64::EPSILON,
+        }
+    }
+}
+
+/// The refined solution and how the refinement went.
+pub(crate) struct Refined {
+    pub intercept: f64,
+    pub beta: Vec<f64>,
+    pub steps: usize,
+    pub converged: bool,
+    /// Largest `|a_j^T W e| / (|W^(1/2) a_j| |W^(1/2) (y - ybar)|)` over
+    /// the centered columns `a_j` and the constant, at the start of the
+    /// last step.
+    pub gradient: f64,
+    /// `sum w e^2 / (2 sum w)` (caller's weights) of the residual estimate
+    /// at the start of each step.
+    pub losses: Vec<f64>,
+}
+
+/// Largest `|d_j| / |t_j|` over the parameters (both 0: skipped).
+fn relative_change(theta: &[f64], delta: &[f64]) -> f64 {
+    theta
+        .iter()
+        .zip(delta)
+        .map(|(&t, &d)| {
+            let den = t.abs().max((t + d).abs());
+            if d == 0.0 {
+                0.0
+            } else if den == 0.0 {
+                f64::INFINITY
+            } else {
+                d.abs() / den
+            }
+        })
+        .fold(0.0, f64::max)
+}
+
+/// Refines `(intercept, beta)` for `problem`, given the triangle `r11` of
+/// its centered, weighted, scaled design and the condition estimate of
+/// `r11`.
+pub(crate) fn refine(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    r11: &Mat<f64>,
+    condition: f64,
+    settings: &Refinement,
+    mut intercept: f64,
+    mut beta: Vec<f64>,
+) -> Result<Refined> {
+    if !settings.tolerance.is_finite() || settings.tolerance < 0.0 {
+        return Err(Error::InvalidParameter {
+            name: "refinement.tolerance",
+            value: settings.tolerance,
+            reason: "must be finite and >= 0",
+        });
+    }
+    let p = problem.cols();
+    let with_intercept = problem.has_intercept();
+    let means = &problem.stats.means;
+    let total_weight = problem.stats.total_weight;
+    let semi_normal = condition * condition * f64::EPSILON <= 1e-3;
+    // Column norms of the scaled design (the column norms of R).
+    let col_norm: Vec<f64> = (0..p)
+        .map(|j| {
+            (0..=j)
+                .map(|i| r11[(i, j)] * r11[(i, j)])
+                .sum::<f64>()
+                .sqrt()
+        })
+        .collect();
+
+    let y_norm = extended::centered_target_sum_of_squares(problem).sqrt();
+    let mut e = extended::residuals(problem, intercept, &beta);
+    let mut prev = f64::INFINITY;
+    let mut out = Refined {
+        intercept,
+        beta: Vec::new(),
+        steps: 0,
+        converged: false,
+        gradient: f64::NAN,
+        losses: Vec::new(),
+    };
+    for step in 1..=settings.max_steps {
+        let d = extended::defects(problem, intercept, &beta, &e);
+        if !d.is_finite() {
+            break;
+        }
+        // Split off the intercept: with s_i = sqrt(w_i), the correction of
+        // the fitted constant is c = (s^T W^(1/2) f - g0) / W, and the slopes
+        // solve the augmented system of the centered design.
+        let c = if with_intercept {
+            (d.weighted_f - d.g0) / total_weight
+        } else {
+            0.0
+        };
+        let g0 = if with_intercept { d.g0 } else { 0.0 };
+        let gc: Vec<f64> = (0..p).map(|j| d.g[j] - means[j] * g0).collect();
+        // Gradient measure for the report: |a_j^T W e| / (|a_j| |y - ybar|)
+        // over the (weighted, centered) columns and the constant, in [0, 1].
+        let e_ss = extended::weighted_sum_of_squares(problem, &e);
+        out.losses.push(e_ss / (2.0 * problem.total_weight()));
+        out.gradient = if y_norm == 0.0 {
+            0.0
+        } else {
+            let mut worst = if with_intercept {
+                g0.abs() / (total_weight.sqrt() * y_norm)
+            } else {
+                0.0
+            };
+            for j in 0..p {
+                let den = scaling.scale[j] * col_norm[j] * y_norm;
+                if den > 0.0 {
+                    worst = worst.max(gc[j].abs() / den);
+                }
+            }
+            worst
+        };
+        let fc_max =
+            d.f.iter()
+                .enumerate()
+                .map(|(i, &fi)| problem.scaled_weight(i).sqrt() * (fi - c).abs())
+                .fold(0.0, f64::max);
+        // A power of two that brings the correction's data near 1.
+        let t = if fc_max > 0.0 {
+            pow2_scale(fc_max)
+        } else {
+            pow2_scale(
+                (0..p)
+                    .map(|j| (gc[j] / scaling.scale[j]).abs())
+                    .fold(0.0, f64::max),
+            )
+        };
+        let gcs: Vec<f64> = (0..p).map(|j| gc[j] / (scaling.scale[j] * t)).collect();
+        let mut dgamma: Vec<f64>;
+        if semi_normal {
+            // R^T R d = Z^T h - g  with h = W^(1/2) (f - c) / t.
+            dgamma = (0..p)
+                .map(|j| (d.centered_xf[j] - c * d.centered_x[j]) / (scaling.scale[j] * t) - gcs[j])
+                .collect();
+            triangular::solve_lower(r11.as_ref().transpose(), &mut dgamma);
+            triangular::solve_upper(r11.as_ref(), &mut dgamma);
+        } else {
+            // d = R^-1 (Q^T h - R^-T g), Q^T h from a QR with h as last column.
+            let fc: Vec<f64> = d.f.iter().map(|&fi| fi - c).collect();
+            let rf = tall_skinny_r_with(problem, scaling, &fc, 1.0 / t);
+            let r = rf.as_ref().submatrix(0, 0, p, p);
+            let mut u = gcs;
+            triangular::solve_lower(r.transpose(), &mut u);
+            dgamma = (0..p).map(|j| rf[(j, p)] - u[j]).collect();
+            triangular::solve_upper(r, &mut dgamma);
+        }
+        let d_beta: Vec<f64> = (0..p).map(|j| dgamma[j] * (t / scaling.scale[j])).collect();
+        let d_intercept = if with_intercept {
+            c - means.iter().zip(&d_beta).map(|(m, b)| m * b).sum::<f64>()
+        } else {
+            0.0
+        };
+        if d_beta.iter().any(|v| !v.is_finite()) || !d_intercept.is_finite() {
+            break;
+        }
+        let mut theta = beta.clone();
+        let mut delta = d_beta.clone();
+        if with_intercept {
+            theta.push(intercept);
+            delta.push(d_intercept);
+        }
+        let change = relative_change(&theta, &delta);
+        out.steps = step;
+        if change > prev {
+            // Growing corrections: the refinement does not converge here;
+            // keep the previous iterate.
+            break;
+        }
+        for (b, db) in beta.iter_mut().zip(&d_beta) {
+            *b += db;
+        }
+        intercept += d_intercept;
+        if change <= settings.tolerance {
+            out.converged = true;
+            break;
+        }
+        if change > 0.5 * prev {
+            // Stagnation at rounding level.
+            out.converged = change <= 64.0 * f64::EPSILON;
+            break;
+        }
+        extended::update_residuals(problem, &mut e, &d.f, c, &d_beta);
+        prev = change;
+    }
+    out.intercept = intercept;
+    out.beta = beta;
+    Ok(out)
+}
