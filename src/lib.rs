@@ -53,13 +53,18 @@
 pub mod error;
 mod linalg;
 pub mod model;
+mod penalty;
 mod prep;
 pub mod problem;
+pub mod ridge;
 pub mod solver;
 mod solvers;
 
 pub use error::{Error, Input, Result};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
+pub use ridge::{
+    Criterion, CrossValidation, KFold, PenaltyCurve, Ridge, RidgeMethod, RidgePath,
+};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Svd};

@@ -13,7 +13,10 @@
 //! - [`residuals`]: fused residual passes over the design.
 
 pub(crate) mod cholesky;
+pub(crate) mod dense;
+pub(crate) mod dual;
 pub(crate) mod gram;
+pub(crate) mod leverage;
 pub(crate) mod qr;
 pub(crate) mod residuals;
 pub(crate) mod svd;

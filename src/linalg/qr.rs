@@ -19,7 +19,7 @@ use crate::problem::Problem;
 
 /// Factors `a` in place (Householder, sequential) and leaves only the upper
 /// triangle `R` in its top `k` rows (everything else zeroed).
-fn qr_keep_r(mut a: MatMut<'_, f64>) {
+pub(crate) fn qr_keep_r(mut a: MatMut<'_, f64>) {
     let (m, k) = (a.nrows(), a.ncols());
     if k == 0 || m == 0 {
         return;
