@@ -185,7 +185,9 @@ pub enum Error {
         reason: &'static str,
     },
     /// A penalty in a grid of penalties is negative or not finite.
-    #[error("penalty {value} at grid position {index} is invalid: penalties must be finite and >= 0")]
+    #[error(
+        "penalty {value} at grid position {index} is invalid: penalties must be finite and >= 0"
+    )]
     InvalidGridPenalty {
         /// Position in the grid (0-based).
         index: usize,

@@ -130,7 +130,13 @@ impl PenaltyMap {
                     };
                 }
                 let factors = (0..p)
-                    .map(|j| if live(j) { scaling.scale[j] / smax } else { 0.0 })
+                    .map(|j| {
+                        if live(j) {
+                            scaling.scale[j] / smax
+                        } else {
+                            0.0
+                        }
+                    })
                     .collect();
                 let inv = 1.0 / smax;
                 let unit = (inv * inv / problem.stats.weight_scale).clamp(1e-280, 1e280);
@@ -212,7 +218,13 @@ mod tests {
             scales[j % scales.len()] * (rng.random::<f64>() - 0.5) + 40.0 * scales[j % 5]
         });
         let y = Array1::from_shape_fn(n, |i| 1e4 + x[(i, 0)] * 0.01 + rng.random::<f64>() * 50.0);
-        let w = Array1::from_shape_fn(n, |i| if i % 7 == 3 { 0.0 } else { 0.5 + 3.0 * rng.random::<f64>() });
+        let w = Array1::from_shape_fn(n, |i| {
+            if i % 7 == 3 {
+                0.0
+            } else {
+                0.5 + 3.0 * rng.random::<f64>()
+            }
+        });
         (x, y, w)
     }
 
@@ -302,7 +314,10 @@ mod tests {
         for bad in [-1.0, f64::NAN, f64::INFINITY, f64::NEG_INFINITY] {
             assert!(matches!(
                 check_penalty("penalty", bad),
-                Err(Error::InvalidParameter { name: "penalty", .. })
+                Err(Error::InvalidParameter {
+                    name: "penalty",
+                    ..
+                })
             ));
         }
         assert_eq!(check_penalty("penalty", 0.0), Ok(0.0));

@@ -7,6 +7,8 @@
 //! of the augmented system (tests/ridge_support), or the NIST StRD
 //! certified least-squares values for `lambda = 0`.
 
+#![allow(clippy::needless_range_loop)] // index-heavy reference formulas
+
 mod common;
 mod ridge_support;
 
@@ -71,8 +73,14 @@ fn assert_normal_equations(case: &Case, lambda: f64, standardize: bool, b0: f64,
     if case.intercept {
         let s: f64 = (0..n).map(|i| case.weight(i) * r[i]).sum();
         let mag: f64 = (0..n).map(|i| (case.weight(i) * r[i]).abs()).sum::<f64>()
-            + (0..n).map(|i| case.weight(i) * case.y[i].abs()).sum::<f64>() * 1e-6;
-        assert!(s.abs() <= 1e-9 * mag, "intercept equation: {s:e} vs {mag:e}");
+            + (0..n)
+                .map(|i| case.weight(i) * case.y[i].abs())
+                .sum::<f64>()
+                * 1e-6;
+        assert!(
+            s.abs() <= 1e-9 * mag,
+            "intercept equation: {s:e} vs {mag:e}"
+        );
     }
     for j in 0..p {
         let mut g = -lambda * pw[j] * b[j];
@@ -274,7 +282,9 @@ fn auto_uses_qr_when_cholesky_loses_digits() {
     let lambda = 1e-6;
     let auto = Ridge::new(lambda).fit(&problem).unwrap();
     assert_eq!(auto.report.solver, "ridge-qr");
-    let svd = ridge(lambda, false, RidgeMethod::Svd).fit(&problem).unwrap();
+    let svd = ridge(lambda, false, RidgeMethod::Svd)
+        .fit(&problem)
+        .unwrap();
     let d_ = rel_diff(
         auto.model.coefficients().as_slice().unwrap(),
         svd.model.coefficients().as_slice().unwrap(),
@@ -294,9 +304,17 @@ fn auto_uses_qr_when_cholesky_loses_digits() {
 /// coefficients divided back.
 #[test]
 fn standardize_equals_ridge_on_standardised_columns() {
-    for (seed, weights) in [(11, Weights::None), (12, Weights::SomeZero), (13, Weights::Positive)] {
+    for (seed, weights) in [
+        (11, Weights::None),
+        (12, Weights::SomeZero),
+        (13, Weights::Positive),
+    ] {
         let case = make_case(seed, 25, 6, weights, true);
-        let sd: Vec<f64> = case.penalty_weights(true).iter().map(|v| v.sqrt()).collect();
+        let sd: Vec<f64> = case
+            .penalty_weights(true)
+            .iter()
+            .map(|v| v.sqrt())
+            .collect();
         let scaled = Case {
             x: Array2::from_shape_fn(case.x.dim(), |(i, j)| case.x[(i, j)] / sd[j]),
             ..case.clone()
@@ -304,7 +322,13 @@ fn standardize_equals_ridge_on_standardised_columns() {
         for method in METHODS {
             let a = ridge(3.0, true, method).fit(&case.problem()).unwrap();
             let b = ridge(3.0, false, method).fit(&scaled.problem()).unwrap();
-            let back: Vec<f64> = b.model.coefficients().iter().zip(&sd).map(|(v, s)| v / s).collect();
+            let back: Vec<f64> = b
+                .model
+                .coefficients()
+                .iter()
+                .zip(&sd)
+                .map(|(v, s)| v / s)
+                .collect();
             let d = rel_diff(a.model.coefficients().as_slice().unwrap(), &back);
             assert!(d < 1e-9, "{method:?}: {d:e}");
         }
@@ -342,15 +366,26 @@ fn invalid_penalties_are_typed_errors() {
         for method in METHODS {
             let err = ridge(bad, false, method).fit(&problem).unwrap_err();
             assert!(
-                matches!(err, Error::InvalidParameter { name: "penalty", .. }),
+                matches!(
+                    err,
+                    Error::InvalidParameter {
+                        name: "penalty",
+                        ..
+                    }
+                ),
                 "{method:?} {bad}: {err:?}"
             );
         }
         let path = RidgePath::new(&problem, false).unwrap();
         assert!(matches!(path.fit(bad), Err(Error::InvalidParameter { .. })));
-        assert!(matches!(path.effective_df(bad), Err(Error::InvalidParameter { .. })));
+        assert!(matches!(
+            path.effective_df(bad),
+            Err(Error::InvalidParameter { .. })
+        ));
     }
-    let err = ridge(0.0, false, RidgeMethod::Dual).fit(&problem).unwrap_err();
+    let err = ridge(0.0, false, RidgeMethod::Dual)
+        .fit(&problem)
+        .unwrap_err();
     assert!(matches!(err, Error::InvalidParameter { name: "penalty", value, .. } if value == 0.0));
 }
 
@@ -361,10 +396,19 @@ fn wide_design_needs_a_penalty() {
     let case = make_case(3, 6, 15, Weights::None, true);
     let problem = case.problem();
     for method in METHODS {
-        assert!(ridge(0.5, false, method).fit(&problem).is_ok(), "{method:?}");
+        assert!(
+            ridge(0.5, false, method).fit(&problem).is_ok(),
+            "{method:?}"
+        );
     }
     let err = Ridge::new(0.0).fit(&problem).unwrap_err();
-    assert!(matches!(err, Error::TooFewRows { usable_rows: 6, parameters: 16 }));
+    assert!(matches!(
+        err,
+        Error::TooFewRows {
+            usable_rows: 6,
+            parameters: 16
+        }
+    ));
     let auto = Ridge::new(0.5).fit(&problem).unwrap();
     assert_eq!(auto.report.solver, "ridge-dual");
 }

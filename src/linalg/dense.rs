@@ -44,12 +44,8 @@ pub(crate) fn symmetric_eigen(a: MatRef<'_, f64>) -> Result<SymmetricEigen> {
     let n = a.nrows();
     let mut s = faer::diag::Diag::<f64>::zeros(n);
     let mut u = Mat::<f64>::zeros(n, n);
-    let req = self_adjoint_evd_scratch::<f64>(
-        n,
-        ComputeEigenvectors::Yes,
-        Par::Seq,
-        Default::default(),
-    );
+    let req =
+        self_adjoint_evd_scratch::<f64>(n, ComputeEigenvectors::Yes, Par::Seq, Default::default());
     let mut mem = MemBuffer::new(req);
     self_adjoint_evd(
         a,

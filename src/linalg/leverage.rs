@@ -36,7 +36,11 @@ pub(crate) struct LooSpectrum<'m> {
 /// residual of the full fit and `H_ii` the leverage including the
 /// intercept; `+inf` where some `1 - H_ii` is at rounding level (a row the
 /// fit interpolates, whose leave-one-out error is not determined).
-pub(crate) fn loo_sums(problem: &Problem<'_>, scaling: &Scaling, spec: &LooSpectrum<'_>) -> Vec<f64> {
+pub(crate) fn loo_sums(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    spec: &LooSpectrum<'_>,
+) -> Vec<f64> {
     let p = problem.cols();
     let r = spec.v.ncols();
     let m = spec.leverage.ncols();

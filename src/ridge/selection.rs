@@ -180,8 +180,9 @@ impl RidgePath<'_, '_> {
             Side::Columns { v, .. } => {
                 let r = sp.kept;
                 let lev = Mat::<f64>::from_fn(r, m, |k, c| 1.0 / (sp.sq[k] + mus[c]));
-                let fitted =
-                    Mat::<f64>::from_fn(r, m, |k, c| sp.sq[k].sqrt() * sp.d[k] / (sp.sq[k] + mus[c]));
+                let fitted = Mat::<f64>::from_fn(r, m, |k, c| {
+                    sp.sq[k].sqrt() * sp.d[k] / (sp.sq[k] + mus[c])
+                });
                 let vk = v.as_ref().subcols(0, r);
                 leverage::loo_sums(
                     problem,

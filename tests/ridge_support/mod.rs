@@ -5,7 +5,7 @@
 //! system `[sqrt(w) 1, sqrt(w) X; 0, sqrt(lambda P)] (b0, b) = [sqrt(w) y; 0]`,
 //! written from the definition of the objective: it shares no code with
 //! the crate (no centering, no scaling, no factorisation of ours).
-#![allow(dead_code)]
+#![allow(dead_code, clippy::needless_range_loop)]
 
 use leastline::Problem;
 use nalgebra::{DMatrix, DVector};
@@ -56,7 +56,9 @@ pub fn make_case(seed: u64, n: usize, p: usize, weights: Weights, intercept: boo
     });
     let w = match weights {
         Weights::None => None,
-        Weights::Positive => Some(Array1::from_shape_fn(n, |_| 0.2 + 2.0 * rng.random::<f64>())),
+        Weights::Positive => Some(Array1::from_shape_fn(n, |_| {
+            0.2 + 2.0 * rng.random::<f64>()
+        })),
         Weights::SomeZero => Some(Array1::from_shape_fn(n, |i| {
             if i % 5 == 2 {
                 0.0
