@@ -40,6 +40,22 @@ fn weights_strategy() -> impl Strategy<Value = Weights> {
     ]
 }
 
+/// The case with one more column: a copy of column 0 disturbed at the
+/// 1e-7 level, so that the Gram matrix keeps too few digits and the path
+/// must take the QR route.
+fn with_near_copy(case: &Case) -> Case {
+    let (n, p) = case.x.dim();
+    let spread = case.x.column(0).iter().fold(0.0f64, |a, v| a.max(v.abs()));
+    let x = ndarray::Array2::from_shape_fn((n, p + 1), |(i, j)| {
+        if j < p {
+            case.x[(i, j)]
+        } else {
+            case.x[(i, 0)] + 1e-7 * spread * (((i * 7919) % 13) as f64 / 13.0 - 0.5)
+        }
+    });
+    Case { x, ..case.clone() }
+}
+
 /// Leave-one-out error by brute force: refit without each row of non-zero
 /// weight and predict it.
 fn brute_force_loo(case: &Case, lambda: f64) -> f64 {
@@ -101,13 +117,27 @@ proptest! {
         n in 5usize..13,
         p in 1usize..6,
         wide in any::<bool>(),
+        collinear in any::<bool>(),
         weights in weights_strategy(),
         intercept in any::<bool>(),
     ) {
         let p = if wide { n + p } else { p };
-        let case = make_case(seed, n, p, weights, intercept);
+        let mut case = make_case(seed, n, p, weights, intercept);
+        let collinear = collinear && !wide && case.usable_rows() > p;
+        if collinear {
+            case = with_near_copy(&case);
+        }
         let problem = case.problem();
         let path = RidgePath::new(&problem, false).unwrap();
+        // Wide designs use the row side; a near-copy column forces the QR
+        // triangle; otherwise the Gram triangle is used unless this small
+        // random design happens to be ill-conditioned.
+        let route = path.decomposition();
+        match (wide, collinear) {
+            (true, _) => prop_assert_eq!(route, "row-gram"),
+            (false, true) => prop_assert_eq!(route, "householder-qr"),
+            (false, false) => prop_assert!(route == "gram-cholesky" || route == "householder-qr"),
+        }
         let top = penalty_scale(&case, false);
         let grid: Vec<f64> = [-3.0, -1.5, 0.0, 1.0].iter().map(|e| top * 10f64.powf(*e)).collect();
         let curve = path.curve(&grid, Criterion::LeaveOneOut).unwrap();
@@ -399,5 +429,41 @@ fn kfold_errors_are_typed() {
             assert!(matches!(*error, Error::TooFewRows { .. }));
         }
         other => panic!("unexpected {other:?}"),
+    }
+}
+
+/// The two triangles (Gram Cholesky and block QR) give the same path: on a
+/// well-conditioned design the Gram route is taken; the same design with a
+/// harmless near-copy column forces the QR route, and dropping the copy's
+/// influence is not needed: we compare the QR route with the Cholesky and
+/// augmented-QR ridge fits, which share no code with the path.
+#[test]
+fn both_triangle_routes_match_direct_fits() {
+    for (seed, weights) in [(31, Weights::None), (32, Weights::SomeZero)] {
+        let base = make_case(seed, 40, 5, weights, true);
+        for case in [base.clone(), with_near_copy(&base)] {
+            let problem = case.problem();
+            let path = RidgePath::new(&problem, true).unwrap();
+            for lambda in [1e-2, 1.0, 1e2] {
+                let a = path.fit(lambda).unwrap();
+                let b = Ridge {
+                    method: RidgeMethod::AugmentedQr,
+                    standardize: true,
+                    ..Ridge::new(lambda)
+                }
+                .fit(&problem)
+                .unwrap();
+                let d = ridge_support::rel_diff(
+                    a.model.coefficients().as_slice().unwrap(),
+                    b.model.coefficients().as_slice().unwrap(),
+                );
+                assert!(d < 1e-8, "{}: {d:e}", path.decomposition());
+                let (ra, rb) = (
+                    a.report.residual_sum_of_squares,
+                    b.report.residual_sum_of_squares,
+                );
+                assert!((ra - rb).abs() <= 1e-9 * rb, "{ra} vs {rb}");
+            }
+        }
     }
 }

@@ -40,7 +40,7 @@
 //! |---|---|---|---|
 //! | `Cholesky` | `Z^T Z + lambda I` | `n p^2 + p^3/3` | tall designs, fastest |
 //! | `AugmentedQr` | triangle of `[Z; sqrt(lambda) I]` | `2 n p^2 + O(p^3)` | ill-conditioned designs with small `lambda` |
-//! | `Svd` | SVD of the design ([`RidgePath`]) | as QR (rows >= columns) or as `Dual` | many penalties from one factorisation |
+//! | `Svd` | SVD of the design's triangle ([`RidgePath`]) | as `Cholesky` or QR (rows >= columns), as `Dual` (wide) | many penalties from one factorisation |
 //! | `Dual` | `Z Z^T + lambda I` (rows) | `n^2 p + n^3/3` | wide designs (`p > n`) |
 //!
 //! `Z` is the weighted centered design. None of them copies the design or,

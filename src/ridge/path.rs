@@ -3,7 +3,10 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{dense, dual, qr::tall_skinny_r, svd::thin_svd};
+use crate::linalg::{
+    cholesky as chol, dense, dual, gram::centered_gram, qr::tall_skinny_r, residuals,
+    svd::thin_svd, triangular,
+};
 use crate::penalty::{check_penalty, PenaltyMap};
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -17,12 +20,19 @@ use crate::solver::{finish_with_rss, Fit};
 /// residual sum of squares, effective degrees of freedom and generalized
 /// cross-validation score, without touching the data again.
 ///
-/// - **Rows >= columns** (counting rows with non-zero weight): the block QR
-///   of [`crate::Qr`] reduces the design to its `p x p` triangle `R` in one
-///   pass (no copy of the design, `Z^T Z` never formed), and the SVD
+/// - **Rows >= columns** (counting rows with non-zero weight): the design
+///   is reduced to a `p x p` triangle `R` with `R^T R = Ẑ^T Ẑ`, and the SVD
 ///   `R = U S V^T` gives the singular values and right singular vectors of
-///   the design. Cost: about `2 n p^2 + O(p^3)`. Singular values below
+///   the design. The triangle is the Cholesky factor of the Gram matrix
+///   (one symmetric pass, as [`super::RidgeMethod::Cholesky`], plus one
+///   residual pass) when its condition estimate `c` keeps at least 8
+///   digits (`eps * c^2 <= 1e-8`, the rule of [`super::RidgeMethod::Auto`]);
+///   otherwise it comes from the block Householder QR of [`crate::Qr`]
+///   (about twice the flops, `Z^T Z` never formed), which keeps the
+///   design's own condition. Neither copies the design. Cost: about
+///   `n p^2` (or `2 n p^2`) `+ O(p^3)`. Singular values below
 ///   `max(n_u, p) * eps` times the largest count as zero.
+///   [`RidgePath::decomposition`] tells which was used.
 /// - **Rows < columns**: the row Gram `Ẑ Ẑ^T` (`n_u x n_u`, by column
 ///   blocks) and its eigendecomposition give the singular values and left
 ///   singular vectors. Cost: about `n_u^2 p + O(n_u^3)`. Each penalty's
@@ -63,7 +73,11 @@ pub struct RidgePath<'p, 'a> {
 pub(super) enum Side {
     /// SVD of the triangle: right singular vectors `V` (`p x p`) and the
     /// squared residual of the target outside the columns' span.
-    Columns { v: Mat<f64>, rss0: f64 },
+    Columns {
+        v: Mat<f64>,
+        rss0: f64,
+        source: &'static str,
+    },
     /// Eigendecomposition of the row Gram: left singular vectors `U`
     /// (`n_u x q`, the intercept's direction removed) over `rows`.
     Rows { u: Mat<f64>, rows: Vec<usize> },
@@ -112,21 +126,16 @@ impl<'p, 'a> RidgePath<'p, 'a> {
 
     fn from_columns(problem: &'p Problem<'a>, scaling: Scaling, standardize: bool) -> Result<Self> {
         let p = problem.cols();
-        let r = tall_skinny_r(problem, &scaling, true);
-        let norms: Option<Vec<f64>> = standardize.then(|| {
-            (0..p)
-                .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum())
-                .collect()
-        });
-        let map = PenaltyMap::new(problem, &scaling, norms.as_deref());
-        let rss0 = r[(p, p)] * r[(p, p)];
+        let tri = match gram_triangle(problem, &scaling, standardize) {
+            Some(t) => t,
+            None => qr_triangle(problem, &scaling, standardize),
+        };
         let (sq, d, v) = if p == 0 {
             (Vec::new(), Vec::new(), Mat::<f64>::zeros(0, 0))
         } else {
-            let rh = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] * map.factors[j]);
-            let dec = thin_svd(rh.as_ref())?;
+            let dec = thin_svd(tri.rh.as_ref())?;
             let d = (0..p)
-                .map(|k| (0..p).map(|i| dec.u[(i, k)] * r[(i, p)]).sum())
+                .map(|k| (0..p).map(|i| dec.u[(i, k)] * tri.r[i]).sum())
                 .collect();
             (dec.s.iter().map(|s| s * s).collect(), d, dec.v)
         };
@@ -140,13 +149,17 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         Ok(RidgePath {
             problem,
             scaling,
-            map,
+            map: tri.map,
             spectrum: Spectrum {
                 sq,
                 kept,
                 d,
                 smallest_sq,
-                side: Side::Columns { v, rss0 },
+                side: Side::Columns {
+                    v,
+                    rss0: tri.rss0,
+                    source: tri.source,
+                },
             },
         })
     }
@@ -222,6 +235,17 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// Numerical rank of the design (singular values treated as non-zero).
     pub fn rank(&self) -> usize {
         self.spectrum.kept
+    }
+
+    /// How the design was decomposed: `"gram-cholesky"` (triangle from the
+    /// Cholesky factor of the Gram matrix), `"householder-qr"` (triangle
+    /// from the block QR) or `"row-gram"` (eigendecomposition of the row
+    /// Gram, more columns than rows).
+    pub fn decomposition(&self) -> &'static str {
+        match &self.spectrum.side {
+            Side::Columns { source, .. } => source,
+            Side::Rows { .. } => "row-gram",
+        }
     }
 
     /// Coefficients `gamma^` in the uniform-penalty coordinates.
@@ -359,4 +383,87 @@ impl<'p, 'a> RidgePath<'p, 'a> {
             .map(|i| (a + (b - a) * i as f64 / (count - 1) as f64).exp())
             .collect())
     }
+}
+
+/// A `p x p` triangle `R^` with `R^T R^ = Ẑ^T Ẑ` (uniform-penalty
+/// coordinates), the target's coordinates `r` (`R^^T r = Ẑ^T t`) and the
+/// squared residual `rss0` of the target outside the columns' span.
+struct Triangle {
+    rh: Mat<f64>,
+    r: Vec<f64>,
+    rss0: f64,
+    map: PenaltyMap,
+    source: &'static str,
+}
+
+/// The triangle from the block Householder QR of `[Z t]` (no `Z^T Z`).
+fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Triangle {
+    let p = problem.cols();
+    let r = tall_skinny_r(problem, scaling, true);
+    let norms: Option<Vec<f64>> = standardize.then(|| {
+        (0..p)
+            .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum())
+            .collect()
+    });
+    let map = PenaltyMap::new(problem, scaling, norms.as_deref());
+    let rh = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] * map.factors[j]);
+    Triangle {
+        rh,
+        r: (0..p).map(|i| r[(i, p)]).collect(),
+        rss0: r[(p, p)] * r[(p, p)],
+        map,
+        source: "householder-qr",
+    }
+}
+
+/// The triangle from the Cholesky factor of the Gram matrix, when that
+/// keeps at least [`super::AUTO_MIN_DIGITS`] digits (`None` otherwise, or
+/// when the factorisation fails). The squared residual outside the span is
+/// measured by a pass over the data at the least-squares solution (not by
+/// `t^T t - |r|^2`, which would cancel).
+fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Option<Triangle> {
+    let p = problem.cols();
+    let g = centered_gram(problem, scaling, true);
+    let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
+    let map = PenaltyMap::new(problem, scaling, norms.as_deref());
+    let f = &map.factors;
+    let live: Vec<usize> = (0..p).filter(|&j| map.is_live(j)).collect();
+    let q = live.len();
+    let gl = Mat::<f64>::from_fn(q, q, |a, b| {
+        (f[live[a]] * g[(live[a], live[b])]) * f[live[b]]
+    });
+    let l = match chol::factor(gl.as_ref()) {
+        chol::Factor::Ok(l) => l,
+        chol::Factor::Failed { .. } => return None,
+    };
+    let condition = triangular::condition_lower(l.as_ref());
+    if super::digits(condition * condition) < super::AUTO_MIN_DIGITS {
+        return None;
+    }
+    let mut rl: Vec<f64> = live.iter().map(|&j| f[j] * g[(j, p)]).collect();
+    triangular::solve_lower(l.as_ref(), &mut rl);
+    let mut rh = Mat::<f64>::zeros(p, p);
+    for a in 0..q {
+        for b in a..q {
+            rh[(a, live[b])] = l[(b, a)];
+        }
+    }
+    let mut gamma_live = rl.clone();
+    triangular::solve_upper(l.as_ref().transpose(), &mut gamma_live);
+    let mut gamma = vec![0.0; p];
+    for (a, &j) in live.iter().enumerate() {
+        gamma[j] = gamma_live[a];
+    }
+    let beta = map.to_caller(scaling, &gamma);
+    let sy = scaling.target_scale;
+    let rss0 = residuals::centered_rss(problem, &beta, sy) / (sy * sy * problem.stats.weight_scale);
+    let mut r = vec![0.0; p];
+    r[..q].copy_from_slice(&rl);
+    Some(Triangle {
+        rh,
+        r,
+        rss0,
+        map,
+        source: "gram-cholesky",
+    })
 }
