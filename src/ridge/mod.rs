@@ -130,7 +130,9 @@ pub enum RidgeMethod {
     AugmentedQr,
     /// Singular value decomposition of the design (see [`RidgePath`]).
     Svd,
-    /// The `n x n` system of the rows, for more columns than rows.
+    /// The `n x n` system of the rows (rows of non-zero weight only), for
+    /// more columns than rows. Memory: up to four `n_u x n_u` accumulators
+    /// (one when `8 n_u^2` exceeds 256 MiB) and one block of columns.
     Dual,
 }
 
