@@ -63,6 +63,6 @@ mod solvers;
 pub use error::{Error, Input, Result};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
-pub use ridge::{Criterion, CrossValidation, KFold, PenaltyCurve, Ridge, RidgeMethod, RidgePath};
+pub use ridge::{CrossValidation, KFold, PenaltyCurve, Ridge, RidgeMethod, RidgePath};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Svd};
