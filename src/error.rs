@@ -191,6 +191,40 @@ pub enum Error {
         /// Why inference is not available for this fit.
         refusal: crate::inference::InferenceRefusal,
     },
+    /// A penalty in a grid of penalties is negative or not finite.
+    #[error(
+        "penalty {value} at grid position {index} is invalid: penalties must be finite and >= 0"
+    )]
+    InvalidGridPenalty {
+        /// Position in the grid (0-based).
+        index: usize,
+        /// The offending value.
+        value: f64,
+    },
+    /// Cross-validation needs at least one row with non-zero weight per fold.
+    #[error("{usable_rows} rows with non-zero weight cannot fill {folds} folds")]
+    TooFewRowsForFolds {
+        /// Rows with non-zero weight.
+        usable_rows: usize,
+        /// Folds asked for.
+        folds: usize,
+    },
+    /// A fit inside cross-validation failed; `error` is the solver's error.
+    #[error("the fit that leaves out fold {fold} failed: {error}")]
+    FoldFit {
+        /// The held-out fold (0-based).
+        fold: usize,
+        /// What the solver reported.
+        error: Box<Error>,
+    },
+    /// No penalty of a grid has a finite value of the selection criterion.
+    #[error("none of the {penalties} penalties has a finite {criterion} score")]
+    NoFiniteScore {
+        /// Number of penalties scored.
+        penalties: usize,
+        /// The criterion ("leave-one-out" or "generalized cross-validation").
+        criterion: &'static str,
+    },
 }
 
 /// Shorthand for results of this crate.

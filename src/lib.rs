@@ -55,8 +55,10 @@ pub mod error;
 pub mod inference;
 mod linalg;
 pub mod model;
+mod penalty;
 mod prep;
 pub mod problem;
+pub mod ridge;
 pub mod solver;
 mod solvers;
 
@@ -64,6 +66,7 @@ pub use error::{Error, Input, Result};
 pub use inference::{CovarianceKind, Inference, InferenceOptions};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
+pub use ridge::{CrossValidation, KFold, PenaltyCurve, Ridge, RidgeMethod, RidgePath};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::Refinement;
 pub use solvers::{Cholesky, Qr, Svd};

@@ -139,6 +139,52 @@ pub(crate) fn finish_closed_form(
     })
 }
 
+/// As [`finish_closed_form`], for solvers that already know the weighted
+/// residual sum of squares (caller's units) from their factorisation, so
+/// that no pass over the design is needed (the ridge path scores many
+/// penalties from one decomposition).
+pub(crate) fn finish_with_rss(
+    problem: &Problem<'_>,
+    solver: &str,
+    beta: Vec<f64>,
+    rank: usize,
+    condition: f64,
+    rss: f64,
+    penalty: f64,
+) -> Result<Fit> {
+    if beta.iter().any(|b| !b.is_finite()) {
+        return Err(Error::Overflow {
+            what: "coefficient vector",
+        });
+    }
+    let intercept = intercept_for(problem, &beta);
+    if !intercept.is_finite() {
+        return Err(Error::Overflow { what: "intercept" });
+    }
+    if !rss.is_finite() {
+        return Err(Error::Overflow {
+            what: "residual sum of squares",
+        });
+    }
+    let residual_df = problem
+        .usable_rows()
+        .saturating_sub(rank + usize::from(problem.has_intercept()));
+    Ok(Fit {
+        model: LinearModel::new(ndarray::Array1::from(beta), intercept),
+        report: FitReport {
+            solver: solver.to_string(),
+            rank,
+            columns: problem.cols(),
+            condition,
+            residual_sum_of_squares: rss,
+            residual_df,
+            usable_rows: problem.usable_rows(),
+            penalty,
+            iterations: None,
+        },
+    })
+}
+
 /// The intercept `mean(y) - mean(x) . beta` (0 without an intercept).
 pub(crate) fn intercept_for(problem: &Problem<'_>, beta: &[f64]) -> f64 {
     if !problem.has_intercept() {

@@ -17,10 +17,13 @@
 //!   iterative refinement.
 
 pub(crate) mod cholesky;
+pub(crate) mod dense;
+pub(crate) mod dual;
 pub(crate) mod extended;
 pub(crate) mod gram;
 pub(crate) mod householder;
 pub(crate) mod leverage;
+pub(crate) mod loo;
 pub(crate) mod products;
 pub(crate) mod qr;
 pub(crate) mod residuals;

@@ -1,0 +1,214 @@
+//! Products for wide designs (more columns than rows), computed over blocks
+//! of columns so that no `p x p` matrix is ever formed: the row Gram
+//! `Ẑ Ẑ^T` of the usable rows, the product `Ẑ^T v`, and the squared column
+//! norms of the centered, weighted, scaled design.
+//!
+//! Here `Ẑ_ij = sqrt(w_i) (x_ij - m_j) / s_j * f_j`: the design of
+//! [`crate::prep::fill_block`] with every column multiplied by a caller
+//! factor `f_j` (the ridge solvers use it to make the penalty uniform).
+
+use faer::linalg::matmul::triangular::{matmul, BlockStructure};
+use faer::{Accum, Mat, Par};
+use rayon::prelude::*;
+
+use super::{as_faer, block_groups, GROUPS};
+use crate::prep::Scaling;
+use crate::problem::Problem;
+
+/// Bytes allowed for the per-group `n x n` accumulators of [`row_gram`].
+const GRAM_BUDGET: usize = 1 << 28;
+/// Most groups (accumulators) used by [`row_gram`].
+const MAX_GRAM_GROUPS: usize = 4;
+/// Columns per parallel chunk in [`transpose_times`].
+const COLUMN_CHUNK: usize = 256;
+
+/// The row Gram matrix of the usable rows and the matching target.
+pub(crate) struct RowGram {
+    /// Full symmetric `n_u x n_u` matrix `Ẑ Ẑ^T` over the rows in `rows`.
+    pub gram: Mat<f64>,
+    /// `t_i = sqrt(w_i) (y_i - ybar) / s_y` for the same rows.
+    pub target: Vec<f64>,
+}
+
+fn column_coefficients(scaling: &Scaling, factors: &[f64]) -> Vec<f64> {
+    scaling
+        .inv_scale
+        .iter()
+        .zip(factors)
+        .map(|(a, f)| a * f)
+        .collect()
+}
+
+/// Columns per block for a row Gram over `n` rows: about 8 MiB of block.
+fn column_block(n: usize) -> usize {
+    ((1usize << 20) / n.max(1)).clamp(64, 2048)
+}
+
+/// Computes `Ẑ Ẑ^T` over the rows listed in `rows` (row indices of the
+/// problem, normally those with non-zero weight).
+///
+/// Columns are taken in blocks of about 8 MiB; each of a fixed number of
+/// groups of consecutive blocks (at most 4, fewer when `n_u^2` is large,
+/// depending only on the shape) accumulates its lower triangle with a
+/// symmetric rank-k update, and the groups are summed in order, so the
+/// result does not depend on the thread count. Extra memory: one `n_u x n_u`
+/// matrix and one block per group; the design is never copied whole.
+pub(crate) fn row_gram(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    factors: &[f64],
+    rows: &[usize],
+) -> RowGram {
+    let x = as_faer(&problem.design());
+    let n = rows.len();
+    let p = problem.cols();
+    let coef = column_coefficients(scaling, factors);
+    let means = &problem.stats.means;
+    let sw: Vec<f64> = rows
+        .iter()
+        .map(|&i| problem.scaled_weight(i).sqrt())
+        .collect();
+    let cb = column_block(n);
+    let blocks: Vec<(usize, usize)> = (0..p.div_ceil(cb))
+        .map(|b| (b * cb, ((b + 1) * cb).min(p)))
+        .collect();
+    let per_acc = n.saturating_mul(n).saturating_mul(8).max(1);
+    let groups = (GRAM_BUDGET / per_acc)
+        .clamp(1, MAX_GRAM_GROUPS)
+        .min(blocks.len().max(1));
+    let per = blocks.len().div_ceil(groups).max(1);
+    let chunks: Vec<&[(usize, usize)]> = blocks.chunks(per).collect();
+    let partials: Vec<Mat<f64>> = chunks
+        .par_iter()
+        .map(|chunk| {
+            let mut acc = Mat::<f64>::zeros(n, n);
+            let mut bt = Mat::<f64>::zeros(cb, n);
+            for &(c0, c1) in chunk.iter() {
+                let width = c1 - c0;
+                for (li, &i) in rows.iter().enumerate() {
+                    let s = sw[li];
+                    for j in c0..c1 {
+                        bt[(j - c0, li)] = s * ((x[(i, j)] - means[j]) * coef[j]);
+                    }
+                }
+                let blk = bt.as_ref().subrows(0, width);
+                matmul(
+                    acc.as_mut(),
+                    BlockStructure::TriangularLower,
+                    Accum::Add,
+                    blk.transpose(),
+                    BlockStructure::Rectangular,
+                    blk,
+                    BlockStructure::Rectangular,
+                    1.0,
+                    Par::Seq,
+                );
+            }
+            acc
+        })
+        .collect();
+    let mut gram = Mat::<f64>::zeros(n, n);
+    for part in &partials {
+        for j in 0..n {
+            for i in j..n {
+                gram[(i, j)] += part[(i, j)];
+            }
+        }
+    }
+    for j in 0..n {
+        for i in (j + 1)..n {
+            gram[(j, i)] = gram[(i, j)];
+        }
+    }
+    let y = problem.target();
+    let ym = problem.stats.target_mean;
+    let inv_sy = 1.0 / scaling.target_scale;
+    let target = rows
+        .iter()
+        .zip(&sw)
+        .map(|(&i, s)| s * ((y[i] - ym) * inv_sy))
+        .collect();
+    RowGram { gram, target }
+}
+
+/// Computes `Ẑ^T v` (length `p`) for `v` indexed like `rows`.
+///
+/// Parallel over fixed chunks of columns; each column's sum runs over the
+/// rows in order, so the result does not depend on the thread count.
+pub(crate) fn transpose_times(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    factors: &[f64],
+    rows: &[usize],
+    v: &[f64],
+) -> Vec<f64> {
+    let x = as_faer(&problem.design());
+    let p = problem.cols();
+    let coef = column_coefficients(scaling, factors);
+    let means = &problem.stats.means;
+    let u: Vec<f64> = rows
+        .iter()
+        .zip(v)
+        .map(|(&i, vi)| problem.scaled_weight(i).sqrt() * vi)
+        .collect();
+    let chunks: Vec<usize> = (0..p.div_ceil(COLUMN_CHUNK)).collect();
+    let parts: Vec<Vec<f64>> = chunks
+        .par_iter()
+        .map(|&c| {
+            let c0 = c * COLUMN_CHUNK;
+            let c1 = (c0 + COLUMN_CHUNK).min(p);
+            let mut acc = vec![0.0; c1 - c0];
+            for (li, &i) in rows.iter().enumerate() {
+                let ui = u[li];
+                if ui == 0.0 {
+                    continue;
+                }
+                for (a, j) in acc.iter_mut().zip(c0..c1) {
+                    *a += (x[(i, j)] - means[j]) * ui;
+                }
+            }
+            for (a, j) in acc.iter_mut().zip(c0..c1) {
+                *a *= coef[j];
+            }
+            acc
+        })
+        .collect();
+    parts.into_iter().flatten().collect()
+}
+
+/// Squared norms `||Z_j||^2 = sum_i w_i ((x_ij - m_j) / s_j)^2` of the
+/// columns of the centered, weighted, scaled design (0 for columns treated
+/// as constant). One pass over the design, in parallel over a fixed
+/// partition of the rows; partial sums are combined in order.
+pub(crate) fn column_sq_norms(problem: &Problem<'_>, scaling: &Scaling) -> Vec<f64> {
+    let x = as_faer(&problem.design());
+    let p = problem.cols();
+    let means = &problem.stats.means;
+    let groups = block_groups(problem.rows(), 4096, GROUPS);
+    let partials: Vec<Vec<f64>> = groups
+        .par_iter()
+        .map(|group| {
+            let mut acc = vec![0.0; p];
+            for &(r0, r1) in group {
+                for i in r0..r1 {
+                    let w = problem.scaled_weight(i);
+                    if w == 0.0 {
+                        continue;
+                    }
+                    for (j, a) in acc.iter_mut().enumerate() {
+                        let d = (x[(i, j)] - means[j]) * scaling.inv_scale[j];
+                        *a += w * d * d;
+                    }
+                }
+            }
+            acc
+        })
+        .collect();
+    let mut out = vec![0.0; p];
+    for part in &partials {
+        for (o, v) in out.iter_mut().zip(part) {
+            *o += v;
+        }
+    }
+    out
+}

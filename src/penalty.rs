@@ -1,0 +1,325 @@
+//! How the caller's ridge penalty maps into the scaled coordinates that the
+//! solvers work in (see [`crate::prep::Scaling`]). Every solver that takes a
+//! penalty goes through this module, so the scaling is the same everywhere.
+//!
+//! The caller's objective (documented in [`crate::ridge`]) is
+//!
+//! ```text
+//! (1/2) sum_i w_i (y_i - b0 - x_i . b)^2 + (lambda/2) sum_j p_j b_j^2
+//! ```
+//!
+//! with `p_j = 1`, or `p_j = sd_j^2` (the weighted variance of column `j`
+//! about its centering mean) when the columns are standardised.
+//!
+//! The solvers use `Z_ij = sqrt(w_i / ws) (x_ij - m_j) / s_j` and
+//! `t_i = sqrt(w_i / ws) (y_i - ybar) / s_y` (`ws` the weight scale, `s_j`,
+//! `s_y` the power-of-two column and target scales) and coefficients
+//! `gamma` with `b_j = gamma_j s_y / s_j`. Then
+//! `sum_i w_i (y_i - ybar - (x_i - m) . b)^2 = ws s_y^2 |t - Z gamma|^2` and
+//! `b_j^2 = gamma_j^2 s_y^2 / s_j^2`, so the objective divided by
+//! `ws s_y^2` is
+//!
+//! ```text
+//! (1/2) |t - Z gamma|^2 + (1/2) sum_j lambda_j gamma_j^2,
+//! lambda_j = lambda p_j / (ws s_j^2).
+//! ```
+//!
+//! The target scale cancels. For standardised columns,
+//! `sd_j^2 = sum_i w_i (x_ij - m_j)^2 / sum_i w_i = s_j^2 |Z_j|^2 / W~`
+//! (`W~ = sum_i w_i / ws`), so `lambda_j = lambda |Z_j|^2 / W` with `W` the
+//! caller's total weight.
+//!
+//! [`PenaltyMap`] goes one step further for the closed-form solvers: with
+//! `Ẑ_j = f_j Z_j` and `gamma_j = f_j gamma^_j`, where `f_j^2 = u / c_j` and
+//! `lambda_j = lambda c_j`, the penalty becomes the same `mu = lambda u` on
+//! every coefficient, and `Ẑ` is (up to the constant `sqrt(u)`) the caller's
+//! weighted centered design (or its standardised form).
+
+use crate::error::{Error, Result};
+use crate::prep::Scaling;
+use crate::problem::Problem;
+
+/// Largest penalty used in scaled coordinates. A larger one (only reachable
+/// with columns of extreme scale) is clamped: the coefficient it multiplies
+/// is zero to working precision either way.
+pub(crate) const MAX_SCALED_PENALTY: f64 = 1e250;
+
+/// Checks a caller's penalty: finite and `>= 0`.
+///
+/// # Errors
+/// [`Error::InvalidParameter`] naming `name`.
+pub(crate) fn check_penalty(name: &'static str, value: f64) -> Result<f64> {
+    if !value.is_finite() || value < 0.0 {
+        return Err(Error::InvalidParameter {
+            name,
+            value,
+            reason: "must be finite and >= 0",
+        });
+    }
+    Ok(value)
+}
+
+/// The penalty `lambda_j` on each scaled coefficient `gamma_j` for the
+/// caller's `lambda`: `lambda / (ws s_j^2)`, or with `sq_norms` (the squared
+/// column norms `|Z_j|^2` of the scaled design, for standardised columns)
+/// `lambda |Z_j|^2 / W`. Columns treated as constant get 0 (their column of
+/// `Z` is zero). Values are clamped to [`MAX_SCALED_PENALTY`].
+///
+/// The closed-form ridge solvers use [`PenaltyMap`] instead; this form is
+/// for solvers that keep the coordinates of `Scaling` (gradient methods).
+#[allow(dead_code)]
+pub(crate) fn column_penalties(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    lambda: f64,
+    sq_norms: Option<&[f64]>,
+) -> Vec<f64> {
+    let ws = problem.stats.weight_scale;
+    let total = problem.total_weight();
+    (0..problem.cols())
+        .map(|j| {
+            if scaling.constant[j] {
+                return 0.0;
+            }
+            let v = match sq_norms {
+                None => {
+                    let inv = scaling.inv_scale[j];
+                    lambda * inv * inv / ws
+                }
+                Some(norms) => lambda * (norms[j] / total),
+            };
+            if v.is_nan() {
+                0.0
+            } else {
+                v.min(MAX_SCALED_PENALTY)
+            }
+        })
+        .collect()
+}
+
+/// Column factors that make the penalty uniform (see the module docs).
+#[derive(Debug, Clone)]
+pub(crate) struct PenaltyMap {
+    /// `f_j`, in `(0, 1]` for informative columns, 0 for columns treated as
+    /// constant (or of zero norm).
+    pub factors: Vec<f64>,
+    /// `u`: the penalty on every `gamma^_j` is `lambda * u`.
+    pub unit: f64,
+}
+
+impl PenaltyMap {
+    /// Plain penalty (`sq_norms = None`): `f_j = s_j / s_max`,
+    /// `u = 1 / (ws s_max^2)` (powers of two, so exact). Standardised
+    /// (`sq_norms = Some(|Z_j|^2)`): `f_j = sqrt(n_min / |Z_j|^2)`,
+    /// `u = n_min / W`, with `n_min` the smallest non-zero squared norm.
+    pub fn new(problem: &Problem<'_>, scaling: &Scaling, sq_norms: Option<&[f64]>) -> Self {
+        let p = problem.cols();
+        let live = |j: usize| -> bool {
+            !scaling.constant[j] && sq_norms.is_none_or(|n| n[j] > 0.0 && n[j].is_finite())
+        };
+        match sq_norms {
+            None => {
+                let smax = (0..p)
+                    .filter(|&j| live(j))
+                    .map(|j| scaling.scale[j])
+                    .fold(0.0_f64, f64::max);
+                if smax == 0.0 {
+                    return PenaltyMap {
+                        factors: vec![0.0; p],
+                        unit: 1.0,
+                    };
+                }
+                let factors = (0..p)
+                    .map(|j| {
+                        if live(j) {
+                            scaling.scale[j] / smax
+                        } else {
+                            0.0
+                        }
+                    })
+                    .collect();
+                let inv = 1.0 / smax;
+                let unit = (inv * inv / problem.stats.weight_scale).clamp(1e-280, 1e280);
+                PenaltyMap { factors, unit }
+            }
+            Some(norms) => {
+                let nmin = (0..p)
+                    .filter(|&j| live(j))
+                    .map(|j| norms[j])
+                    .fold(f64::INFINITY, f64::min);
+                if !nmin.is_finite() {
+                    return PenaltyMap {
+                        factors: vec![0.0; p],
+                        unit: 1.0,
+                    };
+                }
+                let factors = (0..p)
+                    .map(|j| {
+                        if live(j) {
+                            (nmin / norms[j]).sqrt()
+                        } else {
+                            0.0
+                        }
+                    })
+                    .collect();
+                let unit = (nmin / problem.total_weight()).clamp(1e-280, 1e280);
+                PenaltyMap { factors, unit }
+            }
+        }
+    }
+
+    /// The uniform penalty `mu = lambda u` in the coordinates `gamma^`.
+    pub fn scaled(&self, lambda: f64) -> f64 {
+        (lambda * self.unit).min(MAX_SCALED_PENALTY)
+    }
+
+    /// Whether column `j` takes part (non-zero factor).
+    pub fn is_live(&self, j: usize) -> bool {
+        self.factors[j] != 0.0
+    }
+
+    /// Number of columns that take part.
+    pub fn live(&self) -> usize {
+        self.factors.iter().filter(|f| **f != 0.0).count()
+    }
+
+    /// Coefficients in the caller's units: `b_j = f_j gamma^_j s_y / s_j`.
+    pub fn to_caller(&self, scaling: &Scaling, gamma_hat: &[f64]) -> Vec<f64> {
+        gamma_hat
+            .iter()
+            .enumerate()
+            .map(|(j, g)| {
+                if self.factors[j] == 0.0 {
+                    0.0
+                } else {
+                    (self.factors[j] * g) * (scaling.target_scale / scaling.scale[j])
+                }
+            })
+            .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    //! The reference here is an identity: the scaled solution, mapped back,
+    //! must satisfy the caller-unit penalised normal equations
+    //! `(Xc^T W Xc + lambda P) b = Xc^T W yc`, solved independently with
+    //! nalgebra from the raw arrays.
+    use super::*;
+    use crate::prep::fill_block;
+    use nalgebra::{DMatrix, DVector};
+    use ndarray::{Array1, Array2};
+    use rand::{RngExt, SeedableRng};
+
+    fn random_problem(seed: u64, n: usize, p: usize) -> (Array2<f64>, Array1<f64>, Array1<f64>) {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        let scales = [1e3, 1e-2, 7.0, 1e5, 0.3];
+        let x = Array2::from_shape_fn((n, p), |(_, j)| {
+            scales[j % scales.len()] * (rng.random::<f64>() - 0.5) + 40.0 * scales[j % 5]
+        });
+        let y = Array1::from_shape_fn(n, |i| 1e4 + x[(i, 0)] * 0.01 + rng.random::<f64>() * 50.0);
+        let w = Array1::from_shape_fn(n, |i| {
+            if i % 7 == 3 {
+                0.0
+            } else {
+                0.5 + 3.0 * rng.random::<f64>()
+            }
+        });
+        (x, y, w)
+    }
+
+    /// Solves the caller-unit system with nalgebra and returns (b, sd^2).
+    fn caller_solution(
+        x: &Array2<f64>,
+        y: &Array1<f64>,
+        w: &Array1<f64>,
+        lambda: f64,
+        standardize: bool,
+    ) -> DVector<f64> {
+        let (n, p) = x.dim();
+        let wsum: f64 = w.sum();
+        let m: Vec<f64> = (0..p)
+            .map(|j| (0..n).map(|i| w[i] * x[(i, j)]).sum::<f64>() / wsum)
+            .collect();
+        let ym = (0..n).map(|i| w[i] * y[i]).sum::<f64>() / wsum;
+        let xc = DMatrix::from_fn(n, p, |i, j| x[(i, j)] - m[j]);
+        let yc = DVector::from_fn(n, |i, _| y[i] - ym);
+        let wd = DMatrix::from_diagonal(&DVector::from_fn(n, |i, _| w[i]));
+        let mut a = xc.transpose() * &wd * &xc;
+        for j in 0..p {
+            let pj = if standardize { a[(j, j)] / wsum } else { 1.0 };
+            a[(j, j)] += lambda * pj;
+        }
+        let rhs = xc.transpose() * &wd * &yc;
+        a.lu().solve(&rhs).expect("caller system is regular")
+    }
+
+    #[test]
+    fn scaled_penalties_reproduce_caller_normal_equations() {
+        for (seed, standardize) in [(1, false), (2, true), (3, false), (4, true)] {
+            let (n, p) = (40, 5);
+            let (x, y, w) = random_problem(seed, n, p);
+            let problem = Problem::builder(x.view(), y.view())
+                .weights(w.view())
+                .build()
+                .expect("valid problem");
+            let scaling = Scaling::new(&problem, problem.default_rank_tolerance());
+            let mut z = faer::Mat::<f64>::zeros(n, p + 1);
+            fill_block(&problem, &scaling, 0, n, true, z.as_mut());
+            let zm = DMatrix::from_fn(n, p, |i, j| z[(i, j)]);
+            let t = DVector::from_fn(n, |i, _| z[(i, p)]);
+            let norms: Vec<f64> = (0..p).map(|j| zm.column(j).norm_squared()).collect();
+            let sq = standardize.then_some(norms.as_slice());
+            for lambda in [1e-3, 2.5, 1e4] {
+                let expected = caller_solution(&x, &y, &w, lambda, standardize);
+                let scale_b = expected.amax();
+                // Per-column penalties on gamma.
+                let pen = column_penalties(&problem, &scaling, lambda, sq);
+                let mut a = zm.transpose() * &zm;
+                for j in 0..p {
+                    a[(j, j)] += pen[j];
+                }
+                let gamma = a.lu().solve(&(zm.transpose() * &t)).expect("regular");
+                for j in 0..p {
+                    let b = gamma[j] * scaling.target_scale / scaling.scale[j];
+                    assert!(
+                        (b - expected[j]).abs() <= 1e-9 * scale_b.max(expected[j].abs()),
+                        "seed {seed} lambda {lambda} column {j}: {b} vs {}",
+                        expected[j]
+                    );
+                }
+                // Uniform penalty through the column factors.
+                let map = PenaltyMap::new(&problem, &scaling, sq);
+                let zh = DMatrix::from_fn(n, p, |i, j| zm[(i, j)] * map.factors[j]);
+                let mut ah = zh.transpose() * &zh;
+                for j in 0..p {
+                    ah[(j, j)] += map.scaled(lambda);
+                }
+                let gh = ah.lu().solve(&(zh.transpose() * &t)).expect("regular");
+                let b = map.to_caller(&scaling, gh.as_slice());
+                for j in 0..p {
+                    assert!(
+                        (b[j] - expected[j]).abs() <= 1e-9 * scale_b.max(expected[j].abs()),
+                        "map: seed {seed} lambda {lambda} column {j}: {} vs {}",
+                        b[j],
+                        expected[j]
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn negative_and_non_finite_penalties_are_refused() {
+        for bad in [-1.0, f64::NAN, f64::INFINITY, f64::NEG_INFINITY] {
+            assert!(matches!(
+                check_penalty("penalty", bad),
+                Err(Error::InvalidParameter {
+                    name: "penalty",
+                    ..
+                })
+            ));
+        }
+        assert_eq!(check_penalty("penalty", 0.0), Ok(0.0));
+    }
+}

@@ -1,0 +1,52 @@
+//! Ridge by Cholesky factorisation of the penalised Gram matrix.
+
+use faer::Mat;
+
+use crate::error::{Error, Result};
+use crate::linalg::{cholesky as chol, gram::centered_gram, triangular};
+use crate::penalty::PenaltyMap;
+use crate::prep::Scaling;
+use crate::problem::Problem;
+
+use super::Solution;
+
+/// Forms `G = Z^T Z` (with `Z^T t`) in one pass, makes the penalty uniform
+/// with the column factors `f` of [`PenaltyMap`], and factors
+/// `diag(f) G diag(f) + mu I = L L^T`.
+pub(super) fn solve(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    standardize: bool,
+    lambda: f64,
+) -> Result<Solution> {
+    let p = problem.cols();
+    let g = centered_gram(problem, scaling, true);
+    let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
+    let map = PenaltyMap::new(problem, scaling, norms.as_deref());
+    let mu = map.scaled(lambda);
+    let f = &map.factors;
+    let mut a = Mat::<f64>::from_fn(p, p, |i, j| (f[i] * g[(i, j)]) * f[j]);
+    for j in 0..p {
+        // A column that takes no part has a zero row and column: a unit
+        // pivot keeps the system regular and its coefficient at zero.
+        a[(j, j)] += if map.is_live(j) { mu } else { 1.0 };
+    }
+    let l = match chol::factor(a.as_ref()) {
+        chol::Factor::Ok(l) => l,
+        chol::Factor::Failed { pivot } => {
+            return Err(Error::NotPositiveDefinite {
+                pivot,
+                value: a[(pivot, pivot)],
+            })
+        }
+    };
+    let mut gamma: Vec<f64> = (0..p).map(|j| f[j] * g[(j, p)]).collect();
+    triangular::solve_lower(l.as_ref(), &mut gamma);
+    triangular::solve_upper(l.as_ref().transpose(), &mut gamma);
+    Ok(Solution {
+        beta: map.to_caller(scaling, &gamma),
+        condition: triangular::condition_lower(l.as_ref()),
+        live: map.live(),
+        method: "cholesky",
+    })
+}
