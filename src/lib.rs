@@ -51,6 +51,7 @@
 #![doc(test(attr(deny(warnings))))]
 
 pub mod error;
+pub mod gradient;
 mod linalg;
 pub mod model;
 mod prep;
@@ -59,6 +60,7 @@ pub mod solver;
 mod solvers;
 
 pub use error::{Error, Input, Result};
+pub use gradient::{Accelerated, Control, GradientDescent, Progress, Stochastic};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
 pub use solver::{Fit, FitReport, IterationReport, Solver};

@@ -10,9 +10,11 @@
 //! - [`qr::tall_skinny_r`]: the `R` factor of the same matrix by Householder
 //!   QR of row blocks combined pairwise (TSQR), never forming `Q`;
 //! - [`cholesky`], [`svd`], [`triangular`]: small dense factorisations;
-//! - [`residuals`]: fused residual passes over the design.
+//! - [`residuals`]: fused residual passes over the design;
+//! - [`gradient`]: fused residual-and-gradient passes for the gradient solvers.
 
 pub(crate) mod cholesky;
+pub(crate) mod gradient;
 pub(crate) mod gram;
 pub(crate) mod qr;
 pub(crate) mod residuals;
