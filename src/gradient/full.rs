@@ -17,8 +17,8 @@ use crate::solver::{Fit, Solver};
 /// estimate above `L / 2` keeps the step under the stability limit `2 / L`;
 /// with such a step the loss never increases from one iteration to the next.
 ///
-/// Iterations needed grow with the condition number `kappa` of `X^T W X`
-/// (after column scaling): about `kappa * ln(1 / tolerance)`. For
+/// Iterations needed grow with the condition number `kappa` of the
+/// standardised `X^T W X`: about `kappa * ln(1 / tolerance)`. For
 /// ill-conditioned designs use [`crate::Accelerated`] (about
 /// `sqrt(kappa)`), or a closed-form solver when `p` is small.
 ///

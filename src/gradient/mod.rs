@@ -15,22 +15,32 @@
 //!
 //! ## Internal coordinates
 //!
-//! The iteration runs on the centered design with columns divided by exact
-//! powers of two near their spread (the same scaling the closed-form solvers
-//! use), the target divided likewise, and the objective divided by the total
-//! weight. The minimiser is unchanged; coefficients come back in the caller's
-//! units. Two consequences for settings:
+//! The iteration runs on the centered, weighted design with every column
+//! standardised: divided by its weighted norm (together with its share of
+//! the penalty), so that the Hessian of the internal objective has a unit
+//! diagonal. The target is divided by a power of two near its spread and
+//! the objective by the total weight. This leaves the minimiser unchanged
+//! (coefficients come back in the caller's units) but makes the iteration
+//! count independent of the columns' units and offsets, of outliers that
+//! stretch a column's range, and of how unevenly a caller-unit penalty
+//! treats columns of different scales. Setting up these coordinates costs
+//! one read of the design. Consequences for settings:
 //!
 //! - a fixed `step` is a step in these standardised coordinates, where the
-//!   curvature `L` (the largest eigenvalue of the scaled `X^T W X / sum(w)`
-//!   plus the penalty's share) is of order one whatever the units of the data;
-//!   the default step is `1 / L` with `L` estimated by power iteration;
+//!   curvature `L` (the largest eigenvalue of the standardised
+//!   `X^T W X / sum(w)` plus the penalty) lies between 1 and the number of
+//!   columns; the default step is `1 / L` with `L` estimated by power
+//!   iteration;
 //! - the tolerance is a **relative gradient norm**: the Euclidean norm of the
-//!   gradient of the internal objective divided by its norm at all-zero slopes
-//!   (the intercept-only model), `||grad F(b)|| / ||grad F(0)||` in the
-//!   internal coordinates. It does not depend on the starting point, so a warm
-//!   start near the optimum converges at once. When the gradient at zero is
-//!   exactly zero (a constant target) the test is on the absolute norm.
+//!   gradient in the standardised coordinates divided by its norm at
+//!   all-zero slopes (the intercept-only model). It does not depend on the
+//!   starting point, so a warm start near the optimum converges at once.
+//!   When the gradient at zero is exactly zero (a constant target) the test
+//!   is on the absolute norm.
+//!
+//! Solutions are determined to about `tolerance * kappa` relative accuracy,
+//! `kappa` the condition number of the standardised `X^T W X` (plus
+//! penalty).
 //!
 //! ## Losses reported
 //!

@@ -191,14 +191,24 @@ pub(crate) fn column_norms(problem: &Problem<'_>, inv_scale: &[f64]) -> Vec<f64>
                     if w == 0.0 {
                         continue;
                     }
-                    for (((a, &v), &m), &k) in acc
-                        .iter_mut()
-                        .zip(x.row(i).iter())
-                        .zip(means)
-                        .zip(inv_scale)
-                    {
-                        let z = (v - m) * k;
-                        *a += w * z * z;
+                    let row = x.index_axis(Axis(0), i);
+                    match row.to_slice() {
+                        Some(row) => {
+                            for (((a, &v), &m), &k) in
+                                acc.iter_mut().zip(row).zip(means).zip(inv_scale)
+                            {
+                                let z = (v - m) * k;
+                                *a += w * z * z;
+                            }
+                        }
+                        None => {
+                            for (((a, &v), &m), &k) in
+                                acc.iter_mut().zip(row.iter()).zip(means).zip(inv_scale)
+                            {
+                                let z = (v - m) * k;
+                                *a += w * z * z;
+                            }
+                        }
                     }
                 }
             }
@@ -228,61 +238,234 @@ fn combine(partials: Vec<Pass>, p: usize) -> Pass {
     total
 }
 
-/// `sum_j (x_j - m_j) c_j` with eight partial sums in a fixed order.
-#[inline(always)]
-fn centered_dot(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
-    let mut s = [0.0_f64; 8];
-    let xc = x.chunks_exact(8);
-    let mc = m.chunks_exact(8);
-    let cc = c.chunks_exact(8);
-    let mut tail = 0.0;
-    for ((&xv, &mv), &cv) in xc
-        .remainder()
-        .iter()
-        .zip(mc.remainder())
-        .zip(cc.remainder())
-    {
-        tail += (xv - mv) * cv;
-    }
-    for ((xa, ma), ca) in xc.zip(mc).zip(cc) {
-        for l in 0..8 {
-            s[l] += (xa[l] - ma[l]) * ca[l];
+/// The vector kernels, in two versions that give identical bits: a portable
+/// one (eight partial sums in an array, which the compiler may vectorise
+/// but never reorders) and an AVX2 one (the same eight partial sums in two
+/// 256-bit registers, same operations, same order, no fused multiply-add).
+mod simd {
+    /// Portable versions.
+    pub(super) mod portable {
+        #[inline(always)]
+        fn combine(s: &[f64; 8], tail: f64) -> f64 {
+            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
         }
-    }
-    (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
-}
 
-/// `sum_i (x_i - m) u_i` with eight partial sums in a fixed order.
-#[inline(always)]
-fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
-    let mut s = [0.0_f64; 8];
-    let xc = x.chunks_exact(8);
-    let uc = u.chunks_exact(8);
-    let mut tail = 0.0;
-    for (&xv, &uv) in xc.remainder().iter().zip(uc.remainder()) {
-        tail += (xv - m) * uv;
-    }
-    for (xa, ua) in xc.zip(uc) {
-        for l in 0..8 {
-            s[l] += (xa[l] - m) * ua[l];
+        /// `sum_j (x_j - m_j) c_j` (`m`, `c` at least as long as `x`).
+        #[inline(always)]
+        pub fn centered_dot(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
+            let n = x.len();
+            let (m, c) = (&m[..n], &c[..n]);
+            let main = n - n % 8;
+            let mut s = [0.0_f64; 8];
+            for k in (0..main).step_by(8) {
+                for l in 0..8 {
+                    s[l] += (x[k + l] - m[k + l]) * c[k + l];
+                }
+            }
+            let mut tail = 0.0;
+            for k in main..n {
+                tail += (x[k] - m[k]) * c[k];
+            }
+            combine(&s, tail)
+        }
+
+        /// `sum_i (x_i - m) u_i` (`u` at least as long as `x`).
+        #[inline(always)]
+        pub fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
+            let n = x.len();
+            let u = &u[..n];
+            let main = n - n % 8;
+            let mut s = [0.0_f64; 8];
+            for k in (0..main).step_by(8) {
+                for l in 0..8 {
+                    s[l] += (x[k + l] - m) * u[k + l];
+                }
+            }
+            let mut tail = 0.0;
+            for k in main..n {
+                tail += (x[k] - m) * u[k];
+            }
+            combine(&s, tail)
+        }
+
+        /// `acc_j += u (x_j - m_j)`.
+        #[inline(always)]
+        pub fn centered_axpy(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
+            for ((a, &v), &mj) in acc.iter_mut().zip(x).zip(m) {
+                *a += u * (v - mj);
+            }
         }
     }
-    (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
+
+    /// AVX2 versions (x86-64 only; callers check the CPU first).
+    #[cfg(target_arch = "x86_64")]
+    pub(super) mod avx2 {
+        use std::arch::x86_64::{
+            _mm256_add_pd, _mm256_loadu_pd, _mm256_mul_pd, _mm256_set1_pd, _mm256_setzero_pd,
+            _mm256_storeu_pd, _mm256_sub_pd,
+        };
+
+        /// As [`super::portable::centered_dot`].
+        ///
+        /// # Safety
+        /// The CPU must support AVX2.
+        #[inline]
+        #[target_feature(enable = "avx2")]
+        pub unsafe fn centered_dot(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
+            let n = x.len();
+            let (m, c) = (&m[..n], &c[..n]);
+            let main = n - n % 8;
+            let (px, pm, pc) = (x.as_ptr(), m.as_ptr(), c.as_ptr());
+            let mut a0 = _mm256_setzero_pd();
+            let mut a1 = _mm256_setzero_pd();
+            let mut k = 0;
+            while k < main {
+                // SAFETY: k + 8 <= main <= n, the length of all three slices.
+                unsafe {
+                    let d0 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), _mm256_loadu_pd(pm.add(k)));
+                    let d1 = _mm256_sub_pd(
+                        _mm256_loadu_pd(px.add(k + 4)),
+                        _mm256_loadu_pd(pm.add(k + 4)),
+                    );
+                    a0 = _mm256_add_pd(a0, _mm256_mul_pd(d0, _mm256_loadu_pd(pc.add(k))));
+                    a1 = _mm256_add_pd(a1, _mm256_mul_pd(d1, _mm256_loadu_pd(pc.add(k + 4))));
+                }
+                k += 8;
+            }
+            let mut s = [0.0_f64; 8];
+            // SAFETY: `s` has room for two groups of four.
+            unsafe {
+                _mm256_storeu_pd(s.as_mut_ptr(), a0);
+                _mm256_storeu_pd(s.as_mut_ptr().add(4), a1);
+            }
+            let mut tail = 0.0;
+            for k in main..n {
+                tail += (x[k] - m[k]) * c[k];
+            }
+            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
+        }
+
+        /// As [`super::portable::shifted_dot`].
+        ///
+        /// # Safety
+        /// The CPU must support AVX2.
+        #[inline]
+        #[target_feature(enable = "avx2")]
+        pub unsafe fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
+            let n = x.len();
+            let u = &u[..n];
+            let main = n - n % 8;
+            let (px, pu) = (x.as_ptr(), u.as_ptr());
+            let vm = _mm256_set1_pd(m);
+            let mut a0 = _mm256_setzero_pd();
+            let mut a1 = _mm256_setzero_pd();
+            let mut k = 0;
+            while k < main {
+                // SAFETY: k + 8 <= main <= n, the length of both slices.
+                unsafe {
+                    let d0 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), vm);
+                    let d1 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k + 4)), vm);
+                    a0 = _mm256_add_pd(a0, _mm256_mul_pd(d0, _mm256_loadu_pd(pu.add(k))));
+                    a1 = _mm256_add_pd(a1, _mm256_mul_pd(d1, _mm256_loadu_pd(pu.add(k + 4))));
+                }
+                k += 8;
+            }
+            let mut s = [0.0_f64; 8];
+            // SAFETY: `s` has room for two groups of four.
+            unsafe {
+                _mm256_storeu_pd(s.as_mut_ptr(), a0);
+                _mm256_storeu_pd(s.as_mut_ptr().add(4), a1);
+            }
+            let mut tail = 0.0;
+            for k in main..n {
+                tail += (x[k] - m) * u[k];
+            }
+            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
+        }
+
+        /// As [`super::portable::centered_axpy`].
+        ///
+        /// # Safety
+        /// The CPU must support AVX2.
+        #[inline]
+        #[target_feature(enable = "avx2")]
+        pub unsafe fn centered_axpy(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
+            let n = acc.len().min(x.len()).min(m.len());
+            let main = n - n % 4;
+            let (pa, px, pm) = (acc.as_mut_ptr(), x.as_ptr(), m.as_ptr());
+            let vu = _mm256_set1_pd(u);
+            let mut k = 0;
+            while k < main {
+                // SAFETY: k + 4 <= main <= n, within all three slices.
+                unsafe {
+                    let d = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), _mm256_loadu_pd(pm.add(k)));
+                    let v = _mm256_add_pd(_mm256_loadu_pd(pa.add(k)), _mm256_mul_pd(vu, d));
+                    _mm256_storeu_pd(pa.add(k), v);
+                }
+                k += 4;
+            }
+            for k in main..n {
+                acc[k] += u * (x[k] - m[k]);
+            }
+        }
+    }
+
+    /// `sum_j (x_j - m_j) c_j`; `AVX` only where AVX2 was detected.
+    #[inline(always)]
+    pub(super) fn centered_dot<const AVX: bool>(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
+        #[cfg(target_arch = "x86_64")]
+        if AVX {
+            // SAFETY: `AVX` is true only in code reached after detection.
+            return unsafe { avx2::centered_dot(x, m, c) };
+        }
+        portable::centered_dot(x, m, c)
+    }
+
+    /// `sum_i (x_i - m) u_i`; `AVX` only where AVX2 was detected.
+    #[inline(always)]
+    pub(super) fn shifted_dot<const AVX: bool>(x: &[f64], m: f64, u: &[f64]) -> f64 {
+        #[cfg(target_arch = "x86_64")]
+        if AVX {
+            // SAFETY: as above.
+            return unsafe { avx2::shifted_dot(x, m, u) };
+        }
+        portable::shifted_dot(x, m, u)
+    }
+
+    /// `acc_j += u (x_j - m_j)`; `AVX` only where AVX2 was detected.
+    #[inline(always)]
+    pub(super) fn centered_axpy<const AVX: bool>(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
+        #[cfg(target_arch = "x86_64")]
+        if AVX {
+            // SAFETY: as above.
+            return unsafe { avx2::centered_axpy(acc, u, x, m) };
+        }
+        portable::centered_axpy(acc, u, x, m)
+    }
 }
 
 /// One row: residual, then `acc += w r (x - m)`; returns `w r^2`.
 #[inline(always)]
-fn row_update(row: &[f64], means: &[f64], coef: &[f64], t: f64, w: f64, acc: &mut [f64]) -> f64 {
-    let r = t - centered_dot(row, means, coef);
+fn row_update<const AVX: bool>(
+    row: &[f64],
+    means: &[f64],
+    coef: &[f64],
+    t: f64,
+    w: f64,
+    acc: &mut [f64],
+) -> f64 {
+    let r = t - simd::centered_dot::<AVX>(row, means, coef);
     let u = w * r;
-    for ((a, &v), &m) in acc.iter_mut().zip(row).zip(means) {
-        *a += u * (v - m);
-    }
+    simd::centered_axpy::<AVX>(acc, u, row, means);
     u * r
 }
 
 #[inline(always)]
-fn rows_impl(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
+fn rows_impl<const AVX: bool>(
+    inputs: &Inputs<'_, '_>,
+    rows: impl Iterator<Item = usize>,
+    out: &mut Pass,
+) {
     let Inputs { x, means, coef, .. } = *inputs;
     for i in rows {
         let w = inputs.problem.scaled_weight(i);
@@ -292,7 +475,7 @@ fn rows_impl(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &m
         let t = inputs.target(i);
         let row = x.index_axis(Axis(0), i);
         if let Some(slice) = row.to_slice() {
-            out.sq += row_update(slice, means, coef, t, w, &mut out.acc);
+            out.sq += row_update::<AVX>(slice, means, coef, t, w, &mut out.acc);
         } else {
             // Strided rows (column-major mini-batches, other layouts).
             let mut fit = 0.0;
@@ -309,10 +492,10 @@ fn rows_impl(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &m
     }
 }
 
-/// Rows `r0..r1` of a design stored row after row without gaps, with a
-/// contiguous target (and weights): plain slices, no per-row indexing.
+/// Rows of a design stored row after row without gaps, with a contiguous
+/// target (and weights): plain slices, no per-row indexing.
 #[inline(always)]
-fn contiguous_impl<const WEIGHTED: bool>(
+fn contiguous_impl<const AVX: bool, const WEIGHTED: bool>(
     inputs: &Inputs<'_, '_>,
     data: &[f64],
     y: &[f64],
@@ -322,6 +505,7 @@ fn contiguous_impl<const WEIGHTED: bool>(
     let p = inputs.means.len();
     let inv_ws = 1.0 / inputs.problem.stats.weight_scale;
     let (ym, inv_sy) = (inputs.ym, inputs.inv_sy);
+    let mut sq = 0.0;
     for (k, (row, &yi)) in data.chunks_exact(p).zip(y).enumerate() {
         let wi = if WEIGHTED { w[k] * inv_ws } else { 1.0 };
         if WEIGHTED && wi == 0.0 {
@@ -332,21 +516,29 @@ fn contiguous_impl<const WEIGHTED: bool>(
         } else {
             (yi - ym) * inv_sy
         };
-        out.sq += row_update(row, inputs.means, inputs.coef, t, wi, &mut out.acc);
+        sq += row_update::<AVX>(row, inputs.means, inputs.coef, t, wi, &mut out.acc);
     }
+    out.sq += sq;
 }
 
+/// The contiguous row-major path for rows `r0..r1`; `false` (nothing done)
+/// if the block, the target or the weights are not contiguous.
 #[inline(always)]
-fn contiguous_any(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) -> bool {
+fn contiguous_any<const AVX: bool>(
+    inputs: &Inputs<'_, '_>,
+    r0: usize,
+    r1: usize,
+    out: &mut Pass,
+) -> bool {
     let block = inputs.x.slice_move(s![r0..r1, ..]);
     let target = inputs.problem.target().slice_move(s![r0..r1]);
     let (Some(data), Some(y)) = (block.to_slice(), target.to_slice()) else {
         return false;
     };
     match inputs.problem.weights() {
-        None => contiguous_impl::<false>(inputs, data, y, &[], out),
+        None => contiguous_impl::<AVX, false>(inputs, data, y, &[], out),
         Some(w) => match w.slice_move(s![r0..r1]).to_slice() {
-            Some(w) => contiguous_impl::<true>(inputs, data, y, w, out),
+            Some(w) => contiguous_impl::<AVX, true>(inputs, data, y, w, out),
             None => return false,
         },
     }
@@ -354,7 +546,7 @@ fn contiguous_any(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass)
 }
 
 #[inline(always)]
-fn block_cols_impl(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
+fn block_cols_impl<const AVX: bool>(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
     let Inputs { x, means, coef, .. } = *inputs;
     let len = r1 - r0;
     let mut r: Vec<f64> = (r0..r1).map(|i| inputs.target(i)).collect();
@@ -383,28 +575,44 @@ fn block_cols_impl(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass
     for (j, col) in block.axis_iter(Axis(1)).enumerate() {
         let m = means[j];
         out.acc[j] += match col.to_slice() {
-            Some(col) => shifted_dot(col, m, &u),
+            Some(col) => simd::shifted_dot::<AVX>(col, m, &u),
             None => col.iter().zip(&u).map(|(&v, &uk)| (v - m) * uk).sum(),
         };
     }
 }
 
+// The three paths compiled once more with AVX2 enabled, so that the
+// element-wise loops between the vector kernels use it too.
+
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 unsafe fn rows_avx2(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
-    rows_impl(inputs, rows, out)
+    rows_impl::<true>(inputs, rows, out)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 unsafe fn block_cols_avx2(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
-    block_cols_impl(inputs, r0, r1, out)
+    block_cols_impl::<true>(inputs, r0, r1, out)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 unsafe fn contiguous_avx2(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) -> bool {
-    contiguous_any(inputs, r0, r1, out)
+    contiguous_any::<true>(inputs, r0, r1, out)
+}
+
+/// Whether the AVX2 kernels may run (the standard library caches the answer).
+#[inline]
+fn has_avx2() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::arch::is_x86_feature_detected!("avx2")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
 }
 
 /// Runs the contiguous row-major path if the block qualifies; `false` if not
@@ -414,30 +622,84 @@ fn dispatch_contiguous(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut 
         return false;
     }
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: as in `dispatch_rows`.
+    if has_avx2() {
+        // SAFETY: the CPU supports AVX2 (checked just above); the function
+        // has no other requirement.
         return unsafe { contiguous_avx2(inputs, r0, r1, out) };
     }
-    contiguous_any(inputs, r0, r1, out)
+    contiguous_any::<false>(inputs, r0, r1, out)
 }
 
 fn dispatch_rows(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: the CPU supports AVX2 (checked just above); the function
-        // has no other requirement.
+    if has_avx2() {
+        // SAFETY: as in `dispatch_contiguous`.
         unsafe { rows_avx2(inputs, rows, out) };
         return;
     }
-    rows_impl(inputs, rows, out)
+    rows_impl::<false>(inputs, rows, out)
 }
 
 fn dispatch_block_cols(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: as in `dispatch_rows`.
+    if has_avx2() {
+        // SAFETY: as in `dispatch_contiguous`.
         unsafe { block_cols_avx2(inputs, r0, r1, out) };
         return;
     }
-    block_cols_impl(inputs, r0, r1, out)
+    block_cols_impl::<false>(inputs, r0, r1, out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::simd::portable;
+
+    /// Deterministic values of assorted sizes and signs.
+    fn values(n: usize, seed: u64) -> Vec<f64> {
+        let mut state = seed.wrapping_mul(0x9e37_79b9_7f4a_7c15) | 1;
+        (0..n)
+            .map(|_| {
+                state ^= state << 13;
+                state ^= state >> 7;
+                state ^= state << 17;
+                let u = (state >> 11) as f64 / (1u64 << 53) as f64;
+                (u - 0.5) * 10f64.powi((state % 7) as i32 - 3)
+            })
+            .collect()
+    }
+
+    #[test]
+    fn avx2_kernels_give_the_portable_bits() {
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx2") {
+            use super::simd::avx2;
+            for n in [0, 1, 3, 7, 8, 9, 15, 16, 17, 100, 257] {
+                let (x, m, c) = (values(n, 1), values(n, 2), values(n, 3));
+                // SAFETY: AVX2 is available (checked above).
+                let (d, s) = unsafe {
+                    (
+                        avx2::centered_dot(&x, &m, &c),
+                        avx2::shifted_dot(&x, 0.25, &c),
+                    )
+                };
+                assert_eq!(d.to_bits(), portable::centered_dot(&x, &m, &c).to_bits());
+                assert_eq!(s.to_bits(), portable::shifted_dot(&x, 0.25, &c).to_bits());
+                let mut a1 = values(n, 4);
+                let mut a2 = a1.clone();
+                // SAFETY: as above.
+                unsafe { avx2::centered_axpy(&mut a1, -1.5, &x, &m) };
+                portable::centered_axpy(&mut a2, -1.5, &x, &m);
+                assert_eq!(a1, a2);
+            }
+        }
+    }
+
+    #[test]
+    fn portable_dot_matches_a_plain_sum() {
+        // Identity up to rounding: same terms, different grouping.
+        let (x, m, c) = (values(100, 5), values(100, 6), values(100, 7));
+        let plain: f64 = (0..100).map(|k| (x[k] - m[k]) * c[k]).sum();
+        let scale: f64 = (0..100).map(|k| ((x[k] - m[k]) * c[k]).abs()).sum();
+        assert!((portable::centered_dot(&x, &m, &c) - plain).abs() <= 1e-14 * scale);
+    }
 }
