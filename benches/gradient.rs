@@ -22,8 +22,8 @@
 //!
 //! On a shared machine the load changes between criterion's measurements,
 //! so the bench also prints a paired figure: floor, setup and ten-iteration
-//! fits interleaved eight times, the minimum of each (the least disturbed
-//! run), and the ratio of those minima.
+//! fits interleaved eight times; the ratio of the minima (the least
+//! disturbed runs) and the median of the eight per-round ratios.
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use leastline::{GradientDescent, Problem, Solver};
@@ -136,33 +136,55 @@ fn bench(c: &mut Criterion) {
     paired(&x, &problem, &one, &ten);
 }
 
-/// Interleaved measurement: the minimum over eight rounds of each timing.
+/// Interleaved measurement: eight rounds of floor, setup and ten-iteration
+/// fit; prints the ratio of the minima and the median of the per-round
+/// ratios.
 fn paired(x: &Array2<f64>, problem: &Problem<'_>, one: &GradientDescent, ten: &GradientDescent) {
     use std::time::Instant;
-    let (mut floor, mut setup, mut fit10) = (f64::MAX, f64::MAX, f64::MAX);
+    let time = |f: &mut dyn FnMut()| {
+        let t = Instant::now();
+        f();
+        t.elapsed().as_secs_f64()
+    };
+    let mut rounds = Vec::new();
     for _ in 0..8 {
-        let t = Instant::now();
-        black_box(stream_sum(black_box(x)));
-        floor = floor.min(t.elapsed().as_secs_f64());
-        let t = Instant::now();
-        black_box(one.fit(black_box(problem)).expect("fit"));
-        setup = setup.min(t.elapsed().as_secs_f64());
-        let t = Instant::now();
-        black_box(ten.fit(black_box(problem)).expect("fit"));
-        fit10 = fit10.min(t.elapsed().as_secs_f64());
+        let floor = time(&mut || {
+            black_box(stream_sum(black_box(x)));
+        });
+        let setup = time(&mut || {
+            black_box(one.fit(black_box(problem)).expect("fit"));
+        });
+        let fit10 = time(&mut || {
+            black_box(ten.fit(black_box(problem)).expect("fit"));
+        });
+        rounds.push((floor, setup, fit10));
     }
+    let min = |k: usize| {
+        rounds
+            .iter()
+            .map(|r| [r.0, r.1, r.2][k])
+            .fold(f64::INFINITY, f64::min)
+    };
+    let (floor, setup, fit10) = (min(0), min(1), min(2));
     let iteration = (fit10 - setup) / 10.0;
+    let mut ratios: Vec<f64> = rounds.iter().map(|&(f, s, t)| (t - s) / 10.0 / f).collect();
+    ratios.sort_by(f64::total_cmp);
+    let median = 0.5 * (ratios[3] + ratios[4]);
     let gb = (ROWS * COLS * 8) as f64 / 1e9;
     println!(
-        "paired (min of 8 interleaved rounds, {} threads): floor {:.1} ms ({:.2} GB/s), \
-         setup {:.1} ms, one iteration {:.1} ms ({:.2} GB/s), iteration / floor = {:.2}",
+        "paired (8 interleaved rounds, {} threads): minima: floor {:.1} ms ({:.2} GB/s), \
+         setup {:.1} ms, one iteration {:.1} ms ({:.2} GB/s), iteration / floor = {:.2}; \
+         median of per-round ratios {:.2} (range {:.2} to {:.2})",
         rayon::current_num_threads(),
         floor * 1e3,
         gb / floor,
         setup * 1e3,
         iteration * 1e3,
         gb / iteration,
-        iteration / floor
+        iteration / floor,
+        median,
+        ratios[0],
+        ratios[7]
     );
 }
 
