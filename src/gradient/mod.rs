@@ -60,6 +60,36 @@
 //! times the larger of the starting loss and the intercept-only loss: no fit
 //! with non-finite coefficients is ever returned.
 
+//!
+//! ## Progress and cancellation
+//!
+//! Each solver has `fit_observed`, which calls an observer with a
+//! [`Progress`] (iteration, loss, relative gradient norm, step) at the start
+//! and after every iteration or epoch; returning [`Control::Stop`] ends the
+//! fit at once with the current coefficients. A program can show progress
+//! and cancel from another thread:
+//!
+//! ```
+//! use std::sync::atomic::{AtomicBool, Ordering};
+//! use leastline::{Accelerated, Control, Problem};
+//! use ndarray::Array2;
+//!
+//! // Hourly demand of a bakery's oven against three readings.
+//! let x = Array2::from_shape_fn((500, 3), |(i, j)| ((i * 7 + j * 13) % 31) as f64);
+//! let y = x.column(0).mapv(|a| 2.0 * a) + x.column(2).mapv(|c| 0.5 * c + 1.0);
+//! let problem = Problem::new(x.view(), y.view())?;
+//! let cancel = AtomicBool::new(false); // set by a user interface, say
+//! let fit = Accelerated::default().fit_observed(&problem, &mut |p| {
+//!     if p.iteration % 100 == 0 {
+//!         eprintln!("{}: loss {:.3e}, gradient {:.1e}", p.iteration, p.loss, p.gradient_norm);
+//!     }
+//!     if cancel.load(Ordering::Relaxed) { Control::Stop } else { Control::Continue }
+//! })?;
+//! let report = fit.report.iterations.as_ref().expect("iterative solvers report iterations");
+//! assert!(report.converged && !report.stopped_by_observer);
+//! # Ok::<(), leastline::Error>(())
+//! ```
+
 mod accelerated;
 mod full;
 mod stochastic;
