@@ -52,6 +52,7 @@
 #![doc(test(attr(deny(warnings))))]
 
 pub mod error;
+pub mod gradient;
 pub mod inference;
 mod linalg;
 pub mod model;
@@ -63,6 +64,7 @@ pub mod solver;
 mod solvers;
 
 pub use error::{Error, Input, Result};
+pub use gradient::{Accelerated, Control, GradientDescent, Progress, Stochastic};
 pub use inference::{CovarianceKind, Inference, InferenceOptions};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};

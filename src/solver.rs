@@ -96,6 +96,11 @@ pub struct IterationReport {
     pub step: f64,
     /// The objective at each iteration (possibly thinned).
     pub loss_history: Vec<f64>,
+    /// Full reads of the design, including those spent estimating the step
+    /// (an epoch of mini-batches counts as one).
+    pub passes: usize,
+    /// Momentum restarts (accelerated methods; 0 otherwise).
+    pub restarts: usize,
 }
 
 /// Turns slopes computed by a closed-form solver into a [`Fit`]: adds the

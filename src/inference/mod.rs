@@ -731,6 +731,8 @@ mod tests {
             gradient_norm: 1e-3,
             step: 0.1,
             loss_history: Vec::new(),
+            passes: 41,
+            restarts: 0,
         };
         fit.report.iterations = Some(it.clone());
         assert_eq!(

@@ -14,12 +14,16 @@
 //! - [`leverage`], [`products`]: the row pass and small products used by
 //!   inference (leverages without the hat matrix, sandwich middle matrices).
 //! - [`extended`]: residual passes in double-double arithmetic for
-//!   iterative refinement.
+//!   iterative refinement;
+//! - [`gradient`]: fused residual-and-gradient passes for the gradient solvers;
+//! - [`dense`], [`dual`], [`loo`]: small products, the row Gram of wide designs and
+//!   leave-one-out sums for the ridge solvers and the penalty path.
 
 pub(crate) mod cholesky;
 pub(crate) mod dense;
 pub(crate) mod dual;
 pub(crate) mod extended;
+pub(crate) mod gradient;
 pub(crate) mod gram;
 pub(crate) mod householder;
 pub(crate) mod leverage;

@@ -177,6 +177,8 @@ impl Solver for Qr {
             gradient_norm: refined.gradient,
             step: 1.0,
             loss_history: refined.losses,
+            passes: refined.passes,
+            restarts: 0,
         });
         Ok(fit)
     }

@@ -66,6 +66,9 @@ pub(crate) struct Refined {
     /// `sum w e^2 / (2 sum w)` (caller's weights) of the residual estimate
     /// at the start of each step.
     pub losses: Vec<f64>,
+    /// Full reads of the design made by the refinement (residuals, defects,
+    /// and the QR passes of ill-conditioned problems).
+    pub passes: usize,
 }
 
 /// Largest `|d_j| / |t_j|` over the parameters (both 0: skipped).
@@ -130,9 +133,11 @@ pub(crate) fn refine(
         converged: false,
         gradient: f64::NAN,
         losses: Vec::new(),
+        passes: 1,
     };
     for step in 1..=settings.max_steps {
         let d = extended::defects(problem, intercept, &beta, &e);
+        out.passes += 1;
         if !d.is_finite() {
             break;
         }
@@ -194,6 +199,7 @@ pub(crate) fn refine(
             // d = R^-1 (Q^T h - R^-T g), Q^T h from a QR with h as last column.
             let fc: Vec<f64> = d.f.iter().map(|&fi| fi - c).collect();
             let rf = tall_skinny_r_with(problem, scaling, &fc, 1.0 / t);
+            out.passes += 1;
             let r = rf.as_ref().submatrix(0, 0, p, p);
             let mut u = gcs;
             triangular::solve_lower(r.transpose(), &mut u);
@@ -236,6 +242,7 @@ pub(crate) fn refine(
             break;
         }
         extended::update_residuals(problem, &mut e, &d.f, c, &d_beta);
+        out.passes += 1;
         prev = change;
     }
     out.intercept = intercept;

@@ -1,0 +1,653 @@
+//! Gradient-descent solvers: full-batch ([`GradientDescent`]), accelerated
+//! with adaptive restart ([`Accelerated`]) and mini-batch stochastic
+//! ([`Stochastic`]).
+//!
+//! All three minimise the same objective as the ridge solvers,
+//!
+//! ```text
+//! F(b0, b) = (1/2) sum_i w_i (y_i - b0 - x_i . b)^2 + (lambda/2) ||b||^2,
+//! ```
+//!
+//! with `lambda` the `penalty` setting (0 by default: ordinary or weighted
+//! least squares). The intercept `b0` is never penalised and is fitted by
+//! centering, as everywhere in the crate: `b0 = mean(y) - mean(x) . b` with
+//! weighted means, so the iteration runs over the slopes only.
+//!
+//! ## Internal coordinates
+//!
+//! The iteration runs on the centered, weighted design with every column
+//! standardised: divided by its weighted norm (together with its share of
+//! the penalty), so that the Hessian of the internal objective has a unit
+//! diagonal. The target is divided by a power of two near its spread and
+//! the objective by the total weight. This leaves the minimiser unchanged
+//! (coefficients come back in the caller's units) but makes the iteration
+//! count independent of the columns' units and offsets, of outliers that
+//! stretch a column's range, and of how unevenly a caller-unit penalty
+//! treats columns of different scales. Setting up these coordinates costs
+//! one read of the design. Consequences for settings:
+//!
+//! - a fixed `step` is a step in these standardised coordinates, where the
+//!   curvature `L` (the largest eigenvalue of the standardised
+//!   `X^T W X / sum(w)` plus the penalty) lies between 1 and the number of
+//!   columns; the default step is `1 / L` with `L` estimated by power
+//!   iteration;
+//! - the tolerance is a **relative gradient norm**: the Euclidean norm of the
+//!   gradient in the standardised coordinates divided by its norm at
+//!   all-zero slopes (the intercept-only model). It does not depend on the
+//!   starting point, so a warm start near the optimum converges at once.
+//!   When the gradient at zero is exactly zero (a constant target) the test
+//!   is on the absolute norm.
+//!
+//! Solutions are determined to about `tolerance * kappa` relative accuracy,
+//! `kappa` the condition number of the standardised `X^T W X` (plus
+//! penalty).
+//!
+//! ## Losses reported
+//!
+//! Every loss in a report, an observer's [`Progress`] or an error is in the
+//! caller's units, per unit of weight:
+//! `[(1/2) sum_i w_i (y_i - y_hat_i)^2 + (lambda/2) ||b||^2] / sum_i w_i`.
+//! Unweighted and unpenalised, that is [`crate::LinearModel::squared_loss`]
+//! on the training data.
+//!
+//! ## Honest stopping
+//!
+//! A fit ends when the relative gradient norm is at most the tolerance
+//! (`converged`), at the iteration (epoch) limit (not converged: visible in
+//! the report, and an [`Error::NotConverged`] when `fail_if_not_converged`),
+//! when the observer asks (`stopped_by_observer`), or with
+//! [`Error::Diverged`] as soon as a loss is non-finite or exceeds `10^4`
+//! times the larger of the starting loss and the intercept-only loss: no fit
+//! with non-finite coefficients is ever returned.
+
+//!
+//! ## Progress and cancellation
+//!
+//! Each solver has `fit_observed`, which calls an observer with a
+//! [`Progress`] (iteration, loss, relative gradient norm, step) at the start
+//! and after every iteration or epoch; returning [`Control::Stop`] ends the
+//! fit at once with the current coefficients. A program can show progress
+//! and cancel from another thread:
+//!
+//! ```
+//! use std::sync::atomic::{AtomicBool, Ordering};
+//! use leastline::{Accelerated, Control, Problem};
+//! use ndarray::Array2;
+//!
+//! // Hourly demand of a bakery's oven against three readings.
+//! let x = Array2::from_shape_fn((500, 3), |(i, j)| ((i * 7 + j * 13) % 31) as f64);
+//! let y = x.column(0).mapv(|a| 2.0 * a) + x.column(2).mapv(|c| 0.5 * c + 1.0);
+//! let problem = Problem::new(x.view(), y.view())?;
+//! let cancel = AtomicBool::new(false); // set by a user interface, say
+//! let fit = Accelerated::default().fit_observed(&problem, &mut |p| {
+//!     if p.iteration % 100 == 0 {
+//!         eprintln!("{}: loss {:.3e}, gradient {:.1e}", p.iteration, p.loss, p.gradient_norm);
+//!     }
+//!     if cancel.load(Ordering::Relaxed) { Control::Stop } else { Control::Continue }
+//! })?;
+//! let report = fit.report.iterations.as_ref().expect("iterative solvers report iterations");
+//! assert!(report.converged && !report.stopped_by_observer);
+//! # Ok::<(), leastline::Error>(())
+//! ```
+
+mod accelerated;
+mod full;
+mod stochastic;
+
+pub use accelerated::Accelerated;
+pub use full::GradientDescent;
+pub use stochastic::Stochastic;
+
+use rand_chacha::rand_core::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+use crate::error::{Error, Input, Result};
+use crate::linalg::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
+use crate::model::LinearModel;
+use crate::prep::Scaling;
+use crate::problem::Problem;
+use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
+
+/// What an observer sees after each iteration (full-batch solvers) or epoch
+/// ([`Stochastic`]).
+///
+/// Iteration 0 is the starting point; iteration `k` is the point after `k`
+/// updates. The loss is in the caller's units (see the module docs) and the
+/// gradient norm is relative, as in the stopping test.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct Progress {
+    /// Updates made so far (epochs for [`Stochastic`]).
+    pub iteration: usize,
+    /// Objective per unit weight at the current coefficients.
+    pub loss: f64,
+    /// Relative gradient norm at the current coefficients.
+    pub gradient_norm: f64,
+    /// Step size of the last update (the start step at iteration 0).
+    pub step: f64,
+}
+
+/// An observer's answer: go on, or end the fit at the current coefficients.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Control {
+    /// Carry on.
+    Continue,
+    /// End the fit now; the report says `stopped_by_observer`.
+    Stop,
+}
+
+/// A loss above this multiple of the reference loss counts as divergence.
+const DIVERGENCE_FACTOR: f64 = 1e4;
+/// Power-iteration steps: at least this many ...
+const POWER_MIN: usize = 5;
+/// ... and at most this many ...
+const POWER_MAX: usize = 30;
+/// ... stopping when the estimate changes by less than this fraction.
+const POWER_RTOL: f64 = 1e-2;
+/// Fixed seed of the power iteration's start vector (not the user's seed).
+const POWER_SEED: u64 = 0x6c65_6173_746c_696e;
+
+/// Settings shared by the three solvers, checked.
+#[derive(Debug, Clone)]
+pub(crate) struct Common<'s> {
+    pub tolerance: f64,
+    pub step: Option<f64>,
+    pub penalty: f64,
+    pub start: Option<&'s LinearModel>,
+    pub history_stride: usize,
+    pub fail_if_not_converged: bool,
+}
+
+impl Common<'_> {
+    pub fn check(&self) -> Result<()> {
+        crate::solver::check_tolerance("tolerance", self.tolerance)?;
+        if let Some(step) = self.step {
+            if !step.is_finite() || step <= 0.0 {
+                return Err(Error::InvalidParameter {
+                    name: "step",
+                    value: step,
+                    reason: "must be finite and > 0",
+                });
+            }
+        }
+        if !self.penalty.is_finite() || self.penalty < 0.0 {
+            return Err(Error::InvalidParameter {
+                name: "penalty",
+                value: self.penalty,
+                reason: "must be finite and >= 0",
+            });
+        }
+        Ok(())
+    }
+}
+
+/// Loss and gradient of the internal objective at one point.
+#[derive(Debug, Clone)]
+pub(crate) struct Eval {
+    /// Internal objective `f` (scaled units, per unit weight).
+    pub f: f64,
+    /// Gradient of `f`.
+    pub grad: Vec<f64>,
+    /// `sum_i w_i r_i^2` in scaled units (for the residual sum of squares).
+    pub sq: f64,
+}
+
+/// The internal objective
+/// `f(d) = [ (1/2) ||z_y - Z K d||^2 + (1/2) sum_j mu_j d_j^2 ] / W`
+/// over the standardised coordinates `d` (see the module docs): `Z` is the
+/// centered, weighted design, `K` the diagonal of effective inverse column
+/// scales chosen so that the Hessian has a unit diagonal, `z_y` the
+/// centered, weighted target over its power-of-two scale `s_y`.
+pub(crate) struct Objective<'p, 'a> {
+    problem: &'p Problem<'a>,
+    /// Power-of-two target scale `s_y`.
+    target_scale: f64,
+    /// Effective inverse column scales `k_j` (0 for constant columns):
+    /// slope `b_j = d_j s_y k_j`.
+    k: Vec<f64>,
+    /// Total internal weight `W`.
+    weight: f64,
+    /// Diagonal penalty in internal coordinates (0 for constant columns).
+    mu: Vec<f64>,
+    /// Columns that carry information (not constant beside the intercept).
+    live: Vec<bool>,
+    /// Multiplier from internal to caller loss: `s_y^2`.
+    loss_unit: f64,
+    /// Full passes over the design so far.
+    pub passes: usize,
+    coef: Vec<f64>,
+}
+
+impl<'p, 'a> Objective<'p, 'a> {
+    /// Sets up the coordinates: one pass over the design for the column
+    /// norms.
+    pub fn new(problem: &'p Problem<'a>, penalty: f64) -> Self {
+        let scaling = Scaling::new(problem, problem.default_rank_tolerance());
+        let p = problem.cols();
+        let weight = problem.stats.total_weight;
+        let ws = problem.stats.weight_scale;
+        // Squared norms of the columns after the exact power-of-two scaling
+        // (no overflow: every scaled value is at most 2 in magnitude).
+        let norms = column_norms(problem, &scaling.inv_scale);
+        let mut k = vec![0.0; p];
+        let mut mu = vec![0.0; p];
+        let mut live = vec![false; p];
+        for j in 0..p {
+            if scaling.constant[j] {
+                continue;
+            }
+            // Penalty on the power-of-two-scaled coordinate:
+            // lambda b_j^2 / (ws s_y^2) with b_j = g_j s_y / s_j.
+            let s = scaling.scale[j];
+            let pen = penalty / ws / s / s;
+            let diag = norms[j] + pen;
+            if diag.is_nan() || diag <= 0.0 {
+                continue;
+            }
+            live[j] = true;
+            if diag.is_infinite() {
+                // An infinite penalty in these units: the slope is 0.
+                mu[j] = weight;
+                continue;
+            }
+            // Rescale so that the Hessian's diagonal entry is 1.
+            let r = (weight / diag).sqrt();
+            k[j] = scaling.inv_scale[j] * r;
+            mu[j] = pen * r * r;
+        }
+        Objective {
+            problem,
+            target_scale: scaling.target_scale,
+            k,
+            weight,
+            mu,
+            live,
+            loss_unit: scaling.target_scale * scaling.target_scale,
+            passes: 1,
+            coef: vec![0.0; p],
+        }
+    }
+
+    pub fn dim(&self) -> usize {
+        self.mu.len()
+    }
+
+    pub fn live(&self) -> &[bool] {
+        &self.live
+    }
+
+    /// Caller-unit loss for an internal loss.
+    pub fn caller_loss(&self, f: f64) -> f64 {
+        f * self.loss_unit
+    }
+
+    fn set_coef(&mut self, g: &[f64]) {
+        for ((c, &gj), &k) in self.coef.iter_mut().zip(g).zip(&self.k) {
+            *c = gj * k;
+        }
+    }
+
+    /// Turns a pass into the loss and gradient at `g`.
+    fn assemble(&self, g: &[f64], pass: Pass, factor: f64) -> Eval {
+        let inv_w = 1.0 / self.weight;
+        let mut pen = 0.0;
+        let grad: Vec<f64> = (0..self.dim())
+            .map(|j| {
+                pen += self.mu[j] * g[j] * g[j];
+                (self.mu[j] * g[j] - factor * self.k[j] * pass.acc[j]) * inv_w
+            })
+            .collect();
+        Eval {
+            f: 0.5 * (pass.sq * factor + pen) * inv_w,
+            grad,
+            sq: pass.sq,
+        }
+    }
+
+    /// Loss and gradient at `g` (one full pass).
+    pub fn eval(&mut self, g: &[f64]) -> Eval {
+        self.set_coef(g);
+        let pass = residual_pass(self.problem, &self.coef, 1.0 / self.target_scale);
+        self.passes += 1;
+        self.assemble(g, pass, 1.0)
+    }
+
+    /// Estimate of the loss and gradient from the rows listed, scaled to
+    /// the whole problem (`usable rows / batch`): unbiased for uniform
+    /// sampling of the usable rows.
+    pub fn eval_rows(&mut self, g: &[f64], rows: &[usize]) -> Eval {
+        self.set_coef(g);
+        let pass = residual_rows(self.problem, &self.coef, 1.0 / self.target_scale, rows);
+        let factor = self.problem.usable_rows() as f64 / rows.len().max(1) as f64;
+        self.assemble(g, pass, factor)
+    }
+
+    /// `H v` with `H` the Hessian of `f` (one full pass).
+    fn hess_vec(&mut self, v: &[f64]) -> Vec<f64> {
+        self.set_coef(v);
+        let pass = residual_pass(self.problem, &self.coef, 0.0);
+        self.passes += 1;
+        let inv_w = 1.0 / self.weight;
+        (0..self.dim())
+            .map(|j| (self.mu[j] * v[j] - self.k[j] * pass.acc[j]) * inv_w)
+            .collect()
+    }
+
+    /// Estimate of `L`, the largest eigenvalue of the Hessian, by power
+    /// iteration from a fixed pseudo-random start: `||H v_k||` with `v_k`
+    /// of unit norm, which approaches `L` from below.
+    pub fn lipschitz(&mut self) -> f64 {
+        let p = self.dim();
+        let mut rng = ChaCha8Rng::seed_from_u64(POWER_SEED);
+        let mut v: Vec<f64> = (0..p)
+            .map(|j| {
+                let u = (rng.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64);
+                if self.live[j] {
+                    2.0 * u - 1.0
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        let mut norm = norm2(&v);
+        if norm == 0.0 {
+            return 0.0;
+        }
+        v.iter_mut().for_each(|x| *x /= norm);
+        let mut est = 0.0;
+        for k in 0..POWER_MAX {
+            let hv = self.hess_vec(&v);
+            norm = norm2(&hv);
+            if norm == 0.0 || !norm.is_finite() {
+                return norm;
+            }
+            let change = (norm - est).abs();
+            est = norm;
+            v = hv.into_iter().map(|x| x / norm).collect();
+            if k + 1 >= POWER_MIN && change <= POWER_RTOL * est {
+                break;
+            }
+        }
+        est
+    }
+
+    /// The largest curvature of a single-row term: `max_i (n_u / W) w_i
+    /// ||z_i||^2` plus the penalty's share (one full pass).
+    pub fn row_lipschitz(&mut self) -> f64 {
+        self.passes += 1;
+        let rows = max_row_norm(self.problem, &self.k);
+        let mu_max = self.mu.iter().fold(0.0_f64, |a, &b| a.max(b));
+        (self.problem.usable_rows() as f64 * rows + mu_max) / self.weight
+    }
+
+    /// The starting point in internal coordinates.
+    pub fn start(&self, start: Option<&LinearModel>) -> Result<Vec<f64>> {
+        let p = self.dim();
+        let Some(model) = start else {
+            return Ok(vec![0.0; p]);
+        };
+        if model.cols() != p {
+            return Err(Error::ColumnCountMismatch {
+                expected: p,
+                found: model.cols(),
+            });
+        }
+        let mut g = vec![0.0; p];
+        for (j, &b) in model.coefficients().iter().enumerate() {
+            if !b.is_finite() {
+                return Err(Error::NonFinite {
+                    input: Input::StartingPoint,
+                    row: j,
+                    column: None,
+                    value: b,
+                });
+            }
+            if self.k[j] > 0.0 {
+                g[j] = b / self.k[j] / self.target_scale;
+                if !g[j].is_finite() {
+                    return Err(Error::Overflow {
+                        what: "starting point in the solver's internal coordinates",
+                    });
+                }
+            }
+        }
+        Ok(g)
+    }
+
+    /// Slopes in caller units.
+    pub fn caller_slopes(&self, g: &[f64]) -> Vec<f64> {
+        (0..self.dim())
+            .map(|j| g[j] * self.k[j] * self.target_scale)
+            .collect()
+    }
+}
+
+/// Euclidean norm without overflow for moderate vectors.
+pub(crate) fn norm2(v: &[f64]) -> f64 {
+    let big = v.iter().fold(0.0_f64, |a, &b| a.max(b.abs()));
+    if big == 0.0 || !big.is_finite() {
+        return big;
+    }
+    let s: f64 = v.iter().map(|x| (x / big) * (x / big)).sum();
+    big * s.sqrt()
+}
+
+/// What the tracker decided after one observation.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Verdict {
+    pub converged: bool,
+    pub stop: bool,
+}
+
+/// Records the history, calls the observer and applies the stopping and
+/// divergence tests.
+pub(crate) struct Tracker<'o> {
+    observer: &'o mut dyn FnMut(&Progress) -> Control,
+    tolerance: f64,
+    stride: usize,
+    /// Norm dividing the gradient norm.
+    denominator: f64,
+    /// Internal loss above which the run counts as diverged.
+    limit: f64,
+    loss_unit: f64,
+    history: Vec<f64>,
+    last_recorded: Option<usize>,
+    pub last: Option<(usize, f64, f64)>,
+    pub stopped: bool,
+}
+
+impl<'o> Tracker<'o> {
+    /// `f_zero` and `grad_zero` describe the objective at all-zero slopes,
+    /// `f_start` the starting point.
+    pub fn new(
+        observer: &'o mut dyn FnMut(&Progress) -> Control,
+        common: &Common<'_>,
+        objective: &Objective<'_, '_>,
+        grad_zero: f64,
+        f_zero: f64,
+        f_start: f64,
+    ) -> Self {
+        let reference = f_zero.max(f_start).max(f64::MIN_POSITIVE);
+        Tracker {
+            observer,
+            tolerance: common.tolerance,
+            stride: common.history_stride,
+            denominator: if grad_zero > 0.0 && grad_zero.is_finite() {
+                grad_zero
+            } else {
+                1.0
+            },
+            limit: DIVERGENCE_FACTOR * reference,
+            loss_unit: objective.loss_unit,
+            history: Vec::new(),
+            last_recorded: None,
+            last: None,
+            stopped: false,
+        }
+    }
+
+    /// Relative gradient norm of an evaluation.
+    pub fn relative(&self, eval: &Eval) -> f64 {
+        norm2(&eval.grad) / self.denominator
+    }
+
+    /// The divergence test alone (used inside stochastic epochs).
+    pub fn check_finite(&self, iteration: usize, step: f64, f: f64, g: &[f64]) -> Result<()> {
+        if !f.is_finite() || f > self.limit || g.iter().any(|v| !v.is_finite()) {
+            return Err(Error::Diverged {
+                iteration,
+                step,
+                loss: f * self.loss_unit,
+            });
+        }
+        Ok(())
+    }
+
+    /// Observes the point after `iteration` updates.
+    ///
+    /// # Errors
+    /// [`Error::Diverged`] for a non-finite or runaway loss or gradient.
+    pub fn observe(&mut self, iteration: usize, step: f64, eval: &Eval) -> Result<Verdict> {
+        self.check_finite(iteration, step, eval.f, &eval.grad)?;
+        let loss = eval.f * self.loss_unit;
+        let rel = self.relative(eval);
+        if self.stride > 0 && iteration % self.stride == 0 {
+            self.history.push(loss);
+            self.last_recorded = Some(iteration);
+        }
+        self.last = Some((iteration, loss, rel));
+        let control = (self.observer)(&Progress {
+            iteration,
+            loss,
+            gradient_norm: rel,
+            step,
+        });
+        let stop = control == Control::Stop;
+        self.stopped |= stop;
+        Ok(Verdict {
+            converged: rel <= self.tolerance,
+            stop,
+        })
+    }
+
+    fn into_history(mut self) -> (Vec<f64>, Option<(usize, f64, f64)>, bool) {
+        if let Some((k, loss, _)) = self.last {
+            if self.stride > 0 && self.last_recorded != Some(k) {
+                self.history.push(loss);
+            }
+        }
+        (self.history, self.last, self.stopped)
+    }
+}
+
+/// Everything the solvers hand to [`finish`].
+pub(crate) struct Outcome {
+    pub gamma: Vec<f64>,
+    pub eval: Eval,
+    pub converged: bool,
+    pub step: f64,
+    pub restarts: usize,
+}
+
+/// Builds the fit and its report from the final state.
+///
+/// # Errors
+/// [`Error::NotConverged`] when asked for and the tolerance was not met (a
+/// stop by the observer is not an error); [`Error::Overflow`] if a
+/// coefficient is not representable in caller units.
+pub(crate) fn finish(
+    problem: &Problem<'_>,
+    name: &str,
+    common: &Common<'_>,
+    objective: &Objective<'_, '_>,
+    tracker: Tracker<'_>,
+    outcome: Outcome,
+) -> Result<Fit> {
+    let tolerance = common.tolerance;
+    let (history, last, stopped) = tracker.into_history();
+    let (iterations, final_loss, gradient_norm) =
+        last.unwrap_or((0, objective.caller_loss(outcome.eval.f), 0.0));
+    if common.fail_if_not_converged && !outcome.converged && !stopped {
+        return Err(Error::NotConverged {
+            iterations,
+            gradient_norm,
+            tolerance,
+        });
+    }
+    let beta = objective.caller_slopes(&outcome.gamma);
+    if beta.iter().any(|b| !b.is_finite()) {
+        return Err(Error::Overflow {
+            what: "coefficient vector",
+        });
+    }
+    let intercept = intercept_for(problem, &beta);
+    if !intercept.is_finite() {
+        return Err(Error::Overflow { what: "intercept" });
+    }
+    let rank = objective.live().iter().filter(|&&l| l).count();
+    let rss = outcome.eval.sq * objective.loss_unit * problem.stats.weight_scale;
+    Ok(Fit {
+        model: LinearModel::new(ndarray::Array1::from(beta), intercept),
+        report: FitReport {
+            solver: name.to_string(),
+            rank,
+            columns: problem.cols(),
+            condition: 0.0,
+            residual_sum_of_squares: rss,
+            residual_df: problem
+                .usable_rows()
+                .saturating_sub(rank + usize::from(problem.has_intercept())),
+            usable_rows: problem.usable_rows(),
+            penalty: common.penalty,
+            iterations: Some(IterationReport {
+                iterations,
+                converged: outcome.converged,
+                stopped_by_observer: stopped,
+                final_loss,
+                gradient_norm,
+                step: outcome.step,
+                loss_history: history,
+                passes: objective.passes,
+                restarts: outcome.restarts,
+            }),
+        },
+    })
+}
+
+/// Shared start of every fit: the objective, the starting point, its
+/// evaluation and the gradient norm and loss at all-zero slopes.
+pub(crate) struct Setup<'p, 'a> {
+    pub objective: Objective<'p, 'a>,
+    pub gamma: Vec<f64>,
+    pub eval: Eval,
+    pub grad_zero: f64,
+    pub f_zero: f64,
+}
+
+pub(crate) fn setup<'p, 'a>(
+    problem: &'p Problem<'a>,
+    common: &Common<'_>,
+) -> Result<Setup<'p, 'a>> {
+    common.check()?;
+    let mut objective = Objective::new(problem, common.penalty);
+    let gamma = objective.start(common.start)?;
+    let eval = objective.eval(&gamma);
+    let (grad_zero, f_zero) = if gamma.iter().all(|&g| g == 0.0) {
+        (norm2(&eval.grad), eval.f)
+    } else {
+        let zero = objective.eval(&vec![0.0; gamma.len()]);
+        (norm2(&zero.grad), zero.f)
+    };
+    Ok(Setup {
+        objective,
+        gamma,
+        eval,
+        grad_zero,
+        f_zero,
+    })
+}
+
+/// A no-op observer for [`crate::Solver::fit`].
+pub(crate) fn keep_going(_: &Progress) -> Control {
+    Control::Continue
+}
