@@ -24,16 +24,49 @@ mod exact;
 #[path = "../tests/common/nist.rs"]
 mod nist;
 
-use leastline::{Cholesky, Error, Fit, Problem, Qr, Solver, Svd};
+use leastline::{
+    Accelerated, Cholesky, Error, Fit, GradientDescent, Problem, Qr, Ridge, Solver, Stochastic, Svd,
+};
 use nist::{lre, Dataset};
 
 /// The solvers measured, with the label they carry in the output.
 fn solvers() -> Vec<(&'static str, Box<dyn Solver>)> {
     vec![
         ("qr", Box::new(Qr::default())),
-        ("qr+refinement", Box::new(Qr::refined())),
+        ("qr-refined", Box::new(Qr::refined())),
         ("cholesky", Box::new(Cholesky::default())),
         ("svd", Box::new(Svd::default())),
+        ("ridge(0)", Box::new(Ridge::new(0.0))),
+        // Gradient methods run to a tight tolerance and report `NotConverged`
+        // (as their outcome) where they cannot reach it.
+        (
+            "gradient",
+            Box::new(GradientDescent {
+                tolerance: 1e-13,
+                max_iterations: 200_000,
+                fail_if_not_converged: true,
+                ..Default::default()
+            }),
+        ),
+        (
+            "accelerated",
+            Box::new(Accelerated {
+                tolerance: 1e-13,
+                max_iterations: 200_000,
+                fail_if_not_converged: true,
+                ..Default::default()
+            }),
+        ),
+        (
+            "stochastic",
+            Box::new(Stochastic {
+                tolerance: 1e-10,
+                epochs: 200,
+                seed: 1,
+                fail_if_not_converged: true,
+                ..Default::default()
+            }),
+        ),
     ]
 }
 

@@ -90,8 +90,13 @@ impl Qr {
 }
 
 impl Solver for Qr {
+    /// `"qr"`, or `"qr-refined"` when refinement is on.
     fn name(&self) -> &str {
-        "qr"
+        if self.refinement.is_some() {
+            "qr-refined"
+        } else {
+            "qr"
+        }
     }
 
     /// # Errors
