@@ -50,6 +50,8 @@
 #![warn(clippy::unwrap_used)]
 #![doc(test(attr(deny(warnings))))]
 
+#[doc(hidden)]
+pub mod bench_support;
 pub mod error;
 mod linalg;
 pub mod model;

@@ -1,10 +1,11 @@
 //! The centered Gram matrix `Z^T Z` over row blocks, in parallel.
 
-use faer::linalg::matmul::triangular::{matmul, BlockStructure};
-use faer::{Accum, Mat, Par};
+use faer::linalg::matmul::matmul;
+use faer::reborrow::{IntoConst, ReborrowMut};
+use faer::{Accum, Mat, MatMut, MatRef, Par};
 use rayon::prelude::*;
 
-use super::{block_groups, block_rows, GROUPS};
+use super::{block_groups, gram_block_rows, GROUPS};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -13,44 +14,55 @@ use crate::problem::Problem;
 /// `with_target`, so that `Z^T y` and `y^T y` come with it).
 ///
 /// Each group of row blocks accumulates its own lower triangle with a
-/// symmetric rank-k update (half the flops of a general product); groups
-/// are summed in a fixed order, so the result does not depend on the
-/// thread count. Extra memory: one block and one `k x k` matrix per group.
+/// symmetric rank-k update (half the flops of a general product, faer's
+/// sequential kernel); groups run in parallel and are summed in a fixed
+/// order, so the result does not depend on the thread count. A block is
+/// filled in the layout the design can be read in contiguously (transposed,
+/// `k x rows`, for a row-major design) and sized to stay in the core's
+/// second-level cache. Extra memory: one block and one `k x k` matrix per
+/// group.
 pub(crate) fn centered_gram(
     problem: &Problem<'_>,
     scaling: &Scaling,
     with_target: bool,
 ) -> Mat<f64> {
     let k = problem.cols() + usize::from(with_target);
-    let b = block_rows(k);
+    let b = gram_block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
+    // A column-major design is read column by column into a `rows x k`
+    // block; any other layout row by row into a `k x rows` block.
+    let design = problem.design();
+    let strides = design.strides();
+    let by_columns = strides[0] == 1 && strides[1] != 1;
     let partials: Vec<Mat<f64>> = groups
         .par_iter()
         .map(|group| {
             let mut acc = Mat::<f64>::zeros(k, k);
-            let mut block = Mat::<f64>::zeros(b, k);
+            let mut block = if by_columns {
+                Mat::<f64>::zeros(b, k)
+            } else {
+                Mat::<f64>::zeros(k, b)
+            };
             for &(r0, r1) in group {
                 let len = r1 - r0;
-                fill_block(
-                    problem,
-                    scaling,
-                    r0,
-                    r1,
-                    with_target,
-                    block.as_mut().subrows_mut(0, len),
-                );
-                let blk = block.as_ref().subrows(0, len);
-                matmul(
-                    acc.as_mut(),
-                    BlockStructure::TriangularLower,
-                    Accum::Add,
-                    blk.transpose(),
-                    BlockStructure::Rectangular,
-                    blk,
-                    BlockStructure::Rectangular,
-                    1.0,
-                    Par::Seq,
-                );
+                // `z` is the `len x k` block of Z, whatever its storage.
+                let z = if by_columns {
+                    let mut z = block.as_mut().subrows_mut(0, len);
+                    fill_block(problem, scaling, r0, r1, with_target, z.rb_mut());
+                    z.into_const()
+                } else {
+                    let mut zt = block.as_mut().subcols_mut(0, len);
+                    fill_block(
+                        problem,
+                        scaling,
+                        r0,
+                        r1,
+                        with_target,
+                        zt.rb_mut().transpose_mut(),
+                    );
+                    zt.into_const().transpose()
+                };
+                lower_gram_add(acc.as_mut(), z);
             }
             acc
         })
@@ -58,6 +70,7 @@ pub(crate) fn centered_gram(
     let mut g = Mat::<f64>::zeros(k, k);
     for part in &partials {
         for j in 0..k {
+            // The panels also filled part of the upper triangle: read the lower.
             for i in j..k {
                 g[(i, j)] += part[(i, j)];
             }
@@ -69,4 +82,28 @@ pub(crate) fn centered_gram(
         }
     }
     g
+}
+
+/// Columns per panel of [`lower_gram_add`].
+const GRAM_PANEL: usize = 32;
+
+/// `acc += z^T z` on and below the diagonal, by panels of [`GRAM_PANEL`]
+/// columns: each panel is one general product of the columns from the
+/// panel's first on with the panel's columns (faer's sequential kernel), so
+/// only the diagonal blocks compute the part above the diagonal as well.
+pub(crate) fn lower_gram_add(mut acc: MatMut<'_, f64>, z: MatRef<'_, f64>) {
+    let k = z.ncols();
+    let mut j0 = 0;
+    while j0 < k {
+        let w = GRAM_PANEL.min(k - j0);
+        matmul(
+            acc.rb_mut().submatrix_mut(j0, j0, k - j0, w),
+            Accum::Add,
+            z.subcols(j0, k - j0).transpose(),
+            z.subcols(j0, w),
+            1.0,
+            Par::Seq,
+        );
+        j0 += w;
+    }
 }

@@ -14,6 +14,7 @@
 
 pub(crate) mod cholesky;
 pub(crate) mod gram;
+pub(crate) mod kernels;
 pub(crate) mod qr;
 pub(crate) mod residuals;
 pub(crate) mod svd;
@@ -24,6 +25,7 @@ use ndarray::ArrayView2;
 
 /// Views an ndarray matrix as a faer matrix without copying, whatever its
 /// strides (row-major, column-major, sliced, transposed, negative strides).
+#[allow(dead_code)]
 pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
     let (n, p) = x.dim();
     let strides = x.strides();
@@ -34,10 +36,20 @@ pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
 }
 
 /// Rows per block for a transformed design with `k` columns: about 2 MiB of
-/// block, at least `2 k` rows so that a stacked QR stays tall.
+/// block, at least `2 k` rows so that a stacked QR stays tall. (Kept for
+/// passes of other modules; the Gram and QR passes size their own blocks.)
+#[allow(dead_code)]
 pub(crate) fn block_rows(k: usize) -> usize {
     let target = (1usize << 18) / k.max(1);
     target.clamp(256, 8192).max(2 * k)
+}
+
+/// Rows per block of the Gram pass: about 512 KiB of block (it is written
+/// by the fill and read back by the product while it is still in the
+/// core's second-level cache), at least 256 rows so that each product
+/// amortises its packing.
+pub(crate) fn gram_block_rows(k: usize) -> usize {
+    ((1usize << 16) / k.max(1)).clamp(256, 4096)
 }
 
 /// Splits `0..n` into consecutive ranges of `block` rows, grouped into at
