@@ -126,7 +126,7 @@ impl LinearModel {
                 });
             }
         }
-        Ok(self.predict(x)? - &y)
+        Ok(self.predict(x)? - y)
     }
 
     /// The squared loss `(1 / 2n) sum_i (y_hat_i - y_i)^2` on the given data.

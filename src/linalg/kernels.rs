@@ -91,7 +91,7 @@ pub(crate) struct ColumnSummary {
     pub comp: Vec<f64>,
     pub min: Vec<f64>,
     pub max: Vec<f64>,
-    /// `sum_i (x_ij - x_ij)`: 0 while every value seen is finite, NaN after.
+    /// `sum_i 0 * x_ij`: 0 while every value seen is finite, NaN after.
     pub check: Vec<f64>,
 }
 
@@ -117,7 +117,7 @@ impl ColumnSummary {
         let ck = &mut self.check[..n];
         for j in 0..n {
             let v = x[j];
-            ck[j] += v - v;
+            ck[j] += v * 0.0;
             let a = if weighted { w * v } else { v };
             let t = s[j] + a;
             let bp = t - s[j];
@@ -134,7 +134,7 @@ impl ColumnSummary {
         let n = x.len();
         let ck = &mut self.check[..n];
         for j in 0..n {
-            ck[j] += x[j] - x[j];
+            ck[j] += x[j] * 0.0;
         }
     }
 

@@ -24,7 +24,7 @@ use faer::linalg::qr::no_pivoting::factor::{
     qr_in_place, qr_in_place_scratch, recommended_block_size,
 };
 use faer::reborrow::{Reborrow, ReborrowMut};
-use faer::{Accum, Mat, MatMut, Par};
+use faer::{Accum, Mat, MatMut, MatRef, Par};
 use rayon::prelude::*;
 
 use super::{block_groups, kernels};
@@ -46,18 +46,22 @@ pub(crate) fn row_stride(k: usize) -> usize {
 /// Rows per block of the TSQR pass: about 1 MiB of block, so that the block
 /// stays in a core's second-level cache while it is factored.
 pub(crate) fn qr_block_rows(k: usize) -> usize {
-    ((1usize << 17) / row_stride(k)).clamp(64, 4096)
+    ((1usize << 16) / row_stride(k)).clamp(64, 4096)
 }
 
 /// Workspace of [`stacked_qr`], reused across blocks.
 pub(crate) struct StackedQrWork {
     w: Mat<f64>,
+    /// The current panel, one 64-byte-aligned line of [`PANEL`] values per
+    /// row (plus room to align the start).
+    panel: Vec<f64>,
 }
 
 impl StackedQrWork {
     pub fn new(k: usize) -> Self {
         StackedQrWork {
             w: Mat::zeros(PANEL, k),
+            panel: Vec::new(),
         }
     }
 }
@@ -74,6 +78,12 @@ pub(crate) fn row_major_mut(
     let used = if rows == 0 { 0 } else { (rows - 1) * ld + cols };
     MatMut::from_column_major_slice_with_stride_mut(&mut slice[..used], cols, rows, ld)
         .transpose_mut()
+}
+
+/// A row-major `rows x cols` view of `slice` with row stride `ld`.
+pub(crate) fn row_major_ref(slice: &[f64], rows: usize, cols: usize, ld: usize) -> MatRef<'_, f64> {
+    let used = if rows == 0 { 0 } else { (rows - 1) * ld + cols };
+    MatRef::from_column_major_slice_with_stride(&slice[..used], cols, rows, ld).transpose()
 }
 
 /// `sqrt(sum v^2)` over column `j` of a row-major block, safe from
@@ -132,23 +142,35 @@ pub(crate) fn stacked_qr(
     let mut j0 = 0;
     while j0 < k {
         let jn = PANEL.min(k - j0);
+        // The panel's columns, gathered into aligned lines: the passes below
+        // then read one cache line per row (from the first-level cache for
+        // blocks of up to about 600 rows).
+        let mut panel = std::mem::take(&mut work.panel);
+        if panel.len() < len * PANEL + PANEL {
+            panel.resize(len * PANEL + PANEL, 0.0);
+        }
+        let start = panel.as_ptr().align_offset(64).min(PANEL);
+        let pan = &mut panel[start..start + len * PANEL];
+        for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
+            line.copy_from_slice(&row[j0..j0 + PANEL]);
+        }
         let mut tau = [0.0f64; PANEL];
         // s[l][c] = v_l . v_c (the reflectors' parts in B), l < c.
         let mut s = [[0.0f64; PANEL]; PANEL];
         let mut sum_sq = kernels::dispatch(
             #[inline(always)]
-            || column_sum_sq(b, ld, len, j0),
+            || column_sum_sq(pan, PANEL, len, 0),
         );
         for jj in 0..jn {
             let j = j0 + jj;
             let alpha = r[(j, j)];
-            let xnorm = column_norm(b, ld, len, j, sum_sq);
+            let xnorm = column_norm(pan, PANEL, len, jj, sum_sq);
             if xnorm == 0.0 {
                 // Nothing below the diagonal: the reflector is the identity.
                 if jj + 1 < jn {
                     sum_sq = kernels::dispatch(
                         #[inline(always)]
-                        || column_sum_sq(b, ld, len, j + 1),
+                        || column_sum_sq(pan, PANEL, len, jj + 1),
                     );
                 }
                 continue;
@@ -161,7 +183,7 @@ pub(crate) fn stacked_qr(
             // Pass 1: v = B[:, j] * scal; d[l] = v . B[:, j0 + l].
             let d = kernels::dispatch(
                 #[inline(always)]
-                || panel_scale_dot(b, ld, len, j0, jj, scal),
+                || panel_scale_dot(pan, PANEL, len, 0, jj, scal),
             );
             s[..jj]
                 .iter_mut()
@@ -177,14 +199,14 @@ pub(crate) fn stacked_qr(
                 // Pass 2: B[:, j0 + l] -= tw[l] v, and the next column's norm.
                 sum_sq = kernels::dispatch(
                     #[inline(always)]
-                    || panel_update(b, ld, len, j0, jj, &tw),
+                    || panel_update(pan, PANEL, len, 0, jj, &tw),
                 );
             }
         }
-        let nt = k - (j0 + jn);
-        if nt > 0 {
-            apply_panel(r.rb_mut(), b, ld, len, j0, jn, &tau, &s, work);
+        if j0 + jn < k {
+            apply_panel(r.rb_mut(), pan, b, ld, len, j0, jn, &tau, &s, &mut work.w);
         }
+        work.panel = panel;
         j0 += jn;
     }
 }
@@ -220,8 +242,8 @@ fn panel_scale_dot(
         s0[jj] = v0;
         s1[jj] = v1;
         for l in 0..PANEL {
-            d0[l] += v0 * s0[l];
-            d1[l] += v1 * s1[l];
+            d0[l] = v0.mul_add(s0[l], d0[l]);
+            d1[l] = v1.mul_add(s1[l], d1[l]);
         }
     }
     let rest = pairs.into_remainder();
@@ -230,7 +252,7 @@ fn panel_scale_dot(
         let v = seg[jj] * scal;
         seg[jj] = v;
         for l in 0..PANEL {
-            d0[l] += v * seg[l];
+            d0[l] = v.mul_add(seg[l], d0[l]);
         }
     }
     let mut out = [0.0f64; PANEL];
@@ -268,29 +290,30 @@ fn panel_update(
         let v0 = s0[jj];
         let v1 = s1[jj];
         for l in 0..PANEL {
-            s0[l] -= tw[l] * v0;
-            s1[l] -= tw[l] * v1;
+            s0[l] = (-tw[l]).mul_add(v0, s0[l]);
+            s1[l] = (-tw[l]).mul_add(v1, s1[l]);
         }
-        a0 += s0[next] * s0[next];
-        a1 += s1[next] * s1[next];
+        a0 = s0[next].mul_add(s0[next], a0);
+        a1 = s1[next].mul_add(s1[next], a1);
     }
     let rest = pairs.into_remainder();
     if rest.len() >= j0 + PANEL {
         let seg = &mut rest[j0..j0 + PANEL];
         let v = seg[jj];
         for l in 0..PANEL {
-            seg[l] -= tw[l] * v;
+            seg[l] = (-tw[l]).mul_add(v, seg[l]);
         }
-        a0 += seg[next] * seg[next];
+        a0 = seg[next].mul_add(seg[next], a0);
     }
     a0 + a1
 }
 
 /// Applies the panel's block reflector `I - V T V^T` (transposed) to the
 /// columns right of the panel, in `R` and in `B`.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
 fn apply_panel(
     mut r: MatMut<'_, f64>,
+    pan: &[f64],
     b: &mut [f64],
     ld: usize,
     len: usize,
@@ -298,7 +321,7 @@ fn apply_panel(
     jn: usize,
     tau: &[f64; PANEL],
     s: &[[f64; PANEL]; PANEL],
-    work: &mut StackedQrWork,
+    w_store: &mut Mat<f64>,
 ) {
     let k = r.ncols();
     let c0 = j0 + jn;
@@ -320,12 +343,11 @@ fn apply_panel(
             tm[row][i] = acc;
         }
     }
+    let v = row_major_ref(pan, len, jn, PANEL);
     let mut whole = row_major_mut(b, len, ld, ld);
-    let (left, right) = whole.rb_mut().split_at_col_mut(c0);
-    let v = left.rb().subcols(j0, jn);
-    let mut trail = right.subcols_mut(0, nt);
+    let mut trail = whole.rb_mut().subcols_mut(c0, nt);
     // W = R[panel rows, trail] + V^T B[:, trail]
-    let mut w = work.w.as_mut().submatrix_mut(0, 0, jn, nt);
+    let mut w = w_store.as_mut().submatrix_mut(0, 0, jn, nt);
     w.copy_from(r.rb().submatrix(j0, c0, jn, nt));
     matmul(
         w.rb_mut(),
