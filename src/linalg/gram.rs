@@ -3,9 +3,8 @@
 use faer::linalg::matmul::matmul;
 use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
-use rayon::prelude::*;
 
-use super::{block_groups, gram_block_rows, GROUPS};
+use super::{block_groups, gram_block_rows, tree_reduce, GROUPS};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -14,13 +13,13 @@ use crate::problem::Problem;
 /// `with_target`, so that `Z^T y` and `y^T y` come with it).
 ///
 /// Each group of row blocks accumulates its own lower triangle with a
-/// symmetric rank-k update (half the flops of a general product, faer's
+/// symmetric rank-k update (by panels, see [`lower_gram_add`]; faer's
 /// sequential kernel); groups run in parallel and are summed in a fixed
-/// order, so the result does not depend on the thread count. A block is
+/// binary tree, so the result does not depend on the thread count. A block is
 /// filled in the layout the design can be read in contiguously (transposed,
 /// `k x rows`, for a row-major design) and sized to stay in the core's
 /// second-level cache. Extra memory: one block and one `k x k` matrix per
-/// group.
+/// thread and level of the tree (about `threads * (1 + log2 64)` matrices).
 pub(crate) fn centered_gram(
     problem: &Problem<'_>,
     scaling: &Scaling,
@@ -34,48 +33,46 @@ pub(crate) fn centered_gram(
     let design = problem.design();
     let strides = design.strides();
     let by_columns = strides[0] == 1 && strides[1] != 1;
-    let partials: Vec<Mat<f64>> = groups
-        .par_iter()
-        .map(|group| {
-            let mut acc = Mat::<f64>::zeros(k, k);
-            let mut block = if by_columns {
-                Mat::<f64>::zeros(b, k)
+    let leaf = |group: &[(usize, usize)]| {
+        let mut acc = Mat::<f64>::zeros(k, k);
+        let mut block = if by_columns {
+            Mat::<f64>::zeros(b, k)
+        } else {
+            Mat::<f64>::zeros(k, b)
+        };
+        for &(r0, r1) in group {
+            let len = r1 - r0;
+            // `z` is the `len x k` block of Z, whatever its storage.
+            let z = if by_columns {
+                let mut z = block.as_mut().subrows_mut(0, len);
+                fill_block(problem, scaling, r0, r1, with_target, z.rb_mut());
+                z.into_const()
             } else {
-                Mat::<f64>::zeros(k, b)
+                let mut zt = block.as_mut().subcols_mut(0, len);
+                fill_block(
+                    problem,
+                    scaling,
+                    r0,
+                    r1,
+                    with_target,
+                    zt.rb_mut().transpose_mut(),
+                );
+                zt.into_const().transpose()
             };
-            for &(r0, r1) in group {
-                let len = r1 - r0;
-                // `z` is the `len x k` block of Z, whatever its storage.
-                let z = if by_columns {
-                    let mut z = block.as_mut().subrows_mut(0, len);
-                    fill_block(problem, scaling, r0, r1, with_target, z.rb_mut());
-                    z.into_const()
-                } else {
-                    let mut zt = block.as_mut().subcols_mut(0, len);
-                    fill_block(
-                        problem,
-                        scaling,
-                        r0,
-                        r1,
-                        with_target,
-                        zt.rb_mut().transpose_mut(),
-                    );
-                    zt.into_const().transpose()
-                };
-                lower_gram_add(acc.as_mut(), z);
-            }
-            acc
-        })
-        .collect();
-    let mut g = Mat::<f64>::zeros(k, k);
-    for part in &partials {
+            lower_gram_add(acc.as_mut(), z);
+        }
+        acc
+    };
+    // The panels also fill part of the upper triangle: sum the lower only.
+    let merge = |mut a: Mat<f64>, b: Mat<f64>| {
         for j in 0..k {
-            // The panels also filled part of the upper triangle: read the lower.
             for i in j..k {
-                g[(i, j)] += part[(i, j)];
+                a[(i, j)] += b[(i, j)];
             }
         }
-    }
+        a
+    };
+    let mut g = tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k));
     for j in 0..k {
         for i in (j + 1)..k {
             g[(j, i)] = g[(i, j)];

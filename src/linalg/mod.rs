@@ -67,3 +67,33 @@ pub(crate) fn block_groups(n: usize, block: usize, max_groups: usize) -> Vec<Vec
 
 /// Number of groups used by the parallel passes (fixed, not the thread count).
 pub(crate) const GROUPS: usize = 64;
+
+/// Computes one partial result per group (`leaf`) and folds them (`merge`)
+/// in a fixed binary tree, in parallel. The tree's shape depends on the
+/// number of groups only, so the result does not depend on the thread
+/// count; and since each level of the tree waits for at most one finished
+/// half, only about `threads * log2(groups)` partial results are alive at
+/// once (not one per group). `None` for no groups.
+pub(crate) fn tree_reduce<T, L, M>(groups: &[Vec<(usize, usize)>], leaf: &L, merge: &M) -> Option<T>
+where
+    T: Send,
+    L: Fn(&[(usize, usize)]) -> T + Sync,
+    M: Fn(T, T) -> T + Sync,
+{
+    match groups.len() {
+        0 => None,
+        1 => Some(leaf(&groups[0])),
+        len => {
+            let (left, right) = groups.split_at(len / 2);
+            let (a, b) = rayon::join(
+                || tree_reduce(left, leaf, merge),
+                || tree_reduce(right, leaf, merge),
+            );
+            match (a, b) {
+                (Some(a), Some(b)) => Some(merge(a, b)),
+                (a, None) => a,
+                (None, b) => b,
+            }
+        }
+    }
+}

@@ -5,10 +5,11 @@
 //! Householder QR of the stack `[R; B]` that knows the stack's structure
 //! (the reflector of column `j` touches row `j` of `R` and the rows of `B`
 //! only, so no arithmetic is spent on the zeros of `R`). The groups'
-//! triangles are then folded together in a fixed order. `Q` is never
-//! formed. This is as stable as one Householder QR of the whole matrix,
-//! and needs one block of extra memory per group instead of a copy of the
-//! design.
+//! triangles are then folded together in a fixed binary tree, in parallel
+//! (the same tree for any thread count). `Q` is never formed. This is as
+//! stable as one Householder QR of the whole matrix, and needs one
+//! block and one triangle of extra memory per thread and tree level instead
+//! of a copy of the design.
 //!
 //! The block is stored row by row (the layout a row-major design is read in
 //! cheaply). Columns are factored in panels of [`PANEL`] = 8 columns, which
@@ -25,9 +26,8 @@ use faer::linalg::qr::no_pivoting::factor::{
 };
 use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
-use rayon::prelude::*;
 
-use super::{block_groups, kernels};
+use super::{block_groups, kernels, tree_reduce};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -43,10 +43,11 @@ pub(crate) fn row_stride(k: usize) -> usize {
     k.div_ceil(PANEL).max(1) * PANEL
 }
 
-/// Rows per block of the TSQR pass: about 1 MiB of block, so that the block
-/// stays in a core's second-level cache while it is factored.
+/// Rows per block of the TSQR pass: about 512 KiB of block (at least 256
+/// rows), so that the block stays in a core's second-level cache and the
+/// panel of a block of up to about 600 rows in the first-level cache.
 pub(crate) fn qr_block_rows(k: usize) -> usize {
-    ((1usize << 16) / row_stride(k)).clamp(64, 4096)
+    ((1usize << 16) / row_stride(k)).clamp(256, 4096)
 }
 
 /// Workspace of [`stacked_qr`], reused across blocks.
@@ -389,35 +390,35 @@ pub(crate) fn tall_skinny_r(
     let k = problem.cols() + usize::from(with_target);
     let ld = row_stride(k);
     let b = qr_block_rows(k);
-    let groups = block_groups(problem.rows(), b, QR_GROUPS);
-    let partials: Vec<Mat<f64>> = groups
-        .par_iter()
-        .map(|group| {
-            let mut r = Mat::<f64>::zeros(k, k);
-            let mut buf = vec![0.0f64; b * ld];
-            let mut work = StackedQrWork::new(k);
-            for &(r0, r1) in group {
-                let len = r1 - r0;
-                let out = row_major_mut(&mut buf, len, k, ld);
-                fill_block(problem, scaling, r0, r1, with_target, out);
-                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
-            }
-            r
-        })
-        .collect();
-    let mut parts = partials.into_iter();
-    let mut r = parts.next().unwrap_or_else(|| Mat::zeros(k, k));
-    let mut buf = vec![0.0f64; k * ld];
-    let mut work = StackedQrWork::new(k);
-    for part in parts {
+    // Folding two triangles costs about as much as factoring `k` rows, so
+    // every group gets at least `8 k` rows (a wide design gets one group).
+    let max_groups = (problem.rows() / (8 * k.max(1))).clamp(1, QR_GROUPS);
+    let groups = block_groups(problem.rows(), b, max_groups);
+    let leaf = |group: &[(usize, usize)]| {
+        let mut r = Mat::<f64>::zeros(k, k);
+        let mut buf = vec![0.0f64; b * ld];
+        let mut work = StackedQrWork::new(k);
+        for &(r0, r1) in group {
+            let len = r1 - r0;
+            let out = row_major_mut(&mut buf, len, k, ld);
+            fill_block(problem, scaling, r0, r1, with_target, out);
+            stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+        }
+        r
+    };
+    // Folding triangle `b` into `a`: the QR of `[a; b]`.
+    let merge = |mut a: Mat<f64>, part: Mat<f64>| {
+        let mut buf = vec![0.0f64; k * ld];
         for i in 0..k {
-            for j in 0..k {
+            for j in i..k {
                 buf[i * ld + j] = part[(i, j)];
             }
         }
-        stacked_qr(r.as_mut(), &mut buf, ld, k, &mut work);
-    }
-    r
+        let mut work = StackedQrWork::new(k);
+        stacked_qr(a.as_mut(), &mut buf, ld, k, &mut work);
+        a
+    };
+    tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k))
 }
 
 /// Householder QR of a small dense matrix (copied): returns the thin `Q`
