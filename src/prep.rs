@@ -99,15 +99,14 @@ pub(crate) fn fill_block(
         let done = kernels::dispatch(
             #[inline(always)]
             || {
-                for (local, xr) in xb.rows().into_iter().enumerate() {
+                kernels::for_each_row(xb, |local, xs| {
                     let i = r0 + local;
-                    let (Some(xs), Some(o)) = (
-                        xr.to_slice(),
-                        out.rb_mut()
-                            .row_mut(local)
-                            .try_as_row_major_mut()
-                            .map(|r| r.as_slice_mut()),
-                    ) else {
+                    let Some(o) = out
+                        .rb_mut()
+                        .row_mut(local)
+                        .try_as_row_major_mut()
+                        .map(|r| r.as_slice_mut())
+                    else {
                         return false;
                     };
                     let sw = problem.scaled_weight(i).sqrt();
@@ -115,8 +114,8 @@ pub(crate) fn fill_block(
                     if with_target {
                         o[p] = sw * ((y[i] - ym) * inv_sy);
                     }
-                }
-                true
+                    true
+                })
             },
         );
         if done {

@@ -5,10 +5,12 @@
 //! compiles it once per instruction set (AVX2 + FMA where the processor has
 //! them, the x86-64 baseline otherwise) and picks the best at run time, so a
 //! default release build is fast without `target-cpu=native`. Every kernel
-//! fixes its order of operations (eight lanes, a fixed lane reduction, no
-//! fused multiply-add), so its result does not depend on the instruction set
-//! picked.
+//! fixes its order of operations (eight lanes, a fixed lane reduction, and
+//! fused multiply-adds only where written as `mul_add`, which rounds once on
+//! every instruction set), so its result does not depend on the instruction
+//! set picked.
 
+use ndarray::{ArrayView2, Axis};
 use pulp::{Simd, WithSimd};
 
 /// Lanes of the kernels' accumulators.
@@ -28,6 +30,40 @@ pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
     pulp::Arch::new().dispatch(Op(f))
 }
 
+/// Calls `f(local_row, row)` for every row of `xb`, each row as a slice.
+/// A block in standard (row-major, packed) order is split from one slice,
+/// which costs nothing per row; other layouts with contiguous rows go
+/// through one view per row. Returns `false` (after calling `f` on some
+/// rows or none) when a row is not contiguous, or when `f` returns `false`.
+#[inline(always)]
+pub(crate) fn for_each_row<'a>(
+    xb: ArrayView2<'a, f64>,
+    mut f: impl FnMut(usize, &'a [f64]) -> bool,
+) -> bool {
+    let p = xb.ncols();
+    if p > 0 {
+        if let Some(all) = xb.to_slice() {
+            for (local, row) in all.chunks_exact(p).enumerate() {
+                if !f(local, row) {
+                    return false;
+                }
+            }
+            return true;
+        }
+    }
+    for local in 0..xb.nrows() {
+        match xb.index_axis_move(Axis(0), local).to_slice() {
+            Some(xs) => {
+                if !f(local, xs) {
+                    return false;
+                }
+            }
+            None => return false,
+        }
+    }
+    true
+}
+
 /// `out[j] = sw * ((x[j] - m[j]) * inv[j])` for `j < x.len()`.
 #[inline(always)]
 pub(crate) fn center_scale(x: &[f64], m: &[f64], inv: &[f64], sw: f64, out: &mut [f64]) {
@@ -38,7 +74,8 @@ pub(crate) fn center_scale(x: &[f64], m: &[f64], inv: &[f64], sw: f64, out: &mut
     }
 }
 
-/// `sum_j (x[j] - m[j]) * b[j]`, in eight lanes reduced in a fixed order.
+/// `sum_j (x[j] - m[j]) * b[j]`, in eight lanes reduced in a fixed order
+/// (each term added by one fused multiply-add).
 #[inline(always)]
 pub(crate) fn centered_dot(x: &[f64], m: &[f64], b: &[f64]) -> f64 {
     let n = x.len();
@@ -49,14 +86,47 @@ pub(crate) fn centered_dot(x: &[f64], m: &[f64], b: &[f64]) -> f64 {
     while j < whole {
         let (xs, ms, bs) = (&x[j..j + LANES], &m[j..j + LANES], &b[j..j + LANES]);
         for l in 0..LANES {
-            acc[l] += (xs[l] - ms[l]) * bs[l];
+            acc[l] = (xs[l] - ms[l]).mul_add(bs[l], acc[l]);
         }
         j += LANES;
     }
     for (l, jj) in (whole..n).enumerate() {
-        acc[l] += (x[jj] - m[jj]) * b[jj];
+        acc[l] = (x[jj] - m[jj]).mul_add(b[jj], acc[l]);
     }
     reduce(acc)
+}
+
+/// `sum_j (x_r[j] - m[j]) * b[j]` for four rows at once (four independent
+/// chains of eight lanes, sharing the loads of `m` and `b`); each row's sum
+/// is formed exactly as [`centered_dot`] forms it.
+#[inline(always)]
+pub(crate) fn centered_dot4(x: [&[f64]; 4], m: &[f64], b: &[f64]) -> [f64; 4] {
+    let n = m.len().min(b.len());
+    let x = [&x[0][..n], &x[1][..n], &x[2][..n], &x[3][..n]];
+    let mut acc = [[0.0f64; LANES]; 4];
+    let whole = n - n % LANES;
+    let mut j = 0;
+    while j < whole {
+        let (ms, bs) = (&m[j..j + LANES], &b[j..j + LANES]);
+        for (a, xr) in acc.iter_mut().zip(&x) {
+            let xs = &xr[j..j + LANES];
+            for l in 0..LANES {
+                a[l] = (xs[l] - ms[l]).mul_add(bs[l], a[l]);
+            }
+        }
+        j += LANES;
+    }
+    for (a, xr) in acc.iter_mut().zip(&x) {
+        for (l, jj) in (whole..n).enumerate() {
+            a[l] = (xr[jj] - m[jj]).mul_add(b[jj], a[l]);
+        }
+    }
+    [
+        reduce(acc[0]),
+        reduce(acc[1]),
+        reduce(acc[2]),
+        reduce(acc[3]),
+    ]
 }
 
 /// Sum of the lanes in a fixed (pairwise) order.

@@ -67,12 +67,30 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
                 #[inline(always)]
                 || {
                     let mut acc = 0.0;
-                    for (local, row) in xb.rows().into_iter().enumerate() {
-                        let i = r0 + local;
+                    let mut add = |i: usize, fit: f64| {
                         let w = problem.scaled_weight(i);
-                        if w == 0.0 {
-                            continue;
+                        if w != 0.0 {
+                            let r = ((y[i] - ym) - fit) * inv;
+                            acc += w * r * r;
                         }
+                    };
+                    let len = r1 - r0;
+                    let mut local = 0;
+                    if let (Some(all), true) = (xb.to_slice(), p > 0) {
+                        // Packed rows: four at a time, four independent sums.
+                        for four in all.chunks_exact(4 * p) {
+                            let (a, rest) = four.split_at(p);
+                            let (b, rest) = rest.split_at(p);
+                            let (c, d) = rest.split_at(p);
+                            let fits = kernels::centered_dot4([a, b, c, d], means, beta);
+                            for (q, fit) in fits.into_iter().enumerate() {
+                                add(r0 + local + q, fit);
+                            }
+                            local += 4;
+                        }
+                    }
+                    for l in local..len {
+                        let row = xb.row(l);
                         let fit = match row.to_slice() {
                             Some(xs) => kernels::centered_dot(xs, means, beta),
                             None => row
@@ -82,8 +100,7 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
                                 .map(|((&v, &m), &b)| (v - m) * b)
                                 .sum(),
                         };
-                        let r = ((y[i] - ym) - fit) * inv;
-                        acc += w * r * r;
+                        add(r0 + l, fit);
                     }
                     acc
                 },
