@@ -255,3 +255,23 @@ fn fits_do_not_depend_on_the_thread_count() {
         assert_eq!(fits[0], fits[1], "{}", solver.name());
     }
 }
+
+/// Identity: with no columns the fit is the (weighted) mean, and the
+/// residual sum of squares is the sum of squared deviations from it.
+#[test]
+fn intercept_only_fits_the_mean() {
+    let n = 9000;
+    let x = Array2::<f64>::zeros((n, 0));
+    let y = Array1::from_shape_fn(n, |i| 50.0 + ((i * 7) % 13) as f64);
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let mean = y.sum() / n as f64;
+    let ss: f64 = y.iter().map(|v| (v - mean) * (v - mean)).sum();
+    let solvers: [&dyn Solver; 3] = [&Qr::default(), &Cholesky::default(), &Svd::default()];
+    for solver in solvers {
+        let fit = solver.fit(&problem).expect("fit");
+        assert!(fit.model.coefficients().is_empty());
+        assert!((fit.model.intercept() - mean).abs() <= 1e-12 * mean, "{}", solver.name());
+        let rss = fit.report.residual_sum_of_squares;
+        assert!((rss - ss).abs() <= 1e-9 * ss, "{}: {rss} vs {ss}", solver.name());
+    }
+}
