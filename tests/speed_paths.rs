@@ -275,3 +275,32 @@ fn intercept_only_fits_the_mean() {
         assert!((rss - ss).abs() <= 1e-9 * ss, "{}: {rss} vs {ss}", solver.name());
     }
 }
+
+/// An exactly duplicated column (identity: column 4 = column 1) spread over
+/// many row blocks: the block QR finds it (QR names it; Cholesky refuses
+/// with the same diagnosis), and the SVD's minimum-norm fit splits the
+/// duplicated coefficient equally between the two copies.
+#[test]
+fn duplicated_column_is_found_by_the_block_qr() {
+    let (n, p) = (20_000, 5);
+    let (mut x, _, _) = data(n, p, 13);
+    for i in 0..n {
+        x[(i, 4)] = x[(i, 1)];
+    }
+    let y = Array1::from_shape_fn(n, |i| 2.0 * x[(i, 0)] + 3.0 * x[(i, 1)] - x[(i, 2)] + 0.5);
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    for solver in [&Qr::default() as &dyn Solver, &Cholesky::default()] {
+        match solver.fit(&problem) {
+            Err(Error::RankDeficient { rank, dependent, .. }) => {
+                assert_eq!((rank, dependent), (4, vec![4]), "{}", solver.name());
+            }
+            other => panic!("{}: expected RankDeficient, got {other:?}", solver.name()),
+        }
+    }
+    let fit = Svd::default().fit(&problem).expect("fit");
+    let b = fit.model.coefficients();
+    assert_eq!(fit.report.rank, 4);
+    for (got, want) in b.iter().zip([2.0, 1.5, -1.0, 0.0, 1.5]) {
+        assert!((got - want).abs() <= 1e-8, "{b:?}");
+    }
+}
