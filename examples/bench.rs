@@ -428,12 +428,14 @@ fn run(o: &Options) {
             continue;
         }
         let solver = make();
-        let t = time(r, &mut || match solver.fit(&problem) {
-            Ok(fit) => fit.report.residual_sum_of_squares,
-            Err(err) => {
-                eprintln!("{name}: {err}");
-                f64::NAN
-            }
+        if let Err(err) = solver.fit(&problem) {
+            eprintln!("{name}: {err}");
+            continue;
+        }
+        let t = time(r, &mut || {
+            solver
+                .fit(&problem)
+                .map_or(f64::NAN, |fit| fit.report.residual_sum_of_squares)
         });
         let work = if *name == "cholesky" {
             gram_work
@@ -443,7 +445,12 @@ fn run(o: &Options) {
         push(name, "solver", Some(*floor), t, work);
     }
 
-    if o.baselines {
+    // The straightforward least-squares calls need at least as many rows as
+    // unknowns (they would stop the program otherwise).
+    if o.baselines && n < k {
+        eprintln!("baselines skipped: {n} rows < {k} unknowns");
+    }
+    if o.baselines && n >= k {
         let d = dense(&x, &y, o.intercept);
         for (name, versus, f) in BASELINES {
             if !o.solvers.iter().any(|s| s == versus) {
