@@ -11,7 +11,8 @@
 //! `--threads T` (default: rayon's global pool; otherwise every pass runs
 //! inside a pool of T threads), `--repeats R` (timed runs after one warm-up,
 //! default 5; the median is reported), `--seed S`, `--no-intercept`,
-//! `--no-baselines` (skip the straightforward versions), `--json` (one JSON
+//! `--no-baselines` (skip the straightforward versions), `--col-major` (store
+//! the design column by column instead of row by row), `--json` (one JSON
 //! object per line instead of the table).
 //!
 //! Floors: `gram` is the symmetric Gram matrix of the centered, scaled design
@@ -32,7 +33,7 @@ use faer::linalg::solvers::SolveLstsq;
 use faer::{Mat, Par};
 use leastline::bench_support as floors;
 use leastline::{Cholesky, Problem, Qr, Solver, Svd};
-use ndarray::{Array1, Array2};
+use ndarray::{Array1, Array2, ShapeBuilder};
 
 #[path = "support/design.rs"]
 mod design;
@@ -248,12 +249,13 @@ struct Options {
     intercept: bool,
     baselines: bool,
     json: bool,
+    col_major: bool,
 }
 
 fn usage() -> ! {
     eprintln!(
         "usage: bench [--rows N] [--cols P] [--solvers a,b,...] [--threads T] [--repeats R] \
-         [--seed S] [--no-intercept] [--no-baselines] [--json]\nsolvers: {}",
+         [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json]\nsolvers: {}",
         SOLVERS.iter().map(|s| s.0).collect::<Vec<_>>().join(", ")
     );
     std::process::exit(2)
@@ -270,6 +272,7 @@ fn parse() -> Options {
         intercept: true,
         baselines: true,
         json: false,
+        col_major: false,
     };
     let mut args = std::env::args().skip(1);
     while let Some(a) = args.next() {
@@ -289,6 +292,7 @@ fn parse() -> Options {
             "--no-intercept" => o.intercept = false,
             "--no-baselines" => o.baselines = false,
             "--json" => o.json = true,
+            "--col-major" => o.col_major = true,
             _ => usage(),
         }
     }
@@ -370,6 +374,13 @@ fn run(o: &Options) {
     let (n, p) = (o.rows, o.cols);
     let k = p + 1;
     let (x, y) = make_data(n, p, o.seed);
+    let x = if o.col_major {
+        let mut f = Array2::<f64>::zeros((n, p).f());
+        f.assign(&x);
+        f
+    } else {
+        x
+    };
     let build = || {
         Problem::builder(x.view(), y.view())
             .intercept(o.intercept)

@@ -68,8 +68,9 @@ impl Scaling {
 /// Any layout of `out` works; the cheap ones are a row-major `out` (or the
 /// transposed view of a column-major `k x len` block) for a row-major
 /// design, and a column-major `out` for a column-major design: both read
-/// and write contiguously. A column-major `out` from a row-major design is
-/// transposed in tiles of [`TILE`] rows that stay in the first-level cache.
+/// and write contiguously. A column-major `out` from a row-major design, and
+/// a row-major `out` from a column-major design, are transposed in tiles of
+/// [`TILE`] rows that stay in the first-level cache.
 /// Every path computes the same values bit for bit.
 pub(crate) fn fill_block(
     problem: &Problem<'_>,
@@ -191,6 +192,49 @@ pub(crate) fn fill_block(
                 if done {
                     return;
                 }
+            }
+        }
+    }
+
+    // Column-major design, row-major output: transpose by tiles (each
+    // column's segment of a tile is read contiguously).
+    if col_contiguous && (out.col_stride() == 1 || out.ncols() <= 1) {
+        let rows: Option<Vec<&mut [f64]>> = out
+            .rb_mut()
+            .subrows_mut(0, len)
+            .row_iter_mut()
+            .map(|r| r.try_as_row_major_mut().map(|r| r.as_slice_mut()))
+            .collect();
+        if let Some(mut rows) = rows {
+            let sw: Vec<f64> = (r0..r1).map(|i| problem.scaled_weight(i).sqrt()).collect();
+            let done = kernels::dispatch(
+                #[inline(always)]
+                || {
+                    let mut t0 = 0;
+                    while t0 < len {
+                        let h = TILE.min(len - t0);
+                        for j in 0..p {
+                            let Some(xs) = xb.column(j).to_slice() else {
+                                return false;
+                            };
+                            let (m, is) = (means[j], inv[j]);
+                            for r in 0..h {
+                                rows[t0 + r][j] = sw[t0 + r] * ((xs[t0 + r] - m) * is);
+                            }
+                        }
+                        t0 += h;
+                    }
+                    true
+                },
+            );
+            if done {
+                if with_target {
+                    for (local, o) in rows.iter_mut().enumerate() {
+                        let i = r0 + local;
+                        o[p] = sw[local] * ((y[i] - ym) * inv_sy);
+                    }
+                }
+                return;
             }
         }
     }

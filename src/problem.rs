@@ -333,7 +333,7 @@ fn fast_chunk(
     let p = x.ncols();
     let xb = x.slice(s![r0..r1, ..]);
     if p > 1 && xb.strides()[1] != 1 {
-        return None;
+        return fast_chunk_by_columns(xb, y, w, weight_scale, r0, r1);
     }
     let (summary, mut part) = kernels::dispatch(
         #[inline(always)]
@@ -379,6 +379,93 @@ fn fast_chunk(
         .collect();
     part.min = summary.min;
     part.max = summary.max;
+    Some(part)
+}
+
+/// [`fast_chunk`] for a design whose columns are contiguous: four columns
+/// at a time, each column's rows in order (four independent chains), so the
+/// sums are the scalar scan's bit for bit.
+fn fast_chunk_by_columns(
+    xb: ArrayView2<'_, f64>,
+    y: &ArrayView1<'_, f64>,
+    w: Option<&ArrayView1<'_, f64>>,
+    weight_scale: f64,
+    r0: usize,
+    r1: usize,
+) -> Option<Partial> {
+    let p = xb.ncols();
+    let cols: Vec<&[f64]> = (0..p)
+        .map(|j| xb.index_axis_move(Axis(1), j).to_slice())
+        .collect::<Option<_>>()?;
+    let wts: Vec<f64> = (r0..r1)
+        .map(|i| w.map_or(1.0, |w| w[i] / weight_scale))
+        .collect();
+    let mut part = Partial {
+        sums: vec![Neumaier::default(); p],
+        min: vec![f64::INFINITY; p],
+        max: vec![f64::NEG_INFINITY; p],
+        ysum: Neumaier::default(),
+        ymin: f64::INFINITY,
+        ymax: f64::NEG_INFINITY,
+        wsum: Neumaier::default(),
+        usable: 0,
+    };
+    let finite = kernels::dispatch(
+        #[inline(always)]
+        || {
+            let mut finite = true;
+            let mut j = 0;
+            while j < p {
+                let q = (p - j).min(4);
+                let mut s = [0.0f64; 4];
+                let mut c = [0.0f64; 4];
+                let mut lo = [f64::INFINITY; 4];
+                let mut hi = [f64::NEG_INFINITY; 4];
+                let mut ck = [0.0f64; 4];
+                for (local, &wi) in wts.iter().enumerate() {
+                    for l in 0..q {
+                        let v = cols[j + l][local];
+                        ck[l] += v * 0.0;
+                        if wi == 0.0 {
+                            continue;
+                        }
+                        let a = if w.is_some() { wi * v } else { v };
+                        let t = s[l] + a;
+                        let bp = t - s[l];
+                        c[l] += (s[l] - (t - bp)) + (a - bp);
+                        s[l] = t;
+                        lo[l] = if v < lo[l] { v } else { lo[l] };
+                        hi[l] = if v > hi[l] { v } else { hi[l] };
+                    }
+                }
+                for l in 0..q {
+                    finite &= ck[l] == 0.0;
+                    part.sums[j + l] = Neumaier {
+                        sum: s[l],
+                        comp: c[l],
+                    };
+                    part.min[j + l] = lo[l];
+                    part.max[j + l] = hi[l];
+                }
+                j += q;
+            }
+            finite
+        },
+    );
+    if !finite {
+        return None;
+    }
+    for (local, &wi) in wts.iter().enumerate() {
+        if wi == 0.0 {
+            continue;
+        }
+        part.usable += 1;
+        part.wsum.add(wi);
+        let yi = y[r0 + local];
+        part.ysum.add(wi * yi);
+        part.ymin = part.ymin.min(yi);
+        part.ymax = part.ymax.max(yi);
+    }
     Some(part)
 }
 

@@ -129,9 +129,41 @@ fn column_sum_sq(b: &[f64], ld: usize, len: usize, j: usize) -> f64 {
 /// multiple of [`PANEL`] with zero padding columns) is overwritten by the
 /// reflectors.
 pub(crate) fn stacked_qr(
-    mut r: MatMut<'_, f64>,
+    r: MatMut<'_, f64>,
     b: &mut [f64],
     ld: usize,
+    len: usize,
+    work: &mut StackedQrWork,
+) {
+    stacked_qr_impl(r, b, Layout::Rows(ld), len, work);
+}
+
+/// [`stacked_qr`] for a block stored column by column: `B` is `len x k`
+/// with column stride `ld >= len` (the cheap layout to fill from a
+/// column-major design).
+pub(crate) fn stacked_qr_by_columns(
+    r: MatMut<'_, f64>,
+    b: &mut [f64],
+    ld: usize,
+    len: usize,
+    work: &mut StackedQrWork,
+) {
+    stacked_qr_impl(r, b, Layout::Cols(ld), len, work);
+}
+
+/// How a block of [`stacked_qr`] is stored.
+#[derive(Clone, Copy)]
+enum Layout {
+    /// Row by row with this row stride (a multiple of [`PANEL`], zero padding).
+    Rows(usize),
+    /// Column by column with this column stride.
+    Cols(usize),
+}
+
+fn stacked_qr_impl(
+    mut r: MatMut<'_, f64>,
+    b: &mut [f64],
+    layout: Layout,
     len: usize,
     work: &mut StackedQrWork,
 ) {
@@ -139,7 +171,11 @@ pub(crate) fn stacked_qr(
     if len == 0 || k == 0 {
         return;
     }
-    let b = &mut b[..len * ld];
+    let used = match layout {
+        Layout::Rows(ld) => len * ld,
+        Layout::Cols(ld) => (k - 1) * ld + len,
+    };
+    let b = &mut b[..used];
     let mut j0 = 0;
     while j0 < k {
         let jn = PANEL.min(k - j0);
@@ -152,8 +188,26 @@ pub(crate) fn stacked_qr(
         }
         let start = panel.as_ptr().align_offset(64).min(PANEL);
         let pan = &mut panel[start..start + len * PANEL];
-        for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
-            line.copy_from_slice(&row[j0..j0 + PANEL]);
+        match layout {
+            Layout::Rows(ld) => {
+                for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
+                    line.copy_from_slice(&row[j0..j0 + PANEL]);
+                }
+            }
+            Layout::Cols(ld) => {
+                for l in 0..PANEL {
+                    if l < jn {
+                        let col = &b[(j0 + l) * ld..(j0 + l) * ld + len];
+                        for (line, &v) in pan.chunks_exact_mut(PANEL).zip(col) {
+                            line[l] = v;
+                        }
+                    } else {
+                        for line in pan.chunks_exact_mut(PANEL) {
+                            line[l] = 0.0;
+                        }
+                    }
+                }
+            }
         }
         let mut tau = [0.0f64; PANEL];
         // s[l][c] = v_l . v_c (the reflectors' parts in B), l < c.
@@ -205,7 +259,12 @@ pub(crate) fn stacked_qr(
             }
         }
         if j0 + jn < k {
-            apply_panel(r.rb_mut(), pan, b, ld, len, j0, jn, &tau, &s, &mut work.w);
+            let mut whole = match layout {
+                Layout::Rows(ld) => row_major_mut(b, len, ld, ld),
+                Layout::Cols(ld) => MatMut::from_column_major_slice_with_stride_mut(b, len, k, ld),
+            };
+            let trail = whole.rb_mut().subcols_mut(j0 + jn, k - (j0 + jn));
+            apply_panel(r.rb_mut(), pan, trail, len, j0, jn, &tau, &s, &mut work.w);
         }
         work.panel = panel;
         j0 += jn;
@@ -315,8 +374,7 @@ fn panel_update(
 fn apply_panel(
     mut r: MatMut<'_, f64>,
     pan: &[f64],
-    b: &mut [f64],
-    ld: usize,
+    mut trail: MatMut<'_, f64>,
     len: usize,
     j0: usize,
     jn: usize,
@@ -345,8 +403,6 @@ fn apply_panel(
         }
     }
     let v = row_major_ref(pan, len, jn, PANEL);
-    let mut whole = row_major_mut(b, len, ld, ld);
-    let mut trail = whole.rb_mut().subcols_mut(c0, nt);
     // W = R[panel rows, trail] + V^T B[:, trail]
     let mut w = w_store.as_mut().submatrix_mut(0, 0, jn, nt);
     w.copy_from(r.rb().submatrix(j0, c0, jn, nt));
@@ -394,15 +450,28 @@ pub(crate) fn tall_skinny_r(
     // every group gets at least `8 k` rows (a wide design gets one group).
     let max_groups = (problem.rows() / (8 * k.max(1))).clamp(1, QR_GROUPS);
     let groups = block_groups(problem.rows(), b, max_groups);
+    // A column-major design is read column by column into a column-major
+    // block; any other layout row by row into a row-major block.
+    let design = problem.design();
+    let strides = design.strides();
+    let by_columns = problem.cols() > 1 && strides[0] == 1 && strides[1] != 1;
     let leaf = |group: &[(usize, usize)]| {
         let mut r = Mat::<f64>::zeros(k, k);
-        let mut buf = vec![0.0f64; b * ld];
+        let mut buf = vec![0.0f64; b * ld.max(k)];
         let mut work = StackedQrWork::new(k);
         for &(r0, r1) in group {
             let len = r1 - r0;
-            let out = row_major_mut(&mut buf, len, k, ld);
-            fill_block(problem, scaling, r0, r1, with_target, out);
-            stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+            if by_columns {
+                let used = (k - 1) * b + len;
+                let out =
+                    MatMut::from_column_major_slice_with_stride_mut(&mut buf[..used], len, k, b);
+                fill_block(problem, scaling, r0, r1, with_target, out);
+                stacked_qr_by_columns(r.as_mut(), &mut buf, b, len, &mut work);
+            } else {
+                let out = row_major_mut(&mut buf, len, k, ld);
+                fill_block(problem, scaling, r0, r1, with_target, out);
+                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+            }
         }
         r
     };
@@ -495,6 +564,28 @@ mod tests {
                 }
                 stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
                 r0 += len;
+            }
+            // The same stack stored column by column gives the same factor.
+            let mut rc = Mat::<f64>::zeros(k, k);
+            let mut r0 = 0;
+            while r0 < n {
+                let len = block.min(n - r0);
+                let mut buf = vec![0.0; k * len];
+                for i in 0..len {
+                    for j in 0..k {
+                        buf[j * len + i] = z[(r0 + i) * k + j];
+                    }
+                }
+                stacked_qr_by_columns(rc.as_mut(), &mut buf, len, len, &mut work);
+                r0 += len;
+            }
+            for i in 0..k {
+                for j in 0..k {
+                    assert!(
+                        (r[(i, j)] - rc[(i, j)]).abs() <= 1e-13 * (n as f64),
+                        "{n}x{k} cols R[{i},{j}]"
+                    );
+                }
             }
             for i in 0..k {
                 for j in 0..k {

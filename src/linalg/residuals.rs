@@ -127,8 +127,16 @@ pub(crate) fn design_sum(problem: &Problem<'_>) -> f64 {
                 #[inline(always)]
                 || {
                     let mut acc = [0.0; kernels::LANES];
+                    let by_columns = xb.ncols() > 1 && xb.strides()[0] == 1;
                     if let Some(all) = xb.as_slice_memory_order() {
                         kernels::accumulate(all, &mut acc);
+                    } else if by_columns {
+                        for col in xb.columns() {
+                            match col.to_slice() {
+                                Some(xs) => kernels::accumulate(xs, &mut acc),
+                                None => acc[0] += col.sum(),
+                            }
+                        }
                     } else {
                         for row in xb.rows() {
                             match row.to_slice() {
