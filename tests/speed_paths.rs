@@ -270,9 +270,17 @@ fn intercept_only_fits_the_mean() {
     for solver in solvers {
         let fit = solver.fit(&problem).expect("fit");
         assert!(fit.model.coefficients().is_empty());
-        assert!((fit.model.intercept() - mean).abs() <= 1e-12 * mean, "{}", solver.name());
+        assert!(
+            (fit.model.intercept() - mean).abs() <= 1e-12 * mean,
+            "{}",
+            solver.name()
+        );
         let rss = fit.report.residual_sum_of_squares;
-        assert!((rss - ss).abs() <= 1e-9 * ss, "{}: {rss} vs {ss}", solver.name());
+        assert!(
+            (rss - ss).abs() <= 1e-9 * ss,
+            "{}: {rss} vs {ss}",
+            solver.name()
+        );
     }
 }
 
@@ -291,7 +299,9 @@ fn duplicated_column_is_found_by_the_block_qr() {
     let problem = Problem::new(x.view(), y.view()).expect("valid");
     for solver in [&Qr::default() as &dyn Solver, &Cholesky::default()] {
         match solver.fit(&problem) {
-            Err(Error::RankDeficient { rank, dependent, .. }) => {
+            Err(Error::RankDeficient {
+                rank, dependent, ..
+            }) => {
                 assert_eq!((rank, dependent), (4, vec![4]), "{}", solver.name());
             }
             other => panic!("{}: expected RankDeficient, got {other:?}", solver.name()),
