@@ -40,6 +40,10 @@
 //! a fixed partition of the rows (results do not depend on the thread
 //! count). To bound the threads, run the fit inside your own pool:
 //! `rayon::ThreadPoolBuilder::new().num_threads(2).build()?.install(|| solver.fit(&problem))`.
+//! Every pass (validation, the Gram and QR passes, the residual pass) runs
+//! on the pool it is called from, and the dense kernels inside each task
+//! run sequentially, so the pool's size bounds the threads of the whole
+//! fit; the bench example's `--threads T` works this way.
 //!
 //! ## Features
 //!
@@ -54,6 +58,8 @@
 #![warn(clippy::unwrap_used)]
 #![doc(test(attr(deny(warnings))))]
 
+#[doc(hidden)]
+pub mod bench_support;
 pub mod error;
 pub mod gradient;
 pub mod inference;

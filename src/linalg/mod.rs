@@ -26,6 +26,7 @@ pub(crate) mod extended;
 pub(crate) mod gradient;
 pub(crate) mod gram;
 pub(crate) mod householder;
+pub(crate) mod kernels;
 pub(crate) mod leverage;
 pub(crate) mod loo;
 pub(crate) mod products;
@@ -39,6 +40,7 @@ use ndarray::ArrayView2;
 
 /// Views an ndarray matrix as a faer matrix without copying, whatever its
 /// strides (row-major, column-major, sliced, transposed, negative strides).
+#[allow(dead_code)]
 pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
     let (n, p) = x.dim();
     let strides = x.strides();
@@ -49,10 +51,20 @@ pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
 }
 
 /// Rows per block for a transformed design with `k` columns: about 2 MiB of
-/// block, at least `2 k` rows so that a stacked QR stays tall.
+/// block, at least `2 k` rows so that a stacked QR stays tall. (Kept for
+/// passes of other modules; the Gram and QR passes size their own blocks.)
+#[allow(dead_code)]
 pub(crate) fn block_rows(k: usize) -> usize {
     let target = (1usize << 18) / k.max(1);
     target.clamp(256, 8192).max(2 * k)
+}
+
+/// Rows per block of the Gram pass: about 512 KiB of block (it is written
+/// by the fill and read back by the product while it is still in the
+/// core's second-level cache), at least 256 rows so that each product
+/// amortises its packing.
+pub(crate) fn gram_block_rows(k: usize) -> usize {
+    ((1usize << 16) / k.max(1)).clamp(256, 4096)
 }
 
 /// Splits `0..n` into consecutive ranges of `block` rows, grouped into at
@@ -70,3 +82,33 @@ pub(crate) fn block_groups(n: usize, block: usize, max_groups: usize) -> Vec<Vec
 
 /// Number of groups used by the parallel passes (fixed, not the thread count).
 pub(crate) const GROUPS: usize = 64;
+
+/// Computes one partial result per group (`leaf`) and folds them (`merge`)
+/// in a fixed binary tree, in parallel. The tree's shape depends on the
+/// number of groups only, so the result does not depend on the thread
+/// count; and since each level of the tree waits for at most one finished
+/// half, only about `threads * log2(groups)` partial results are alive at
+/// once (not one per group). `None` for no groups.
+pub(crate) fn tree_reduce<T, L, M>(groups: &[Vec<(usize, usize)>], leaf: &L, merge: &M) -> Option<T>
+where
+    T: Send,
+    L: Fn(&[(usize, usize)]) -> T + Sync,
+    M: Fn(T, T) -> T + Sync,
+{
+    match groups.len() {
+        0 => None,
+        1 => Some(leaf(&groups[0])),
+        len => {
+            let (left, right) = groups.split_at(len / 2);
+            let (a, b) = rayon::join(
+                || tree_reduce(left, leaf, merge),
+                || tree_reduce(right, leaf, merge),
+            );
+            match (a, b) {
+                (Some(a), Some(b)) => Some(merge(a, b)),
+                (a, None) => a,
+                (None, b) => b,
+            }
+        }
+    }
+}

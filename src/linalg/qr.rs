@@ -1,30 +1,439 @@
 //! Householder QR of the tall centered design by row blocks (TSQR).
 //!
-//! Each group of consecutive row blocks is reduced to a `k x k` triangle by
-//! Householder QR of `[R; next block]`; the groups' triangles are then
-//! stacked and factored once more. `Q` is never formed. This is as stable
-//! as one Householder QR of the whole matrix, and needs one block of extra
-//! memory per group instead of a copy of the design.
+//! Each group of consecutive row blocks keeps a running `k x k` triangle
+//! `R`; every block `B` of transformed rows is folded into it by a
+//! Householder QR of the stack `[R; B]` that knows the stack's structure
+//! (the reflector of column `j` touches row `j` of `R` and the rows of `B`
+//! only, so no arithmetic is spent on the zeros of `R`). The groups'
+//! triangles are then folded together in a fixed binary tree, in parallel
+//! (the same tree for any thread count). `Q` is never formed. This is as
+//! stable as one Householder QR of the whole matrix, and needs one
+//! block and one triangle of extra memory per thread and tree level instead
+//! of a copy of the design.
+//!
+//! The block is stored row by row (the layout a row-major design is read in
+//! cheaply). Columns are factored in panels of [`PANEL`] = 8 columns, which
+//! are one cache line of a row: the reflectors of a panel are built with two
+//! vectorised passes over the block per column (the second also computes
+//! the next column's norm, the first also the products the panel's
+//! block-reflector factor `T` needs), and the rest of the block is updated
+//! with two matrix products per panel (faer's sequential kernel).
 
-use faer::reborrow::ReborrowMut;
-use faer::{Mat, MatMut};
-use rayon::prelude::*;
+use faer::linalg::matmul::matmul;
+use faer::reborrow::{Reborrow, ReborrowMut};
+use faer::{Accum, Mat, MatMut, MatRef, Par};
 
-use super::{block_groups, block_rows, GROUPS};
+use super::{block_groups, kernels, tree_reduce};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
-/// Factors `a` in place and leaves a `k x k` factor `R` with
-/// `R^T R = a^T a` in its top rows (everything else zeroed); see
-/// [`super::householder::reduce_to_square`] for rank-deficient blocks.
-fn qr_keep_r(a: MatMut<'_, f64>) -> bool {
-    super::householder::reduce_to_square(a)
+/// Columns per panel of the stacked QR (one 64-byte cache line of a row).
+pub(crate) const PANEL: usize = 8;
+
+/// Groups of the TSQR pass (fixed, not the thread count: their triangles
+/// are folded in order, so the result does not depend on the threads).
+const QR_GROUPS: usize = 16;
+
+/// Row stride of a block with `k` columns: `k` rounded up to whole panels.
+pub(crate) fn row_stride(k: usize) -> usize {
+    k.div_ceil(PANEL).max(1) * PANEL
+}
+
+/// Rows per block of the TSQR pass: about 512 KiB of block (at least 256
+/// rows), so that the block stays in a core's second-level cache and the
+/// panel of a block of up to about 600 rows in the first-level cache.
+pub(crate) fn qr_block_rows(k: usize) -> usize {
+    ((1usize << 16) / row_stride(k)).clamp(256, 4096)
+}
+
+/// Workspace of [`stacked_qr`], reused across blocks.
+pub(crate) struct StackedQrWork {
+    w: Mat<f64>,
+    /// The current panel, one 64-byte-aligned line of [`PANEL`] values per
+    /// row (plus room to align the start).
+    panel: Vec<f64>,
+}
+
+impl StackedQrWork {
+    pub fn new(k: usize) -> Self {
+        StackedQrWork {
+            w: Mat::zeros(PANEL, k),
+            panel: Vec::new(),
+        }
+    }
+}
+
+/// A row-major `rows x cols` view of `slice` with row stride `ld`.
+/// (Built as the transpose of a column-major view: faer 0.24.4's
+/// `from_row_major_slice_with_stride_mut` swaps the strides.)
+pub(crate) fn row_major_mut(
+    slice: &mut [f64],
+    rows: usize,
+    cols: usize,
+    ld: usize,
+) -> MatMut<'_, f64> {
+    let used = if rows == 0 { 0 } else { (rows - 1) * ld + cols };
+    MatMut::from_column_major_slice_with_stride_mut(&mut slice[..used], cols, rows, ld)
+        .transpose_mut()
+}
+
+/// A row-major `rows x cols` view of `slice` with row stride `ld`.
+pub(crate) fn row_major_ref(slice: &[f64], rows: usize, cols: usize, ld: usize) -> MatRef<'_, f64> {
+    let used = if rows == 0 { 0 } else { (rows - 1) * ld + cols };
+    MatRef::from_column_major_slice_with_stride(&slice[..used], cols, rows, ld).transpose()
+}
+
+/// `sqrt(sum v^2)` over column `j` of a row-major block, safe from
+/// underflow of the squares.
+fn column_norm(b: &[f64], ld: usize, len: usize, j: usize, sum_sq: f64) -> f64 {
+    // Below this the squares may have lost digits to underflow.
+    const TINY: f64 = 1e-280;
+    if sum_sq >= TINY || sum_sq == 0.0 && (0..len).all(|i| b[i * ld + j] == 0.0) {
+        return sum_sq.sqrt();
+    }
+    let big = (0..len).fold(0.0f64, |m, i| m.max(b[i * ld + j].abs()));
+    if big == 0.0 {
+        return 0.0;
+    }
+    let s: f64 = (0..len).map(|i| (b[i * ld + j] / big).powi(2)).sum();
+    big * s.sqrt()
+}
+
+/// Sum of squares of column `j` of a row-major block.
+#[inline(always)]
+fn column_sum_sq(b: &[f64], ld: usize, len: usize, j: usize) -> f64 {
+    let mut acc = [0.0f64; 4];
+    let mut i = 0;
+    while i + 4 <= len {
+        for (l, a) in acc.iter_mut().enumerate() {
+            let v = b[(i + l) * ld + j];
+            *a += v * v;
+        }
+        i += 4;
+    }
+    while i < len {
+        let v = b[i * ld + j];
+        acc[0] += v * v;
+        i += 1;
+    }
+    (acc[0] + acc[2]) + (acc[1] + acc[3])
+}
+
+/// Householder QR of the stack `[R; B]`, in place: `R` (`k x k`, upper
+/// triangular, zeros below the diagonal) becomes the triangular factor of
+/// the stack; `B` (`len x k`, stored row by row with row stride `ld`, a
+/// multiple of [`PANEL`] with zero padding columns) is overwritten by the
+/// reflectors.
+pub(crate) fn stacked_qr(
+    r: MatMut<'_, f64>,
+    b: &mut [f64],
+    ld: usize,
+    len: usize,
+    work: &mut StackedQrWork,
+) {
+    stacked_qr_impl(r, b, Layout::Rows(ld), len, work);
+}
+
+/// [`stacked_qr`] for a block stored column by column: `B` is `len x k`
+/// with column stride `ld >= len` (the cheap layout to fill from a
+/// column-major design).
+pub(crate) fn stacked_qr_by_columns(
+    r: MatMut<'_, f64>,
+    b: &mut [f64],
+    ld: usize,
+    len: usize,
+    work: &mut StackedQrWork,
+) {
+    stacked_qr_impl(r, b, Layout::Cols(ld), len, work);
+}
+
+/// How a block of [`stacked_qr`] is stored.
+#[derive(Clone, Copy)]
+enum Layout {
+    /// Row by row with this row stride (a multiple of [`PANEL`], zero padding).
+    Rows(usize),
+    /// Column by column with this column stride.
+    Cols(usize),
+}
+
+fn stacked_qr_impl(
+    mut r: MatMut<'_, f64>,
+    b: &mut [f64],
+    layout: Layout,
+    len: usize,
+    work: &mut StackedQrWork,
+) {
+    let k = r.ncols();
+    if len == 0 || k == 0 {
+        return;
+    }
+    let used = match layout {
+        Layout::Rows(ld) => len * ld,
+        Layout::Cols(ld) => (k - 1) * ld + len,
+    };
+    let b = &mut b[..used];
+    let mut j0 = 0;
+    while j0 < k {
+        let jn = PANEL.min(k - j0);
+        // The panel's columns, gathered into aligned lines: the passes below
+        // then read one cache line per row (from the first-level cache for
+        // blocks of up to about 600 rows).
+        let mut panel = std::mem::take(&mut work.panel);
+        if panel.len() < len * PANEL + PANEL {
+            panel.resize(len * PANEL + PANEL, 0.0);
+        }
+        let start = panel.as_ptr().align_offset(64).min(PANEL);
+        let pan = &mut panel[start..start + len * PANEL];
+        match layout {
+            Layout::Rows(ld) => {
+                for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
+                    line.copy_from_slice(&row[j0..j0 + PANEL]);
+                }
+            }
+            Layout::Cols(ld) => {
+                for l in 0..PANEL {
+                    if l < jn {
+                        let col = &b[(j0 + l) * ld..(j0 + l) * ld + len];
+                        for (line, &v) in pan.chunks_exact_mut(PANEL).zip(col) {
+                            line[l] = v;
+                        }
+                    } else {
+                        for line in pan.chunks_exact_mut(PANEL) {
+                            line[l] = 0.0;
+                        }
+                    }
+                }
+            }
+        }
+        let mut tau = [0.0f64; PANEL];
+        // s[l][c] = v_l . v_c (the reflectors' parts in B), l < c.
+        let mut s = [[0.0f64; PANEL]; PANEL];
+        let mut sum_sq = kernels::dispatch(
+            #[inline(always)]
+            || column_sum_sq(pan, PANEL, len, 0),
+        );
+        for jj in 0..jn {
+            let j = j0 + jj;
+            let alpha = r[(j, j)];
+            let xnorm = column_norm(pan, PANEL, len, jj, sum_sq);
+            if xnorm == 0.0 {
+                // Nothing below the diagonal: the reflector is the identity.
+                if jj + 1 < jn {
+                    sum_sq = kernels::dispatch(
+                        #[inline(always)]
+                        || column_sum_sq(pan, PANEL, len, jj + 1),
+                    );
+                }
+                continue;
+            }
+            let beta = -alpha.hypot(xnorm).copysign(alpha);
+            let t = (beta - alpha) / beta;
+            let scal = 1.0 / (alpha - beta);
+            r[(j, j)] = beta;
+            tau[jj] = t;
+            // Pass 1: v = B[:, j] * scal; d[l] = v . B[:, j0 + l].
+            let d = kernels::dispatch(
+                #[inline(always)]
+                || panel_scale_dot(pan, PANEL, len, 0, jj, scal),
+            );
+            s[..jj]
+                .iter_mut()
+                .zip(&d)
+                .for_each(|(row, &dl)| row[jj] = dl);
+            let mut tw = [0.0f64; PANEL];
+            for l in (jj + 1)..jn {
+                let w = r[(j, j0 + l)] + d[l];
+                r[(j, j0 + l)] -= t * w;
+                tw[l] = t * w;
+            }
+            if jj + 1 < jn {
+                // Pass 2: B[:, j0 + l] -= tw[l] v, and the next column's norm.
+                sum_sq = kernels::dispatch(
+                    #[inline(always)]
+                    || panel_update(pan, PANEL, len, 0, jj, &tw),
+                );
+            }
+        }
+        if j0 + jn < k {
+            let mut whole = match layout {
+                Layout::Rows(ld) => row_major_mut(b, len, ld, ld),
+                Layout::Cols(ld) => MatMut::from_column_major_slice_with_stride_mut(b, len, k, ld),
+            };
+            let trail = whole.rb_mut().subcols_mut(j0 + jn, k - (j0 + jn));
+            apply_panel(r.rb_mut(), pan, trail, len, j0, jn, &tau, &s, &mut work.w);
+        }
+        work.panel = panel;
+        j0 += jn;
+    }
+}
+
+/// Pass 1 of a panel column: scales column `j0 + jj` into the reflector `v`
+/// and returns `v . B[:, j0 + l]` for every lane `l` of the panel.
+#[inline(always)]
+fn panel_scale_dot(
+    b: &mut [f64],
+    ld: usize,
+    len: usize,
+    j0: usize,
+    jj: usize,
+    scal: f64,
+) -> [f64; PANEL] {
+    // Two rows at a time into two sets of lane accumulators.
+    let mut d0 = [0.0f64; PANEL];
+    let mut d1 = [0.0f64; PANEL];
+    let b = &mut b[..len * ld];
+    let mut pairs = b.chunks_exact_mut(2 * ld);
+    for pair in &mut pairs {
+        let (r0, r1) = pair.split_at_mut(ld);
+        let s0: &mut [f64; PANEL] = match (&mut r0[j0..j0 + PANEL]).try_into() {
+            Ok(seg) => seg,
+            Err(_) => return [0.0; PANEL],
+        };
+        let s1: &mut [f64; PANEL] = match (&mut r1[j0..j0 + PANEL]).try_into() {
+            Ok(seg) => seg,
+            Err(_) => return [0.0; PANEL],
+        };
+        let v0 = s0[jj] * scal;
+        let v1 = s1[jj] * scal;
+        s0[jj] = v0;
+        s1[jj] = v1;
+        for l in 0..PANEL {
+            d0[l] = v0.mul_add(s0[l], d0[l]);
+            d1[l] = v1.mul_add(s1[l], d1[l]);
+        }
+    }
+    let rest = pairs.into_remainder();
+    if rest.len() >= j0 + PANEL {
+        let seg = &mut rest[j0..j0 + PANEL];
+        let v = seg[jj] * scal;
+        seg[jj] = v;
+        for l in 0..PANEL {
+            d0[l] = v.mul_add(seg[l], d0[l]);
+        }
+    }
+    let mut out = [0.0f64; PANEL];
+    for l in 0..PANEL {
+        out[l] = d0[l] + d1[l];
+    }
+    out
+}
+
+/// Pass 2 of a panel column: `B[:, j0 + l] -= tw[l] v` with `v` in column
+/// `j0 + jj`; returns the sum of squares of the updated column `j0 + jj + 1`.
+#[inline(always)]
+fn panel_update(
+    b: &mut [f64],
+    ld: usize,
+    len: usize,
+    j0: usize,
+    jj: usize,
+    tw: &[f64; PANEL],
+) -> f64 {
+    let next = (jj + 1).min(PANEL - 1);
+    let (mut a0, mut a1) = (0.0f64, 0.0f64);
+    let b = &mut b[..len * ld];
+    let mut pairs = b.chunks_exact_mut(2 * ld);
+    for pair in &mut pairs {
+        let (r0, r1) = pair.split_at_mut(ld);
+        let s0: &mut [f64; PANEL] = match (&mut r0[j0..j0 + PANEL]).try_into() {
+            Ok(seg) => seg,
+            Err(_) => return 0.0,
+        };
+        let s1: &mut [f64; PANEL] = match (&mut r1[j0..j0 + PANEL]).try_into() {
+            Ok(seg) => seg,
+            Err(_) => return 0.0,
+        };
+        let v0 = s0[jj];
+        let v1 = s1[jj];
+        for l in 0..PANEL {
+            s0[l] = (-tw[l]).mul_add(v0, s0[l]);
+            s1[l] = (-tw[l]).mul_add(v1, s1[l]);
+        }
+        a0 = s0[next].mul_add(s0[next], a0);
+        a1 = s1[next].mul_add(s1[next], a1);
+    }
+    let rest = pairs.into_remainder();
+    if rest.len() >= j0 + PANEL {
+        let seg = &mut rest[j0..j0 + PANEL];
+        let v = seg[jj];
+        for l in 0..PANEL {
+            seg[l] = (-tw[l]).mul_add(v, seg[l]);
+        }
+        a0 = seg[next].mul_add(seg[next], a0);
+    }
+    a0 + a1
+}
+
+/// Applies the panel's block reflector `I - V T V^T` (transposed) to the
+/// columns right of the panel, in `R` and in `B`.
+#[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+fn apply_panel(
+    mut r: MatMut<'_, f64>,
+    pan: &[f64],
+    mut trail: MatMut<'_, f64>,
+    len: usize,
+    j0: usize,
+    jn: usize,
+    tau: &[f64; PANEL],
+    s: &[[f64; PANEL]; PANEL],
+    w_store: &mut Mat<f64>,
+) {
+    let k = r.ncols();
+    let c0 = j0 + jn;
+    let nt = k - c0;
+    // T (upper triangular): T[i][i] = tau_i,
+    // T[0..i, i] = -tau_i T[0..i, 0..i] (V^T v_i).
+    let mut tm = [[0.0f64; PANEL]; PANEL];
+    for i in 0..jn {
+        tm[i][i] = tau[i];
+        let mut col = [0.0f64; PANEL];
+        for (l, c) in col.iter_mut().enumerate().take(i) {
+            *c = -tau[i] * s[l][i];
+        }
+        for row in 0..i {
+            let mut acc = 0.0;
+            for l in row..i {
+                acc += tm[row][l] * col[l];
+            }
+            tm[row][i] = acc;
+        }
+    }
+    let v = row_major_ref(pan, len, jn, PANEL);
+    // W = R[panel rows, trail] + V^T B[:, trail]
+    let mut w = w_store.as_mut().submatrix_mut(0, 0, jn, nt);
+    w.copy_from(r.rb().submatrix(j0, c0, jn, nt));
+    matmul(
+        w.rb_mut(),
+        Accum::Add,
+        v.transpose(),
+        trail.rb(),
+        1.0,
+        Par::Seq,
+    );
+    // W = T^T W (rows from the bottom, each uses rows at or above it).
+    for c in 0..nt {
+        for i in (0..jn).rev() {
+            let mut acc = 0.0;
+            for l in 0..=i {
+                acc += tm[l][i] * w[(l, c)];
+            }
+            w[(i, c)] = acc;
+        }
+    }
+    // R[panel rows, trail] -= W; B[:, trail] -= V W.
+    for c in 0..nt {
+        for i in 0..jn {
+            r[(j0 + i, c0 + c)] -= w[(i, c)];
+        }
+    }
+    matmul(trail.rb_mut(), Accum::Add, v, w.rb(), -1.0, Par::Seq);
 }
 
 /// Returns the upper-triangular `k x k` factor `R` with `Z = Q R`, where `Z`
 /// is the centered, weighted, scaled design (plus the target as a last
 /// column when `with_target`: then `R[..p, p]` is `Q^T y` and `|R[p, p]|`
-/// the residual norm of the scaled problem).
+/// the residual norm of the scaled problem). The signs of `R`'s rows are
+/// arbitrary (a Householder convention).
 pub(crate) fn tall_skinny_r(
     problem: &Problem<'_>,
     scaling: &Scaling,
@@ -61,69 +470,168 @@ enum LastColumn<'v> {
     Vector(&'v [f64], f64),
 }
 
-fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> Mat<f64> {
-    let with_last = !matches!(last, LastColumn::None);
-    let p = problem.cols();
-    let k = p + usize::from(with_last);
-    let b = block_rows(k);
-    let groups = block_groups(problem.rows(), b, GROUPS);
-    let partials: Vec<(Mat<f64>, bool)> = groups
-        .par_iter()
-        .map(|group| {
-            // Top k rows: the running factor; below: the next block.
-            let mut buf = Mat::<f64>::zeros(k + b, k);
-            let mut triangular = true;
-            for &(r0, r1) in group {
-                let len = r1 - r0;
-                let mut block = buf.as_mut().subrows_mut(k, len);
-                match last {
-                    LastColumn::None | LastColumn::Target => {
-                        fill_block(problem, scaling, r0, r1, with_last, block.rb_mut())
-                    }
-                    LastColumn::Vector(v, inv_scale) => {
-                        fill_block(
-                            problem,
-                            scaling,
-                            r0,
-                            r1,
-                            false,
-                            block.rb_mut().subcols_mut(0, p),
-                        );
-                        for (local, i) in (r0..r1).enumerate() {
-                            block[(local, p)] =
-                                problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
-                        }
-                    }
-                }
-                triangular = qr_keep_r(buf.as_mut().subrows_mut(0, k + len));
+/// Writes rows `r0..r1` of the transformed design and its last column.
+fn fill_with_last(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    r0: usize,
+    r1: usize,
+    last: LastColumn<'_>,
+    mut out: MatMut<'_, f64>,
+) {
+    match last {
+        LastColumn::None => fill_block(problem, scaling, r0, r1, false, out),
+        LastColumn::Target => fill_block(problem, scaling, r0, r1, true, out),
+        LastColumn::Vector(v, inv_scale) => {
+            let p = problem.cols();
+            fill_block(
+                problem,
+                scaling,
+                r0,
+                r1,
+                false,
+                out.rb_mut().subcols_mut(0, p),
+            );
+            for (local, i) in (r0..r1).enumerate() {
+                out[(local, p)] = problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
             }
-            (buf.as_ref().subrows(0, k).to_owned(), triangular)
-        })
-        .collect();
-    let (r, triangular) = if partials.len() == 1 {
-        partials
-            .into_iter()
-            .next()
-            .unwrap_or_else(|| (Mat::zeros(k, k), true))
-    } else {
-        let mut stacked = Mat::<f64>::zeros(k * partials.len(), k);
-        for (g, (part, _)) in partials.iter().enumerate() {
-            stacked
-                .as_mut()
-                .subrows_mut(g * k, k)
-                .copy_from(part.as_ref());
         }
-        let triangular = qr_keep_r(stacked.as_mut());
-        (stacked.as_ref().subrows(0, k).to_owned(), triangular)
-    };
-    if triangular {
-        r
-    } else {
-        super::householder::triangle_of(r.as_ref())
     }
+}
+
+fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> Mat<f64> {
+    let k = problem.cols() + usize::from(!matches!(last, LastColumn::None));
+    let ld = row_stride(k);
+    let b = qr_block_rows(k);
+    // Folding two triangles costs about as much as factoring `k` rows, so
+    // every group gets at least `8 k` rows (a wide design gets one group).
+    let max_groups = (problem.rows() / (8 * k.max(1))).clamp(1, QR_GROUPS);
+    let groups = block_groups(problem.rows(), b, max_groups);
+    // A column-major design is read column by column into a column-major
+    // block; any other layout row by row into a row-major block.
+    let design = problem.design();
+    let strides = design.strides();
+    let by_columns = problem.cols() > 1 && strides[0] == 1 && strides[1] != 1;
+    let leaf = |group: &[(usize, usize)]| {
+        let mut r = Mat::<f64>::zeros(k, k);
+        let mut buf = vec![0.0f64; b * ld.max(k)];
+        let mut work = StackedQrWork::new(k);
+        for &(r0, r1) in group {
+            let len = r1 - r0;
+            if by_columns {
+                let used = (k - 1) * b + len;
+                let out =
+                    MatMut::from_column_major_slice_with_stride_mut(&mut buf[..used], len, k, b);
+                fill_with_last(problem, scaling, r0, r1, last, out);
+                stacked_qr_by_columns(r.as_mut(), &mut buf, b, len, &mut work);
+            } else {
+                let out = row_major_mut(&mut buf, len, k, ld);
+                fill_with_last(problem, scaling, r0, r1, last, out);
+                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+            }
+        }
+        r
+    };
+    // Folding triangle `b` into `a`: the QR of `[a; b]`.
+    let merge = |mut a: Mat<f64>, part: Mat<f64>| {
+        let mut buf = vec![0.0f64; k * ld];
+        for i in 0..k {
+            for j in i..k {
+                buf[i * ld + j] = part[(i, j)];
+            }
+        }
+        let mut work = StackedQrWork::new(k);
+        stacked_qr(a.as_mut(), &mut buf, ld, k, &mut work);
+        a
+    };
+    tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k))
 }
 
 /// Thin `Q` of a small dense matrix (see [`super::householder::thin_q`]).
 pub(crate) fn thin_q(a: faer::MatRef<'_, f64>) -> Mat<f64> {
     super::householder::thin_q(a)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// Stacks of random blocks: `R^T R` must equal `Z^T Z` (an identity of
+    /// any QR, `Z = Q R` with orthogonal `Q`), and `|R|` must match
+    /// nalgebra's Householder QR of the whole matrix row by row.
+    #[test]
+    fn stacked_qr_matches_gram_and_nalgebra() {
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        for &(n, k, block) in &[
+            (50usize, 5usize, 16usize),
+            (20, 9, 20),
+            (300, 21, 300),
+            (300, 21, 64),
+            (90, 17, 200),
+            (40, 9, 3),
+        ] {
+            let z: Vec<f64> = (0..n * k).map(|_| rng.random_range(-1.0..1.0)).collect();
+            let ld = row_stride(k);
+            let mut r = Mat::<f64>::zeros(k, k);
+            let mut work = StackedQrWork::new(k);
+            let mut r0 = 0;
+            while r0 < n {
+                let len = block.min(n - r0);
+                let mut buf = vec![0.0; len * ld];
+                for i in 0..len {
+                    buf[i * ld..i * ld + k].copy_from_slice(&z[(r0 + i) * k..(r0 + i + 1) * k]);
+                }
+                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+                r0 += len;
+            }
+            // The same stack stored column by column gives the same factor.
+            let mut rc = Mat::<f64>::zeros(k, k);
+            let mut r0 = 0;
+            while r0 < n {
+                let len = block.min(n - r0);
+                let mut buf = vec![0.0; k * len];
+                for i in 0..len {
+                    for j in 0..k {
+                        buf[j * len + i] = z[(r0 + i) * k + j];
+                    }
+                }
+                stacked_qr_by_columns(rc.as_mut(), &mut buf, len, len, &mut work);
+                r0 += len;
+            }
+            for i in 0..k {
+                for j in 0..k {
+                    assert!(
+                        (r[(i, j)] - rc[(i, j)]).abs() <= 1e-13 * (n as f64),
+                        "{n}x{k} cols R[{i},{j}]"
+                    );
+                }
+            }
+            for i in 0..k {
+                for j in 0..k {
+                    let rtr: f64 = (0..k).map(|l| r[(l, i)] * r[(l, j)]).sum();
+                    let ztz: f64 = (0..n).map(|l| z[l * k + i] * z[l * k + j]).sum();
+                    assert!(
+                        (rtr - ztz).abs() <= 1e-12 * n as f64,
+                        "{n}x{k} ({i},{j}): {rtr} vs {ztz}"
+                    );
+                    if i > j {
+                        assert_eq!(r[(i, j)], 0.0);
+                    }
+                }
+            }
+            let zm = nalgebra::DMatrix::from_row_slice(n, k, &z);
+            let rn = zm.qr().r();
+            for i in 0..k {
+                let sign = (r[(i, i)] * rn[(i, i)]).signum();
+                for j in i..k {
+                    assert!(
+                        (r[(i, j)] - sign * rn[(i, j)]).abs() <= 1e-12 * (n as f64).sqrt(),
+                        "{n}x{k} R[{i},{j}]"
+                    );
+                }
+            }
+        }
+    }
 }

@@ -1,8 +1,9 @@
 //! Fused residual passes over the design.
 
-use ndarray::Axis;
+use ndarray::{s, Axis};
 use rayon::prelude::*;
 
+use super::kernels;
 use crate::problem::{Problem, STATS_CHUNK};
 
 /// Weighted residual sum of squares of the centered problem for slopes
@@ -11,37 +12,142 @@ use crate::problem::{Problem, STATS_CHUNK};
 /// Each residual is formed from centered values, so large column offsets
 /// cost no digits; the sum is scaled by `scale` (a power of two near the
 /// target's spread) so that it neither overflows nor underflows. One read
-/// of the design, in parallel over fixed row chunks.
+/// of the design, in parallel over fixed row chunks; a row-major design is
+/// read row by row with a vectorised dot product, a column-major one column
+/// by column with a vectorised update of the chunk's residuals.
 pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f64 {
     let x = problem.design();
     let y = problem.target();
-    let means = &problem.stats.means;
+    let means = &problem.stats.means[..];
     let ym = problem.stats.target_mean;
     let n = problem.rows();
+    let p = problem.cols();
     let inv = 1.0 / scale;
+    let beta = &beta[..p];
     let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();
     let parts: Vec<f64> = chunks
         .par_iter()
         .map(|&c| {
             let r0 = c * STATS_CHUNK;
             let r1 = (r0 + STATS_CHUNK).min(n);
-            let mut acc = 0.0;
-            for i in r0..r1 {
-                let w = problem.scaled_weight(i);
-                if w == 0.0 {
-                    continue;
+            let xb = x.slice(s![r0..r1, ..]);
+            let strides = xb.strides();
+            if p > 1 && strides[0] == 1 && strides[1] != 1 {
+                // Column-major: residuals of the chunk, one column at a time.
+                let mut res: Vec<f64> = (r0..r1).map(|i| y[i] - ym).collect();
+                let done = kernels::dispatch(
+                    #[inline(always)]
+                    || {
+                        for (j, col) in xb.axis_iter(Axis(1)).enumerate() {
+                            let Some(xs) = col.to_slice() else {
+                                return false;
+                            };
+                            let (m, b) = (means[j], beta[j]);
+                            for (r, &v) in res.iter_mut().zip(xs) {
+                                *r -= (v - m) * b;
+                            }
+                        }
+                        true
+                    },
+                );
+                if done {
+                    let mut acc = 0.0;
+                    for (local, r) in res.iter().enumerate() {
+                        let w = problem.scaled_weight(r0 + local);
+                        if w == 0.0 {
+                            continue;
+                        }
+                        let r = r * inv;
+                        acc += w * r * r;
+                    }
+                    return acc;
                 }
-                let row = x.index_axis(Axis(0), i);
-                let mut fit = 0.0;
-                for (j, &v) in row.iter().enumerate() {
-                    fit += (v - means[j]) * beta[j];
-                }
-                let r = ((y[i] - ym) - fit) * inv;
-                acc += w * r * r;
             }
-            acc
+            kernels::dispatch(
+                #[inline(always)]
+                || {
+                    let mut acc = 0.0;
+                    let mut add = |i: usize, fit: f64| {
+                        let w = problem.scaled_weight(i);
+                        if w != 0.0 {
+                            let r = ((y[i] - ym) - fit) * inv;
+                            acc += w * r * r;
+                        }
+                    };
+                    let len = r1 - r0;
+                    let mut local = 0;
+                    if let (Some(all), true) = (xb.to_slice(), p > 0) {
+                        // Packed rows: four at a time, four independent sums.
+                        for four in all.chunks_exact(4 * p) {
+                            let (a, rest) = four.split_at(p);
+                            let (b, rest) = rest.split_at(p);
+                            let (c, d) = rest.split_at(p);
+                            let fits = kernels::centered_dot4([a, b, c, d], means, beta);
+                            for (q, fit) in fits.into_iter().enumerate() {
+                                add(r0 + local + q, fit);
+                            }
+                            local += 4;
+                        }
+                    }
+                    for l in local..len {
+                        let row = xb.row(l);
+                        let fit = match row.to_slice() {
+                            Some(xs) => kernels::centered_dot(xs, means, beta),
+                            None => row
+                                .iter()
+                                .zip(means)
+                                .zip(beta)
+                                .map(|((&v, &m), &b)| (v - m) * b)
+                                .sum(),
+                        };
+                        add(r0 + l, fit);
+                    }
+                    acc
+                },
+            )
         })
         .collect();
     let s: f64 = parts.iter().sum();
     s * scale * scale * problem.stats.weight_scale
+}
+
+/// Sum of every element of the design: one streaming read, parallel over
+/// fixed row chunks (the bandwidth floor of a pass over the design).
+pub(crate) fn design_sum(problem: &Problem<'_>) -> f64 {
+    let x = problem.design();
+    let n = problem.rows();
+    let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();
+    chunks
+        .par_iter()
+        .map(|&c| {
+            let r0 = c * STATS_CHUNK;
+            let r1 = (r0 + STATS_CHUNK).min(n);
+            let xb = x.slice(s![r0..r1, ..]);
+            kernels::dispatch(
+                #[inline(always)]
+                || {
+                    let mut acc = [0.0; kernels::LANES];
+                    let by_columns = xb.ncols() > 1 && xb.strides()[0] == 1;
+                    if let Some(all) = xb.as_slice_memory_order() {
+                        kernels::accumulate(all, &mut acc);
+                    } else if by_columns {
+                        for col in xb.columns() {
+                            match col.to_slice() {
+                                Some(xs) => kernels::accumulate(xs, &mut acc),
+                                None => acc[0] += col.sum(),
+                            }
+                        }
+                    } else {
+                        for row in xb.rows() {
+                            match row.to_slice() {
+                                Some(xs) => kernels::accumulate(xs, &mut acc),
+                                None => acc[0] += row.sum(),
+                            }
+                        }
+                    }
+                    kernels::reduce(acc)
+                },
+            )
+        })
+        .sum()
 }

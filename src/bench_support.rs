@@ -1,0 +1,89 @@
+//! Floors and single passes for the bench example and the criterion
+//! benches. Hidden from the documentation and not covered by semver: the
+//! functions exist so that a benchmark can time, in the same process as the
+//! solvers, the work that bounds them from below.
+//!
+//! - [`gram_floor`]: the bare symmetric Gram matrix `Z^T Z` of the
+//!   centered, weighted, scaled design with the target as a last column,
+//!   parallel over row blocks: the floor of every Gram- or QR-based solver.
+//! - [`stream_floor`]: one read of every element of the design, parallel
+//!   over the same row blocks: the floor of one gradient iteration.
+//! - [`tall_skinny_r`], [`residual_pass`], [`fill_pass`]: the passes a
+//!   closed-form fit is made of, to show where its time goes.
+
+use crate::linalg::{block_groups, gram_block_rows, GROUPS};
+use crate::prep::Scaling;
+use crate::problem::Problem;
+
+/// Nominal flop count of the symmetric Gram of an `n x k` matrix:
+/// `k (k + 1) / 2` dot products of length `n`, two flops per term.
+pub fn gram_flops(rows: usize, k: usize) -> f64 {
+    rows as f64 * k as f64 * (k as f64 + 1.0)
+}
+
+/// Nominal flop count of a Householder QR of an `n x k` matrix
+/// (`2 n k^2 - 2 k^3 / 3`).
+pub fn qr_flops(rows: usize, k: usize) -> f64 {
+    let (n, k) = (rows as f64, k as f64);
+    2.0 * n * k * k - 2.0 * k * k * k / 3.0
+}
+
+/// Computes the centered Gram matrix with the target column (what
+/// [`crate::Cholesky`] needs) and returns its trace, so that the work cannot
+/// be optimised away.
+pub fn gram_floor(problem: &Problem<'_>) -> f64 {
+    let scaling = Scaling::new(problem, problem.default_rank_tolerance());
+    let g = crate::linalg::gram::centered_gram(problem, &scaling, true);
+    (0..g.nrows()).map(|i| g[(i, i)]).sum()
+}
+
+/// Reads every element of the design once (parallel over the fixed row
+/// blocks) and returns their sum: the memory-bandwidth floor of one pass.
+pub fn stream_floor(problem: &Problem<'_>) -> f64 {
+    crate::linalg::residuals::design_sum(problem)
+}
+
+/// Computes the triangular factor `R` of the centered design with the target
+/// column (what [`crate::Qr`] needs) and returns `|R[p, p]|`, the residual
+/// norm in scaled units.
+pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
+    let scaling = Scaling::new(problem, problem.default_rank_tolerance());
+    let r = crate::linalg::qr::tall_skinny_r(problem, &scaling, true);
+    let p = problem.cols();
+    r[(p, p)].abs()
+}
+
+/// The residual sum of squares pass of every closed-form fit, for slopes
+/// `beta` (caller's units).
+pub fn residual_pass(problem: &Problem<'_>, beta: &[f64]) -> f64 {
+    crate::linalg::residuals::centered_rss(problem, beta, 1.0)
+}
+
+/// Fills every transformed row block once (as the Gram pass does) without
+/// any arithmetic on the blocks; returns a checksum.
+pub fn fill_pass(problem: &Problem<'_>) -> f64 {
+    use rayon::prelude::*;
+    let scaling = Scaling::new(problem, problem.default_rank_tolerance());
+    let k = problem.cols() + 1;
+    let b = gram_block_rows(k);
+    let groups = block_groups(problem.rows(), b, GROUPS);
+    groups
+        .par_iter()
+        .map(|group| {
+            let mut block = faer::Mat::<f64>::zeros(k, b);
+            let mut acc = 0.0;
+            for &(r0, r1) in group {
+                crate::prep::fill_block(
+                    problem,
+                    &scaling,
+                    r0,
+                    r1,
+                    true,
+                    block.as_mut().subcols_mut(0, r1 - r0).transpose_mut(),
+                );
+                acc += block[(0, 0)];
+            }
+            acc
+        })
+        .sum()
+}

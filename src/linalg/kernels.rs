@@ -1,0 +1,215 @@
+//! Hot loops over the design, vectorised with instructions chosen at run
+//! time.
+//!
+//! Each kernel is plain Rust over slices, run inside [`dispatch`], which
+//! compiles it once per instruction set (AVX2 + FMA where the processor has
+//! them, the x86-64 baseline otherwise) and picks the best at run time, so a
+//! default release build is fast without `target-cpu=native`. Every kernel
+//! fixes its order of operations (eight lanes, a fixed lane reduction, and
+//! fused multiply-adds only where written as `mul_add`, which rounds once on
+//! every instruction set), so its result does not depend on the instruction
+//! set picked.
+
+use ndarray::{ArrayView2, Axis};
+use pulp::{Simd, WithSimd};
+
+/// Lanes of the kernels' accumulators.
+pub(crate) const LANES: usize = 8;
+
+/// Runs `f` compiled for the best instruction set this processor has.
+#[inline(always)]
+pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
+    struct Op<F>(F);
+    impl<R, F: FnOnce() -> R> WithSimd for Op<F> {
+        type Output = R;
+        #[inline(always)]
+        fn with_simd<S: Simd>(self, _simd: S) -> R {
+            (self.0)()
+        }
+    }
+    pulp::Arch::new().dispatch(Op(f))
+}
+
+/// Calls `f(local_row, row)` for every row of `xb`, each row as a slice.
+/// A block in standard (row-major, packed) order is split from one slice,
+/// which costs nothing per row; other layouts with contiguous rows go
+/// through one view per row. Returns `false` (after calling `f` on some
+/// rows or none) when a row is not contiguous, or when `f` returns `false`.
+#[inline(always)]
+pub(crate) fn for_each_row<'a>(
+    xb: ArrayView2<'a, f64>,
+    mut f: impl FnMut(usize, &'a [f64]) -> bool,
+) -> bool {
+    let p = xb.ncols();
+    if p > 0 {
+        if let Some(all) = xb.to_slice() {
+            for (local, row) in all.chunks_exact(p).enumerate() {
+                if !f(local, row) {
+                    return false;
+                }
+            }
+            return true;
+        }
+    }
+    for local in 0..xb.nrows() {
+        match xb.index_axis_move(Axis(0), local).to_slice() {
+            Some(xs) => {
+                if !f(local, xs) {
+                    return false;
+                }
+            }
+            None => return false,
+        }
+    }
+    true
+}
+
+/// `out[j] = sw * ((x[j] - m[j]) * inv[j])` for `j < x.len()`.
+#[inline(always)]
+pub(crate) fn center_scale(x: &[f64], m: &[f64], inv: &[f64], sw: f64, out: &mut [f64]) {
+    let n = x.len();
+    let (m, inv, out) = (&m[..n], &inv[..n], &mut out[..n]);
+    for j in 0..n {
+        out[j] = sw * ((x[j] - m[j]) * inv[j]);
+    }
+}
+
+/// `sum_j (x[j] - m[j]) * b[j]`, in eight lanes reduced in a fixed order
+/// (each term added by one fused multiply-add).
+#[inline(always)]
+pub(crate) fn centered_dot(x: &[f64], m: &[f64], b: &[f64]) -> f64 {
+    let n = x.len();
+    let (m, b) = (&m[..n], &b[..n]);
+    let mut acc = [0.0f64; LANES];
+    let whole = n - n % LANES;
+    let mut j = 0;
+    while j < whole {
+        let (xs, ms, bs) = (&x[j..j + LANES], &m[j..j + LANES], &b[j..j + LANES]);
+        for l in 0..LANES {
+            acc[l] = (xs[l] - ms[l]).mul_add(bs[l], acc[l]);
+        }
+        j += LANES;
+    }
+    for (l, jj) in (whole..n).enumerate() {
+        acc[l] = (x[jj] - m[jj]).mul_add(b[jj], acc[l]);
+    }
+    reduce(acc)
+}
+
+/// `sum_j (x_r[j] - m[j]) * b[j]` for four rows at once (four independent
+/// chains of eight lanes, sharing the loads of `m` and `b`); each row's sum
+/// is formed exactly as [`centered_dot`] forms it.
+#[inline(always)]
+pub(crate) fn centered_dot4(x: [&[f64]; 4], m: &[f64], b: &[f64]) -> [f64; 4] {
+    let n = m.len().min(b.len());
+    let x = [&x[0][..n], &x[1][..n], &x[2][..n], &x[3][..n]];
+    let mut acc = [[0.0f64; LANES]; 4];
+    let whole = n - n % LANES;
+    let mut j = 0;
+    while j < whole {
+        let (ms, bs) = (&m[j..j + LANES], &b[j..j + LANES]);
+        for (a, xr) in acc.iter_mut().zip(&x) {
+            let xs = &xr[j..j + LANES];
+            for l in 0..LANES {
+                a[l] = (xs[l] - ms[l]).mul_add(bs[l], a[l]);
+            }
+        }
+        j += LANES;
+    }
+    for (a, xr) in acc.iter_mut().zip(&x) {
+        for (l, jj) in (whole..n).enumerate() {
+            a[l] = (xr[jj] - m[jj]).mul_add(b[jj], a[l]);
+        }
+    }
+    [
+        reduce(acc[0]),
+        reduce(acc[1]),
+        reduce(acc[2]),
+        reduce(acc[3]),
+    ]
+}
+
+/// Sum of the lanes in a fixed (pairwise) order.
+#[inline(always)]
+pub(crate) fn reduce(a: [f64; LANES]) -> f64 {
+    ((a[0] + a[4]) + (a[2] + a[6])) + ((a[1] + a[5]) + (a[3] + a[7]))
+}
+
+/// Adds `x` into eight lane accumulators.
+#[inline(always)]
+pub(crate) fn accumulate(x: &[f64], acc: &mut [f64; LANES]) {
+    let n = x.len();
+    let whole = n - n % LANES;
+    let mut j = 0;
+    while j < whole {
+        let xs = &x[j..j + LANES];
+        for l in 0..LANES {
+            acc[l] += xs[l];
+        }
+        j += LANES;
+    }
+    for (l, jj) in (whole..n).enumerate() {
+        acc[l] += x[jj];
+    }
+}
+
+/// Per-column running summaries of one chunk of rows, updated one row at a
+/// time (vectorised across the columns). Sums are compensated: `sum + comp`
+/// carries the exact rounding errors (Knuth's two-sum, branch-free).
+pub(crate) struct ColumnSummary {
+    pub sum: Vec<f64>,
+    pub comp: Vec<f64>,
+    pub min: Vec<f64>,
+    pub max: Vec<f64>,
+    /// `sum_i 0 * x_ij`: 0 while every value seen is finite, NaN after.
+    pub check: Vec<f64>,
+}
+
+impl ColumnSummary {
+    pub fn new(p: usize) -> Self {
+        ColumnSummary {
+            sum: vec![0.0; p],
+            comp: vec![0.0; p],
+            min: vec![f64::INFINITY; p],
+            max: vec![f64::NEG_INFINITY; p],
+            check: vec![0.0; p],
+        }
+    }
+
+    /// Takes row `x` with weight `w` (> 0) into the summaries.
+    #[inline(always)]
+    pub fn add_row(&mut self, x: &[f64], w: f64, weighted: bool) {
+        let n = x.len();
+        let s = &mut self.sum[..n];
+        let c = &mut self.comp[..n];
+        let lo = &mut self.min[..n];
+        let hi = &mut self.max[..n];
+        let ck = &mut self.check[..n];
+        for j in 0..n {
+            let v = x[j];
+            ck[j] += v * 0.0;
+            let a = if weighted { w * v } else { v };
+            let t = s[j] + a;
+            let bp = t - s[j];
+            c[j] += (s[j] - (t - bp)) + (a - bp);
+            s[j] = t;
+            lo[j] = if v < lo[j] { v } else { lo[j] };
+            hi[j] = if v > hi[j] { v } else { hi[j] };
+        }
+    }
+
+    /// Checks row `x` (weight zero) for finiteness only.
+    #[inline(always)]
+    pub fn check_row(&mut self, x: &[f64]) {
+        let n = x.len();
+        let ck = &mut self.check[..n];
+        for j in 0..n {
+            ck[j] += x[j] * 0.0;
+        }
+    }
+
+    /// Whether every value seen was finite.
+    pub fn all_finite(&self) -> bool {
+        self.check.iter().all(|c| *c == 0.0)
+    }
+}
