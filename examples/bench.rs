@@ -32,7 +32,7 @@ use std::time::Instant;
 use faer::linalg::solvers::SolveLstsq;
 use faer::{Mat, Par};
 use leastline::bench_support as floors;
-use leastline::{Cholesky, Problem, Qr, Solver, Svd};
+use leastline::{Accelerated, Cholesky, GradientDescent, Problem, Qr, Ridge, Solver, Svd};
 use ndarray::{Array1, Array2, ShapeBuilder};
 
 #[path = "support/design.rs"]
@@ -131,7 +131,19 @@ const SOLVERS: &[(&str, Floor, Maker)] = &[
     ("qr", Floor::Gram, || Box::new(Qr::default())),
     ("cholesky", Floor::Gram, || Box::new(Cholesky::default())),
     ("svd", Floor::Gram, || Box::new(Svd::default())),
+    ("qr-refined", Floor::Gram, || Box::new(Qr::refined())),
+    ("ridge", Floor::Gram, || Box::new(Ridge::new(1.0))),
+    ("accelerated", Floor::Stream, || {
+        Box::new(Accelerated {
+            tolerance: 1e-8,
+            ..Default::default()
+        })
+    }),
 ];
+
+/// The name of the timed single full-gradient iteration (not a solver of
+/// its own: ten fixed-step iterations minus the set-up, divided by ten).
+const GRADIENT_STEP: &str = "gradient-step";
 
 /// Straightforward versions, each beside the solver it is compared with.
 type Obvious = fn(&Dense) -> f64;
@@ -256,7 +268,12 @@ fn usage() -> ! {
     eprintln!(
         "usage: bench [--rows N] [--cols P] [--solvers a,b,...] [--threads T] [--repeats R] \
          [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json]\nsolvers: {}",
-        SOLVERS.iter().map(|s| s.0).collect::<Vec<_>>().join(", ")
+        SOLVERS
+            .iter()
+            .map(|s| s.0)
+            .chain([GRADIENT_STEP])
+            .collect::<Vec<_>>()
+            .join(", ")
     );
     std::process::exit(2)
 }
@@ -265,7 +282,11 @@ fn parse() -> Options {
     let mut o = Options {
         rows: 100_000,
         cols: 50,
-        solvers: SOLVERS.iter().map(|s| s.0.to_string()).collect(),
+        solvers: SOLVERS
+            .iter()
+            .map(|s| s.0.to_string())
+            .chain([GRADIENT_STEP.to_string()])
+            .collect(),
         threads: None,
         repeats: 5,
         seed: 20240611,
@@ -297,7 +318,7 @@ fn parse() -> Options {
         }
     }
     for s in &o.solvers {
-        if !SOLVERS.iter().any(|e| e.0 == s) {
+        if s != GRADIENT_STEP && !SOLVERS.iter().any(|e| e.0 == s) {
             eprintln!("unknown solver `{s}`");
             usage();
         }
@@ -454,6 +475,34 @@ fn run(o: &Options) {
             qr_work
         };
         push(name, "solver", Some(*floor), t, work);
+    }
+
+    // One full-gradient iteration: a fit of ten iterations at a fixed step
+    // minus a fit of none (the set-up passes), divided by ten.
+    if o.solvers.iter().any(|s| s == GRADIENT_STEP) {
+        let fixed = |iterations| GradientDescent {
+            step: Some(0.1),
+            max_iterations: iterations,
+            history_stride: 0,
+            ..GradientDescent::default()
+        };
+        let (none, ten) = (fixed(0), fixed(10));
+        let t0 = time(r, &mut || {
+            none.fit(&problem)
+                .map_or(f64::NAN, |f| f.report.residual_sum_of_squares)
+        });
+        let t10 = time(r, &mut || {
+            ten.fit(&problem)
+                .map_or(f64::NAN, |f| f.report.residual_sum_of_squares)
+        });
+        let per = |a: f64, b: f64| ((b - a) / 10.0).max(0.0);
+        let t = Timing {
+            seconds: per(t0.seconds, t10.seconds),
+            min: per(t0.min, t10.min),
+            cpu: per(t0.cpu, t10.cpu),
+            extra: t10.extra,
+        };
+        push(GRADIENT_STEP, "solver", Some(Floor::Stream), t, bytes);
     }
 
     // The straightforward least-squares calls need at least as many rows as
