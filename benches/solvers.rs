@@ -12,7 +12,7 @@
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, SamplingMode};
 use leastline::bench_support as floors;
-use leastline::{Cholesky, Problem, Qr, Solver, Svd};
+use leastline::{Accelerated, Cholesky, Problem, Qr, Ridge, Solver, Svd};
 use std::hint::black_box;
 use std::time::Duration;
 
@@ -25,7 +25,19 @@ const SOLVERS: &[(&str, Maker)] = &[
     ("qr", || Box::new(Qr::default())),
     ("cholesky", || Box::new(Cholesky::default())),
     ("svd", || Box::new(Svd::default())),
+    ("ridge", || Box::new(Ridge::new(1.0))),
+    // Fifty accelerated iterations (a fixed amount of work, not a tolerance).
+    ("accelerated-50", || {
+        Box::new(Accelerated {
+            tolerance: 0.0,
+            max_iterations: 50,
+            ..Default::default()
+        })
+    }),
 ];
+
+/// Wide designs (more columns than rows): only the penalised solvers apply.
+const WIDE_SHAPES: &[(usize, usize)] = &[(500, 5_000), (1_000, 20_000)];
 
 /// (rows, columns). Fewer columns at a million rows keep the run short.
 const SHAPES: &[(usize, usize)] = &[
@@ -69,6 +81,28 @@ fn solvers(c: &mut Criterion) {
                 b.iter(|| black_box(solver.fit(&problem).map(|f| f.report.rank)))
             });
         }
+        group.finish();
+    }
+    for &(n, p) in WIDE_SHAPES {
+        let (x, y) = design::make_data(n, p, 42);
+        let problem = match Problem::new(x.view(), y.view()) {
+            Ok(problem) => problem,
+            Err(e) => panic!("{n}x{p}: {e}"),
+        };
+        let shape = format!("{n}x{p}");
+        let mut group = c.benchmark_group("solvers-wide");
+        group
+            .sample_size(10)
+            .warm_up_time(Duration::from_millis(300))
+            .measurement_time(Duration::from_secs(2))
+            .sampling_mode(SamplingMode::Flat);
+        group.bench_function(BenchmarkId::new("floor-stream", &shape), |b| {
+            b.iter(|| black_box(floors::stream_floor(&problem)))
+        });
+        let ridge = Ridge::new(1.0);
+        group.bench_function(BenchmarkId::new("ridge-dual", &shape), |b| {
+            b.iter(|| black_box(ridge.fit(&problem).map(|f| f.report.rank)))
+        });
         group.finish();
     }
 }
