@@ -115,33 +115,14 @@ pub(crate) fn finish_closed_form(
     target_scale: f64,
     penalty: f64,
 ) -> Result<Fit> {
+    // Refuse before spending a pass over the design.
     if beta.iter().any(|b| !b.is_finite()) {
         return Err(Error::Overflow {
             what: "coefficient vector",
         });
     }
-    let intercept = intercept_for(problem, &beta);
-    if !intercept.is_finite() {
-        return Err(Error::Overflow { what: "intercept" });
-    }
     let rss = crate::linalg::residuals::centered_rss(problem, &beta, target_scale);
-    let residual_df = problem
-        .usable_rows()
-        .saturating_sub(rank + usize::from(problem.has_intercept()));
-    Ok(Fit {
-        model: LinearModel::new(ndarray::Array1::from(beta), intercept),
-        report: FitReport {
-            solver: solver.to_string(),
-            rank,
-            columns: problem.cols(),
-            condition,
-            residual_sum_of_squares: rss,
-            residual_df,
-            usable_rows: problem.usable_rows(),
-            penalty,
-            iterations: None,
-        },
-    })
+    finish_with_rss(problem, solver, beta, rank, condition, rss, penalty)
 }
 
 /// As [`finish_closed_form`], for solvers that already know the weighted
@@ -166,7 +147,9 @@ pub(crate) fn finish_with_rss(
     if !intercept.is_finite() {
         return Err(Error::Overflow { what: "intercept" });
     }
-    if !rss.is_finite() {
+    // A residual sum of squares beyond the f64 range (values near 1e300)
+    // is reported as infinite; NaN would mean a lost value.
+    if rss.is_nan() {
         return Err(Error::Overflow {
             what: "residual sum of squares",
         });
