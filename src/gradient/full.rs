@@ -128,17 +128,7 @@ impl GradientDescent {
     ) -> Result<Fit> {
         let common = self.common();
         let mut s = setup(problem, &common)?;
-        let step = match self.step {
-            Some(step) => step,
-            None => {
-                let l = s.objective.lipschitz();
-                if l > 0.0 && l.is_finite() {
-                    1.0 / l
-                } else {
-                    1.0
-                }
-            }
-        };
+        let step = s.full_batch_step(self.step);
         let mut tracker = Tracker::new(
             observer,
             &common,

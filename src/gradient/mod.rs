@@ -624,6 +624,21 @@ pub(crate) struct Setup<'p, 'a> {
     pub f_zero: f64,
 }
 
+impl Setup<'_, '_> {
+    /// The full-batch step: the caller's fixed step, else `1 / L` with `L`
+    /// from power iteration (1 when `L` is not a positive finite number).
+    pub(crate) fn full_batch_step(&mut self, fixed: Option<f64>) -> f64 {
+        fixed.unwrap_or_else(|| {
+            let l = self.objective.lipschitz();
+            if l > 0.0 && l.is_finite() {
+                1.0 / l
+            } else {
+                1.0
+            }
+        })
+    }
+}
+
 pub(crate) fn setup<'p, 'a>(
     problem: &'p Problem<'a>,
     common: &Common<'_>,
