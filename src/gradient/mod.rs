@@ -511,7 +511,7 @@ impl<'o> Tracker<'o> {
         self.check_finite(iteration, step, eval.f, &eval.grad)?;
         let loss = eval.f * self.loss_unit;
         let rel = self.relative(eval);
-        if self.stride > 0 && iteration % self.stride == 0 {
+        if self.stride > 0 && iteration.is_multiple_of(self.stride) {
             self.history.push(loss);
             self.last_recorded = Some(iteration);
         }
