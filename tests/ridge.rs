@@ -16,7 +16,7 @@ use leastline::ridge::{Ridge, RidgeMethod, RidgePath};
 use leastline::{Error, Problem, Qr, Solver};
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
-use ridge_support::{make_case, rel_diff, Case, Weights};
+use ridge_support::{make_case, penalty_scale, rel_diff, weights_strategy, Case, Weights};
 
 const METHODS: [RidgeMethod; 5] = [
     RidgeMethod::Auto,
@@ -32,31 +32,6 @@ fn ridge(lambda: f64, standardize: bool, method: RidgeMethod) -> Ridge {
         standardize,
         method,
     }
-}
-
-/// Squared Frobenius norm of the penalised design (weighted, centered,
-/// divided by `sqrt(P_j)`): an upper bound of its largest squared singular
-/// value, used to put penalties on the data's scale.
-fn penalty_scale(case: &Case, standardize: bool) -> f64 {
-    let (m, _) = case.means();
-    let pw = case.penalty_weights(standardize);
-    let (n, p) = case.x.dim();
-    (0..p)
-        .map(|j| {
-            (0..n)
-                .map(|i| case.weight(i) * (case.x[(i, j)] - m[j]).powi(2))
-                .sum::<f64>()
-                / pw[j]
-        })
-        .sum()
-}
-
-fn weights_strategy() -> impl Strategy<Value = Weights> {
-    prop_oneof![
-        Just(Weights::None),
-        Just(Weights::Positive),
-        Just(Weights::SomeZero)
-    ]
 }
 
 /// The gradient of the caller's objective must vanish:

@@ -11,7 +11,7 @@ use faer::linalg::matmul::triangular::{matmul, BlockStructure};
 use faer::{Accum, Mat, Par};
 use rayon::prelude::*;
 
-use super::{as_faer, block_groups, GROUPS};
+use super::as_faer;
 use crate::prep::Scaling;
 use crate::problem::Problem;
 
@@ -181,34 +181,6 @@ pub(crate) fn transpose_times(
 /// as constant). One pass over the design, in parallel over a fixed
 /// partition of the rows; partial sums are combined in order.
 pub(crate) fn column_sq_norms(problem: &Problem<'_>, scaling: &Scaling) -> Vec<f64> {
-    let x = as_faer(&problem.design());
-    let p = problem.cols();
-    let means = &problem.stats.means;
-    let groups = block_groups(problem.rows(), 4096, GROUPS);
-    let partials: Vec<Vec<f64>> = groups
-        .par_iter()
-        .map(|group| {
-            let mut acc = vec![0.0; p];
-            for &(r0, r1) in group {
-                for i in r0..r1 {
-                    let w = problem.scaled_weight(i);
-                    if w == 0.0 {
-                        continue;
-                    }
-                    for (j, a) in acc.iter_mut().enumerate() {
-                        let d = (x[(i, j)] - means[j]) * scaling.inv_scale[j];
-                        *a += w * d * d;
-                    }
-                }
-            }
-            acc
-        })
-        .collect();
-    let mut out = vec![0.0; p];
-    for part in &partials {
-        for (o, v) in out.iter_mut().zip(part) {
-            *o += v;
-        }
-    }
-    out
+    // The gradient solvers need the same sums: one implementation serves both.
+    super::gradient::column_norms(problem, &scaling.inv_scale)
 }

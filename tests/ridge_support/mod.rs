@@ -184,3 +184,30 @@ pub fn rel_diff(a: &[f64], b: &[f64]) -> f64 {
         .fold(0.0_f64, f64::max)
         / scale
 }
+
+/// Squared Frobenius norm of the penalised design (weighted, centered,
+/// divided by `sqrt(P_j)`): an upper bound of its largest squared singular
+/// value, used to put penalties on the data's scale.
+pub fn penalty_scale(case: &Case, standardize: bool) -> f64 {
+    let (m, _) = case.means();
+    let pw = case.penalty_weights(standardize);
+    let (n, p) = case.x.dim();
+    (0..p)
+        .map(|j| {
+            (0..n)
+                .map(|i| case.weight(i) * (case.x[(i, j)] - m[j]).powi(2))
+                .sum::<f64>()
+                / pw[j]
+        })
+        .sum()
+}
+
+/// The three weighting regimes the property tests draw from.
+pub fn weights_strategy() -> impl proptest::strategy::Strategy<Value = Weights> {
+    use proptest::prelude::*;
+    prop_oneof![
+        Just(Weights::None),
+        Just(Weights::Positive),
+        Just(Weights::SomeZero)
+    ]
+}
