@@ -148,7 +148,9 @@ fn measure(label: &'static str, solver: &dyn Solver, d: &Dataset) -> Row {
     row.coef = Some(min_lre(&est, &cert.estimates()));
     row.sd = standard_deviations(&problem, &fit).map(|sd| min_lre(&sd, &cert.std_devs()));
     let rss = fit.report.residual_sum_of_squares;
-    let df = fit.report.residual_df as f64;
+    // The model's residual degrees of freedom (the gradient solvers do not
+    // measure a rank, so their report has none).
+    let df = (problem.usable_rows() - problem.parameters()) as f64;
     row.resid_sd = Some(lre((rss / df).sqrt(), cert.residual_sd));
     let center = if d.intercept {
         d.y.iter().sum::<f64>() / d.y.len() as f64

@@ -191,20 +191,23 @@ fn main() {
             Some(it) => format!("{} (open)", it.iterations),
             None => "-".to_string(),
         };
+        let rank = r.rank.map_or("-".to_string(), |k| k.to_string());
+        let condition = r.condition.map_or("-".to_string(), |c| format!("{c:.2e}"));
         println!(
-            "  {:<22} {:>10.3} {:>5} {:>10.2e} {:>14.6e} {:>9.3} {:>11}",
+            "  {:<22} {:>10.3} {:>5} {:>10} {:>14.6e} {:>9.3} {:>11}",
             name,
             seconds * 1e3,
-            r.rank,
-            r.condition,
+            rank,
+            condition,
             r.residual_sum_of_squares,
             r.penalty,
             iterations
         );
     }
-    println!("  (condition 0 = not estimated by an iterative solver; \"open\" = stopped before its tolerance)");
+    println!("  (\"-\" = not measured: an iterative solver factors nothing; \"open\" = stopped before its tolerance)");
     let fit = &fits[0].1;
-    let rmse = (fit.report.residual_sum_of_squares / fit.report.residual_df as f64).sqrt();
+    let df = fit.report.residual_df.unwrap_or(0).max(1) as f64;
+    let rmse = (fit.report.residual_sum_of_squares / df).sqrt();
     if let Ok(r2) = fit.model.r_squared(x.view(), y.view()) {
         println!("\nresidual standard deviation {rmse:.1} kWh, R^2 {r2:.4}");
     }

@@ -11,7 +11,7 @@
 //! - [`tall_skinny_r`], [`residual_pass`], [`fill_pass`]: the passes a
 //!   closed-form fit is made of, to show where its time goes.
 
-use crate::linalg::{block_groups, gram_block_rows, GROUPS};
+use crate::linalg::{block_groups, block_rows, GROUPS};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 
@@ -65,7 +65,7 @@ pub fn fill_pass(problem: &Problem<'_>) -> f64 {
     use rayon::prelude::*;
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
     let k = problem.cols() + 1;
-    let b = gram_block_rows(k);
+    let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
     groups
         .par_iter()

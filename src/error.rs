@@ -21,6 +21,9 @@ pub enum Input {
     NewTarget,
     /// Starting coefficients given to an iterative solver.
     StartingPoint,
+    /// Coefficients given to [`crate::LinearModel::new`] (index `p` is the
+    /// intercept).
+    Coefficients,
 }
 
 impl fmt::Display for Input {
@@ -32,6 +35,7 @@ impl fmt::Display for Input {
             Input::NewDesign => "rows to predict",
             Input::NewTarget => "targets to evaluate",
             Input::StartingPoint => "starting coefficients",
+            Input::Coefficients => "model coefficients",
         })
     }
 }
@@ -86,6 +90,31 @@ pub enum Error {
         row: usize,
         /// The offending weight.
         value: f64,
+    },
+    /// A positive weight so small beside the largest that, divided by the
+    /// internal weight scale (the power of two at or below the largest
+    /// weight), it is no longer a normal `f64`: the row could not take its
+    /// part in the fit with its own weight. Set it to 0 or rescale the
+    /// weights so that they span less than about `1e307`.
+    #[error("weight {value:e} at row {row} is positive but too small beside the largest weight {largest:e} to be represented in scaled form: set it to 0 or narrow the range of the weights")]
+    WeightRange {
+        /// Row index (0-based).
+        row: usize,
+        /// The offending weight.
+        value: f64,
+        /// The largest weight.
+        largest: f64,
+    },
+    /// The values of a column (or of the target) span more than the range
+    /// of `f64` about their weighted mean, so that the centered values the
+    /// solvers work with (`x - mean`) cannot be represented: for example a
+    /// column holding both `-1e308` and `1e308`.
+    #[error("the {input}{} spans more than the largest f64 about its mean: its centered values cannot be represented", column.map(|c| format!(" column {c}")).unwrap_or_default())]
+    SpreadOverflow {
+        /// The array holding the values.
+        input: Input,
+        /// Column index (0-based) for the design.
+        column: Option<usize>,
     },
     /// Every weight is zero, so no row takes part in the fit.
     #[error("all {rows} weights are zero: no row takes part in the fit")]
@@ -177,6 +206,25 @@ pub enum Error {
     Overflow {
         /// What overflowed.
         what: &'static str,
+    },
+    /// A result computed for one row is not finite: its true value lies
+    /// beyond the range of `f64` (a prediction at values near `1e300`, say).
+    #[error("the {what} at row {row} is not finite: it exceeds the range of f64")]
+    OverflowAt {
+        /// What overflowed.
+        what: &'static str,
+        /// Row index (0-based).
+        row: usize,
+    },
+    /// A working array sized by the input would need more memory than can
+    /// be allocated (or more than `usize` can address), or far more than
+    /// the method is meant to use (the dual ridge on a tall design).
+    #[error("the {what} would need {bytes} bytes, more than can be allocated")]
+    TooLarge {
+        /// Which working array.
+        what: &'static str,
+        /// Bytes it would need.
+        bytes: u128,
     },
     /// Inference was asked of a fit that does not support it.
     #[error("inference is not available: {reason}")]

@@ -17,7 +17,8 @@
 //! let problem = Problem::new(x.view(), y.view())?;
 //! let fit = Qr::default().fit(&problem)?;
 //! println!("slopes {:?}, intercept {}", fit.model.coefficients(), fit.model.intercept());
-//! println!("rank {}, condition {:.1}", fit.report.rank, fit.report.condition);
+//! // Closed forms measure the rank and condition; gradient solvers report None.
+//! println!("rank {:?}, condition {:.1?}", fit.report.rank, fit.report.condition);
 //! let y_new = fit.model.predict(array![[6.0, 0.2]].view())?;
 //! assert_eq!(y_new.len(), 1);
 //! # Ok::<(), leastline::Error>(())
@@ -58,6 +59,7 @@
 #![warn(clippy::unwrap_used)]
 #![doc(test(attr(deny(warnings))))]
 
+mod alloc;
 #[doc(hidden)]
 pub mod bench_support;
 pub mod error;
@@ -69,6 +71,9 @@ mod penalty;
 mod prep;
 pub mod problem;
 pub mod ridge;
+mod scaled;
+#[cfg(feature = "serde")]
+mod serde_float;
 pub mod solver;
 mod solvers;
 

@@ -3,28 +3,75 @@
 use ndarray::{Array1, ArrayView1, ArrayView2};
 
 use crate::error::{Error, Input, Result};
+use crate::scaled::{exponent, ldexp};
 
 /// Coefficients and intercept of a fitted linear model, in the caller's units:
 /// `y_hat = intercept + x . coefficients`.
+///
+/// Every coefficient and the intercept are finite: [`LinearModel::new`]
+/// checks them, and so does deserialisation (feature `serde`).
 ///
 /// ```
 /// use leastline::LinearModel;
 /// use ndarray::array;
 ///
-/// let model = LinearModel::new(array![2.0, -1.0], 0.5);
+/// let model = LinearModel::new(array![2.0, -1.0], 0.5)?;
 /// assert_eq!(model.predict_row(array![1.0, 3.0].view())?, -0.5);
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[cfg_attr(feature = "serde", serde(try_from = "ModelData"))]
 pub struct LinearModel {
     coefficients: Array1<f64>,
     intercept: f64,
 }
 
+/// The serialised form of a [`LinearModel`], checked on the way in.
+#[cfg(feature = "serde")]
+#[derive(serde::Deserialize)]
+struct ModelData {
+    coefficients: Array1<f64>,
+    intercept: f64,
+}
+
+#[cfg(feature = "serde")]
+impl TryFrom<ModelData> for LinearModel {
+    type Error = Error;
+    fn try_from(data: ModelData) -> Result<Self> {
+        LinearModel::new(data.coefficients, data.intercept)
+    }
+}
+
 impl LinearModel {
     /// A model with the given slopes and intercept (use 0 for none).
-    pub fn new(coefficients: Array1<f64>, intercept: f64) -> Self {
+    ///
+    /// # Errors
+    /// [`Error::NonFinite`] with [`Input::Coefficients`] for a NaN or
+    /// infinite value: `row` is the slope's column, or the number of slopes
+    /// for the intercept.
+    pub fn new(coefficients: Array1<f64>, intercept: f64) -> Result<Self> {
+        let p = coefficients.len();
+        let bad = coefficients
+            .iter()
+            .copied()
+            .chain(std::iter::once(intercept))
+            .enumerate()
+            .find(|(_, v)| !v.is_finite());
+        if let Some((row, value)) = bad {
+            return Err(Error::NonFinite {
+                input: Input::Coefficients,
+                row: row.min(p),
+                column: None,
+                value,
+            });
+        }
+        Ok(Self::from_parts(coefficients, intercept))
+    }
+
+    /// A model from values already known to be finite (the solvers check).
+    pub(crate) fn from_parts(coefficients: Array1<f64>, intercept: f64) -> Self {
+        debug_assert!(coefficients.iter().all(|b| b.is_finite()) && intercept.is_finite());
         LinearModel {
             coefficients,
             intercept,
@@ -50,7 +97,9 @@ impl LinearModel {
     ///
     /// # Errors
     /// [`Error::ColumnCountMismatch`] if the row has the wrong length;
-    /// [`Error::NonFinite`] (row 0) for a NaN or infinite entry.
+    /// [`Error::NonFinite`] (row 0) for a NaN or infinite entry;
+    /// [`Error::OverflowAt`] (row 0) when the prediction exceeds the range
+    /// of `f64`.
     pub fn predict_row(&self, row: ArrayView1<'_, f64>) -> Result<f64> {
         if row.len() != self.cols() {
             return Err(Error::ColumnCountMismatch {
@@ -70,14 +119,32 @@ impl LinearModel {
             }
             acc += v * b;
         }
-        Ok(acc)
+        if acc.is_finite() {
+            return Ok(acc);
+        }
+        // A product or partial sum left the range: form the sum again with
+        // every term as mantissa times a power of two.
+        let terms = row
+            .iter()
+            .zip(self.coefficients.iter())
+            .map(|(&v, &b)| product_parts(v, b))
+            .chain(std::iter::once((self.intercept, 0)));
+        let value = scaled_sum(terms);
+        if !value.is_finite() {
+            return Err(Error::OverflowAt {
+                what: "prediction",
+                row: 0,
+            });
+        }
+        Ok(value)
     }
 
     /// Predictions for every row of `x` (`m x p`, any layout).
     ///
     /// # Errors
     /// [`Error::ColumnCountMismatch`]; [`Error::NonFinite`] naming the row
-    /// and column of the first NaN or infinity.
+    /// and column of the first NaN or infinity; [`Error::OverflowAt`]
+    /// naming the first row whose prediction exceeds the range of `f64`.
     pub fn predict(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>> {
         if x.ncols() != self.cols() {
             return Err(Error::ColumnCountMismatch {
@@ -99,13 +166,20 @@ impl LinearModel {
                     column,
                     value,
                 },
+                Error::OverflowAt { what, .. } => Error::OverflowAt { what, row: i },
                 other => other,
             })?;
         }
         Ok(out)
     }
 
-    fn residuals(&self, x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Result<Array1<f64>> {
+    /// Residuals `y_hat - y` as `(mantissa, exponent)` pairs (a difference
+    /// of two values near the ends of the range may exceed it).
+    fn residual_parts(
+        &self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView1<'_, f64>,
+    ) -> Result<Vec<(f64, i32)>> {
         if y.len() != x.nrows() {
             return Err(Error::LengthMismatch {
                 input: Input::NewTarget,
@@ -126,18 +200,31 @@ impl LinearModel {
                 });
             }
         }
-        Ok(self.predict(x)? - y)
+        let fitted = self.predict(x)?;
+        Ok(fitted
+            .iter()
+            .zip(y)
+            .map(|(&f, &v)| difference(f, v))
+            .collect())
     }
 
     /// The squared loss `(1 / 2n) sum_i (y_hat_i - y_i)^2` on the given data.
     ///
     /// # Errors
     /// As [`LinearModel::predict`], plus [`Error::LengthMismatch`] and
-    /// [`Error::NoRows`].
+    /// [`Error::NoRows`]; [`Error::Overflow`] when the loss exceeds the
+    /// range of `f64`.
     pub fn squared_loss(&self, x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Result<f64> {
-        let r = self.residuals(x, y)?;
+        let r = self.residual_parts(x, y)?;
+        let (m, e) = sum_of_squares(&r);
         let n = r.len() as f64;
-        Ok(r.iter().map(|v| v * v).sum::<f64>() / (2.0 * n))
+        let loss = ldexp(m / (2.0 * n), e);
+        if !loss.is_finite() {
+            return Err(Error::Overflow {
+                what: "squared loss",
+            });
+        }
+        Ok(loss)
     }
 
     /// The coefficient of determination on the given data:
@@ -147,22 +234,82 @@ impl LinearModel {
     /// uncentered form (sum of squares about zero) is the usual measure and
     /// is what the fit report's inference uses. When `y` is constant the
     /// denominator is zero and the result is `-inf`, `NaN` is never returned:
-    /// a perfect fit of a constant gives 1.
+    /// a perfect fit of a constant gives 1. Both sums are formed from values
+    /// divided by a power of two, so data near the ends of the `f64` range
+    /// give the same R² as the same data near 1.
     ///
     /// # Errors
-    /// As [`LinearModel::squared_loss`].
+    /// As [`LinearModel::predict`], plus [`Error::LengthMismatch`] and
+    /// [`Error::NoRows`].
     pub fn r_squared(&self, x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Result<f64> {
-        let r = self.residuals(x, y)?;
-        let mean = y.iter().sum::<f64>() / y.len() as f64;
-        let ss_res: f64 = r.iter().map(|v| v * v).sum();
-        let ss_tot: f64 = y.iter().map(|v| (v - mean) * (v - mean)).sum();
-        if ss_tot == 0.0 {
-            return Ok(if ss_res == 0.0 {
-                1.0
-            } else {
-                f64::NEG_INFINITY
-            });
+        let r = self.residual_parts(x, y)?;
+        let mean = crate::scaled::weighted_mean(y.iter().map(|&v| (1.0, v)));
+        let spread: Vec<(f64, i32)> = y.iter().map(|&v| difference(v, mean)).collect();
+        let (mr, er) = sum_of_squares(&r);
+        let (mt, et) = sum_of_squares(&spread);
+        if mt == 0.0 {
+            return Ok(if mr == 0.0 { 1.0 } else { f64::NEG_INFINITY });
         }
-        Ok(1.0 - ss_res / ss_tot)
+        // The ratio of two sums: its exponent may be large; 1 - ratio is
+        // then -inf only when the ratio itself exceeds the range.
+        let ratio = ldexp(mr / mt, er - et);
+        Ok(1.0 - ratio)
     }
+}
+
+/// `a - b` as `(m, e)` with `a - b = m 2^e` (`e` is 1 when the plain
+/// difference would overflow, and then `m` is formed from halves).
+pub(crate) fn difference(a: f64, b: f64) -> (f64, i32) {
+    let d = a - b;
+    if d.is_finite() {
+        (d, 0)
+    } else {
+        (0.5 * a - 0.5 * b, 1)
+    }
+}
+
+/// `v b` as `(m, e)` with `v b = m 2^e`, never overflowing.
+fn product_parts(v: f64, b: f64) -> (f64, i32) {
+    if v == 0.0 || b == 0.0 {
+        return (0.0, 0);
+    }
+    let (ev, eb) = (exponent(v), exponent(b));
+    (ldexp(v, -ev) * ldexp(b, -eb), ev + eb)
+}
+
+/// `sum_i m_i 2^e_i`, rounded once at the end to `f64` (infinite beyond
+/// the range): the terms are brought to the largest exponent first.
+fn scaled_sum(terms: impl Iterator<Item = (f64, i32)> + Clone) -> f64 {
+    let top = terms
+        .clone()
+        .filter(|(m, _)| *m != 0.0)
+        .map(|(m, e)| exponent(m) + e)
+        .max();
+    let Some(top) = top else {
+        return 0.0;
+    };
+    let mut acc = crate::scaled::Neumaier::default();
+    for (m, e) in terms {
+        acc.add(ldexp(m, e - top));
+    }
+    ldexp(acc.value(), top)
+}
+
+/// `sum_i (m_i 2^e_i)^2` as `(mantissa, exponent)`, without overflow or
+/// underflow of the squares.
+fn sum_of_squares(values: &[(f64, i32)]) -> (f64, i32) {
+    let top = values
+        .iter()
+        .filter(|(m, _)| *m != 0.0)
+        .map(|(m, e)| exponent(*m) + e)
+        .max();
+    let Some(top) = top else {
+        return (0.0, 0);
+    };
+    let mut acc = crate::scaled::Neumaier::default();
+    for &(m, e) in values {
+        let s = ldexp(m, e - top);
+        acc.add(s * s);
+    }
+    (acc.value(), 2 * top)
 }

@@ -38,11 +38,14 @@
 use crate::error::{Error, Result};
 use crate::prep::Scaling;
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp};
 
-/// Largest penalty used in scaled coordinates. A larger one (only reachable
-/// with columns of extreme scale) is clamped: the coefficient it multiplies
-/// is zero to working precision either way.
-pub(crate) const MAX_SCALED_PENALTY: f64 = 1e250;
+/// Largest penalty used in scaled coordinates: a penalty whose scaled value
+/// exceeds the range of `f64` is used as `f64::MAX` (the coefficients it
+/// multiplies are then below `1e-300` of their unpenalised values either
+/// way). No other limit applies: the scaling is exact for every weight and
+/// column scale.
+pub(crate) const MAX_SCALED_PENALTY: f64 = f64::MAX;
 
 /// Checks a caller's penalty: finite and `>= 0`.
 ///
@@ -74,19 +77,16 @@ pub(crate) fn column_penalties(
     lambda: f64,
     sq_norms: Option<&[f64]>,
 ) -> Vec<f64> {
-    let ws = problem.stats.weight_scale;
-    let total = problem.total_weight();
+    let ws = exponent(problem.stats.weight_scale);
+    let total = problem.stats.total_weight;
     (0..problem.cols())
         .map(|j| {
             if scaling.constant[j] {
                 return 0.0;
             }
             let v = match sq_norms {
-                None => {
-                    let inv = scaling.inv_scale[j];
-                    lambda * inv * inv / ws
-                }
-                Some(norms) => lambda * (norms[j] / total),
+                None => ldexp(lambda, -2 * scaling.scale_exp[j] - ws),
+                Some(norms) => ldexp(lambda * (norms[j] / total), -ws),
             };
             if v.is_nan() {
                 0.0
@@ -103,8 +103,11 @@ pub(crate) struct PenaltyMap {
     /// `f_j`, in `(0, 1]` for informative columns, 0 for columns treated as
     /// constant (or of zero norm).
     pub factors: Vec<f64>,
-    /// `u`: the penalty on every `gamma^_j` is `lambda * u`.
+    /// `u = unit * 2^unit_exp`: the penalty on every `gamma^_j` is
+    /// `lambda * u`. Held apart from its power of two, so that no weight or
+    /// column scale can push it out of range.
     pub unit: f64,
+    pub unit_exp: i32,
 }
 
 impl PenaltyMap {
@@ -127,20 +130,24 @@ impl PenaltyMap {
                     return PenaltyMap {
                         factors: vec![0.0; p],
                         unit: 1.0,
+                        unit_exp: 0,
                     };
                 }
+                let emax = exponent(smax);
                 let factors = (0..p)
                     .map(|j| {
                         if live(j) {
-                            scaling.scale[j] / smax
+                            ldexp(1.0, scaling.scale_exp[j] - emax)
                         } else {
                             0.0
                         }
                     })
                     .collect();
-                let inv = 1.0 / smax;
-                let unit = (inv * inv / problem.stats.weight_scale).clamp(1e-280, 1e280);
-                PenaltyMap { factors, unit }
+                PenaltyMap {
+                    factors,
+                    unit: 1.0,
+                    unit_exp: -2 * emax - exponent(problem.stats.weight_scale),
+                }
             }
             Some(norms) => {
                 let nmin = (0..p)
@@ -151,6 +158,7 @@ impl PenaltyMap {
                     return PenaltyMap {
                         factors: vec![0.0; p],
                         unit: 1.0,
+                        unit_exp: 0,
                     };
                 }
                 let factors = (0..p)
@@ -162,25 +170,32 @@ impl PenaltyMap {
                         }
                     })
                     .collect();
-                let unit = (nmin / problem.total_weight()).clamp(1e-280, 1e280);
-                PenaltyMap { factors, unit }
+                // u = n_min / W with W = W~ ws (the caller's total weight).
+                PenaltyMap {
+                    factors,
+                    unit: nmin / problem.stats.total_weight,
+                    unit_exp: -exponent(problem.stats.weight_scale),
+                }
             }
         }
     }
 
     /// The uniform penalty `mu = lambda u` in the coordinates `gamma^`.
     pub fn scaled(&self, lambda: f64) -> f64 {
-        (lambda * self.unit).min(MAX_SCALED_PENALTY)
+        ldexp(lambda * self.unit, self.unit_exp).min(MAX_SCALED_PENALTY)
+    }
+
+    /// `sqrt(v / u)`: a singular value in the penalty's units from its
+    /// square `v` in uniform-penalty coordinates.
+    pub fn caller_singular_value(&self, v: f64) -> f64 {
+        let e = -self.unit_exp;
+        let odd = f64::from(1 << e.rem_euclid(2));
+        ldexp((v / self.unit * odd).sqrt(), e.div_euclid(2))
     }
 
     /// Whether column `j` takes part (non-zero factor).
     pub fn is_live(&self, j: usize) -> bool {
         self.factors[j] != 0.0
-    }
-
-    /// Number of columns that take part.
-    pub fn live(&self) -> usize {
-        self.factors.iter().filter(|f| **f != 0.0).count()
     }
 
     /// Coefficients in the caller's units: `b_j = f_j gamma^_j s_y / s_j`.
@@ -192,7 +207,7 @@ impl PenaltyMap {
                 if self.factors[j] == 0.0 {
                     0.0
                 } else {
-                    (self.factors[j] * g) * (scaling.target_scale / scaling.scale[j])
+                    scaling.to_caller(j, self.factors[j] * g)
                 }
             })
             .collect()

@@ -11,7 +11,8 @@ use ndarray::s;
 
 use crate::linalg::kernels;
 
-use crate::problem::{pow2_scale, Problem};
+use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp, pow2_scale};
 
 /// Column scaling of the centered, weighted design (powers of two, so the
 /// scaling itself is exact).
@@ -25,6 +26,10 @@ pub(crate) struct Scaling {
     pub target_scale: f64,
     /// Columns whose centered values are rounding noise (see [`Scaling::new`]).
     pub constant: Vec<bool>,
+    /// `log2(scale[j])`.
+    pub scale_exp: Vec<i32>,
+    /// `log2(target_scale)`.
+    pub target_exp: i32,
 }
 
 impl Scaling {
@@ -45,19 +50,34 @@ impl Scaling {
             inv_scale.push(if is_constant { 0.0 } else { 1.0 / s });
             constant.push(is_constant);
         }
+        let target_scale = pow2_scale(st.target_centered_max);
         Scaling {
+            scale_exp: scale.iter().map(|&s| exponent(s)).collect(),
             scale,
             inv_scale,
-            target_scale: pow2_scale(st.target_centered_max),
+            target_exp: exponent(target_scale),
+            target_scale,
             constant,
         }
+    }
+
+    /// A slope in the caller's units from its scaled value:
+    /// `gamma * s_y / s_j`, rounded once (no spurious overflow or
+    /// underflow of the ratio of the scales).
+    pub fn to_caller(&self, j: usize, gamma: f64) -> f64 {
+        ldexp(gamma, self.target_exp - self.scale_exp[j])
+    }
+
+    /// A slope in scaled units from its caller value: `b * s_j / s_y`.
+    pub fn to_scaled(&self, j: usize, beta: f64) -> f64 {
+        ldexp(beta, self.scale_exp[j] - self.target_exp)
     }
 
     /// Upper bound on the norm of column j of the *raw* weighted design,
     /// expressed in scaled units: `sqrt(W) * max|x_j| / scale_j`. Rank tests
     /// compare pivots against it.
     pub fn raw_norm_bound(&self, problem: &Problem<'_>, j: usize) -> f64 {
-        problem.stats.total_weight.sqrt() * problem.stats.raw_max[j] / self.scale[j]
+        problem.stats.total_weight.sqrt() * (problem.stats.raw_max[j] / self.scale[j])
     }
 }
 

@@ -11,6 +11,7 @@ use rayon::prelude::*;
 
 use crate::error::{Error, Input, Result};
 use crate::linalg::kernels::{self, ColumnSummary};
+use crate::scaled::Neumaier;
 
 /// Rows per chunk in the parallel passes over the design.
 pub(crate) const STATS_CHUNK: usize = 4096;
@@ -73,6 +74,8 @@ pub(crate) struct Stats {
     pub total_weight: f64,
     /// Rows with a non-zero weight.
     pub usable_rows: usize,
+    /// See [`Problem::fingerprint`].
+    pub fingerprint: u64,
 }
 
 impl<'a> ProblemBuilder<'a> {
@@ -239,22 +242,29 @@ impl<'a> Problem<'a> {
         Ok(())
     }
 
+    /// A 64-bit hash of the problem, computed during validation: its shape,
+    /// whether it has an intercept, its weight sum and weighted means, the
+    /// extremes of every column and of the target, and checksums
+    /// `sum_i c_i v_i` of every column, the target and the scaled weights
+    /// with fixed pseudo-random multipliers `c_i` per row. Fits record it
+    /// ([`crate::FitReport::fingerprint`]) and inference refuses a problem
+    /// whose fingerprint differs. The same data in any memory layout give
+    /// the same fingerprint; a change of any value almost surely changes it.
+    pub fn fingerprint(&self) -> u64 {
+        self.stats.fingerprint
+    }
+
     /// The default relative rank tolerance: `max(usable rows, columns) * eps`.
     pub fn default_rank_tolerance(&self) -> f64 {
         self.stats.usable_rows.max(self.cols()).max(1) as f64 * f64::EPSILON
     }
 }
 
-/// Returns the power of two at or below `|v|`, clamped to a safe exponent
-/// range (so that its inverse is finite); 1 for zero.
-pub(crate) fn pow2_scale(v: f64) -> f64 {
-    if v == 0.0 || !v.is_finite() {
-        return 1.0;
-    }
-    let e = v.abs().log2().floor().clamp(-1000.0, 1000.0);
-    e.exp2()
-}
+/// The power of two at or below `|v|` (see [`crate::scaled::pow2_scale`]).
+pub(crate) use crate::scaled::pow2_scale;
 
+/// Checks the weights and returns the weight scale: the power of two at or
+/// below the largest weight.
 fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
     let mut max = 0.0_f64;
     for (row, &value) in w.iter().enumerate() {
@@ -266,7 +276,19 @@ fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
     if max == 0.0 {
         return Err(Error::AllWeightsZero { rows: w.len() });
     }
-    Ok(pow2_scale(max))
+    let scale = pow2_scale(max);
+    // Every positive weight must keep a normal value once divided by the
+    // scale, or its row would be dropped (or its weight rounded) silently.
+    for (row, &value) in w.iter().enumerate() {
+        if value > 0.0 && value / scale < f64::MIN_POSITIVE {
+            return Err(Error::WeightRange {
+                row,
+                value,
+                largest: max,
+            });
+        }
+    }
+    Ok(scale)
 }
 
 fn check_vector(v: &ArrayView1<'_, f64>, input: Input) -> Result<()> {
@@ -283,39 +305,66 @@ fn check_vector(v: &ArrayView1<'_, f64>, input: Input) -> Result<()> {
     Ok(())
 }
 
-/// Compensated (Neumaier) accumulator.
-#[derive(Clone, Copy, Default)]
-struct Neumaier {
-    sum: f64,
-    comp: f64,
-}
-
-impl Neumaier {
-    #[inline]
-    fn add(&mut self, v: f64) {
-        let t = self.sum + v;
-        if self.sum.abs() >= v.abs() {
-            self.comp += (self.sum - t) + v;
-        } else {
-            self.comp += (v - t) + self.sum;
-        }
-        self.sum = t;
-    }
-    fn value(self) -> f64 {
-        self.sum + self.comp
-    }
-}
-
 /// Partial column summaries of one chunk of rows.
 struct Partial {
     sums: Vec<Neumaier>,
     min: Vec<f64>,
     max: Vec<f64>,
+    /// Extremes over every row, zero weights included.
+    all_min: Vec<f64>,
+    all_max: Vec<f64>,
+    /// Fingerprint sums `sum_i c_i x_ij`, `sum_i c_i y_i`, `sum_i c_i w~_i`
+    /// over every row.
+    mix: Vec<f64>,
+    ymix: f64,
+    wmix: f64,
     ysum: Neumaier,
     ymin: f64,
     ymax: f64,
+    y_all_min: f64,
+    y_all_max: f64,
     wsum: Neumaier,
     usable: usize,
+}
+
+impl Partial {
+    fn new(p: usize) -> Self {
+        Partial {
+            sums: vec![Neumaier::default(); p],
+            min: vec![f64::INFINITY; p],
+            max: vec![f64::NEG_INFINITY; p],
+            all_min: vec![f64::INFINITY; p],
+            all_max: vec![f64::NEG_INFINITY; p],
+            mix: vec![0.0; p],
+            ymix: 0.0,
+            wmix: 0.0,
+            ysum: Neumaier::default(),
+            ymin: f64::INFINITY,
+            ymax: f64::NEG_INFINITY,
+            y_all_min: f64::INFINITY,
+            y_all_max: f64::NEG_INFINITY,
+            wsum: Neumaier::default(),
+            usable: 0,
+        }
+    }
+
+    /// Takes the target value of a row of scaled weight `wi` (possibly 0)
+    /// and fingerprint multiplier `c`.
+    #[inline]
+    fn add_target(&mut self, wi: f64, yi: f64, c: f64) {
+        self.ymix += c * yi;
+        self.wmix += c * wi;
+        self.y_all_min = self.y_all_min.min(yi);
+        self.y_all_max = self.y_all_max.max(yi);
+        if wi == 0.0 {
+            return;
+        }
+        self.usable += 1;
+        self.wsum.add(wi);
+        self.ysum.add(wi * yi);
+        self.ymin = self.ymin.min(yi);
+        self.ymax = self.ymax.max(yi);
+    }
 }
 
 /// The summaries of rows `r0..r1` of a design whose rows are contiguous,
@@ -339,31 +388,18 @@ fn fast_chunk(
         #[inline(always)]
         || {
             let mut summary = ColumnSummary::new(p);
-            let mut part = Partial {
-                sums: Vec::new(),
-                min: Vec::new(),
-                max: Vec::new(),
-                ysum: Neumaier::default(),
-                ymin: f64::INFINITY,
-                ymax: f64::NEG_INFINITY,
-                wsum: Neumaier::default(),
-                usable: 0,
-            };
+            let mut part = Partial::new(0);
             for (local, row) in xb.rows().into_iter().enumerate() {
                 let xs = row.to_slice()?;
                 let i = r0 + local;
                 let wi = w.map_or(1.0, |w| w[i] / weight_scale);
+                let c = row_multiplier(i);
                 if wi == 0.0 {
-                    summary.check_row(xs);
-                    continue;
+                    summary.check_row(xs, c);
+                } else {
+                    summary.add_row(xs, wi, w.is_some(), c);
                 }
-                part.usable += 1;
-                part.wsum.add(wi);
-                summary.add_row(xs, wi, w.is_some());
-                let yi = y[i];
-                part.ysum.add(wi * yi);
-                part.ymin = part.ymin.min(yi);
-                part.ymax = part.ymax.max(yi);
+                part.add_target(wi, y[i], c);
             }
             Some((summary, part))
         },
@@ -379,6 +415,9 @@ fn fast_chunk(
         .collect();
     part.min = summary.min;
     part.max = summary.max;
+    part.all_min = summary.all_min;
+    part.all_max = summary.all_max;
+    part.mix = summary.mix;
     Some(part)
 }
 
@@ -400,16 +439,8 @@ fn fast_chunk_by_columns(
     let wts: Vec<f64> = (r0..r1)
         .map(|i| w.map_or(1.0, |w| w[i] / weight_scale))
         .collect();
-    let mut part = Partial {
-        sums: vec![Neumaier::default(); p],
-        min: vec![f64::INFINITY; p],
-        max: vec![f64::NEG_INFINITY; p],
-        ysum: Neumaier::default(),
-        ymin: f64::INFINITY,
-        ymax: f64::NEG_INFINITY,
-        wsum: Neumaier::default(),
-        usable: 0,
-    };
+    let mults: Vec<f64> = (r0..r1).map(row_multiplier).collect();
+    let mut part = Partial::new(p);
     let finite = kernels::dispatch(
         #[inline(always)]
         || {
@@ -422,10 +453,16 @@ fn fast_chunk_by_columns(
                 let mut lo = [f64::INFINITY; 4];
                 let mut hi = [f64::NEG_INFINITY; 4];
                 let mut ck = [0.0f64; 4];
-                for (local, &wi) in wts.iter().enumerate() {
+                let mut all_lo = [f64::INFINITY; 4];
+                let mut all_hi = [f64::NEG_INFINITY; 4];
+                let mut mix = [0.0f64; 4];
+                for (local, (&wi, &mult)) in wts.iter().zip(&mults).enumerate() {
                     for l in 0..q {
                         let v = cols[j + l][local];
                         ck[l] += v * 0.0;
+                        mix[l] += mult * v;
+                        all_lo[l] = if v < all_lo[l] { v } else { all_lo[l] };
+                        all_hi[l] = if v > all_hi[l] { v } else { all_hi[l] };
                         if wi == 0.0 {
                             continue;
                         }
@@ -446,6 +483,9 @@ fn fast_chunk_by_columns(
                     };
                     part.min[j + l] = lo[l];
                     part.max[j + l] = hi[l];
+                    part.all_min[j + l] = all_lo[l];
+                    part.all_max[j + l] = all_hi[l];
+                    part.mix[j + l] = mix[l];
                 }
                 j += q;
             }
@@ -455,19 +495,19 @@ fn fast_chunk_by_columns(
     if !finite {
         return None;
     }
-    for (local, &wi) in wts.iter().enumerate() {
-        if wi == 0.0 {
-            continue;
-        }
-        part.usable += 1;
-        part.wsum.add(wi);
-        let yi = y[r0 + local];
-        part.ysum.add(wi * yi);
-        part.ymin = part.ymin.min(yi);
-        part.ymax = part.ymax.max(yi);
+    for (local, (&wi, &c)) in wts.iter().zip(&mults).enumerate() {
+        part.add_target(wi, y[r0 + local], c);
     }
     Some(part)
 }
+
+/// Largest magnitude whose weighted sums over a chunk cannot overflow
+/// (`2^960`: `n * 2 * 2^960` stays finite for any realistic `n`), and the
+/// smallest one whose products with the weights lose no digits that
+/// matter beside the sum. Columns outside `[SAFE_MIN, SAFE_MAX]` have their
+/// sums formed again from values divided by a power of two.
+const SAFE_MAX: f64 = 9.7453140113999032e288; // 2^960
+const SAFE_MIN: f64 = 1.0261342003245941e-289; // 2^-960
 
 fn compute_stats(
     x: &ArrayView2<'_, f64>,
@@ -488,16 +528,7 @@ fn compute_stats(
             if let Some(part) = fast_chunk(x, y, w, weight_scale, r0, r1) {
                 return Ok(part);
             }
-            let mut part = Partial {
-                sums: vec![Neumaier::default(); p],
-                min: vec![f64::INFINITY; p],
-                max: vec![f64::NEG_INFINITY; p],
-                ysum: Neumaier::default(),
-                ymin: f64::INFINITY,
-                ymax: f64::NEG_INFINITY,
-                wsum: Neumaier::default(),
-                usable: 0,
-            };
+            let mut part = Partial::new(p);
             for i in r0..r1 {
                 let row = x.index_axis(Axis(0), i);
                 for (j, &v) in row.iter().enumerate() {
@@ -509,78 +540,236 @@ fn compute_stats(
                             value: v,
                         });
                     }
+                    part.all_min[j] = part.all_min[j].min(v);
+                    part.all_max[j] = part.all_max[j].max(v);
+                }
+                let c = row_multiplier(i);
+                for (j, &v) in row.iter().enumerate() {
+                    part.mix[j] += c * v;
                 }
                 let wi = w.map_or(1.0, |w| w[i] / weight_scale);
-                if wi == 0.0 {
-                    continue;
+                if wi != 0.0 {
+                    for (j, &v) in row.iter().enumerate() {
+                        part.sums[j].add(wi * v);
+                        part.min[j] = part.min[j].min(v);
+                        part.max[j] = part.max[j].max(v);
+                    }
                 }
-                part.usable += 1;
-                part.wsum.add(wi);
-                for (j, &v) in row.iter().enumerate() {
-                    part.sums[j].add(wi * v);
-                    part.min[j] = part.min[j].min(v);
-                    part.max[j] = part.max[j].max(v);
-                }
-                let yi = y[i];
-                part.ysum.add(wi * yi);
-                part.ymin = part.ymin.min(yi);
-                part.ymax = part.ymax.max(yi);
+                part.add_target(wi, y[i], c);
             }
             Ok(part)
         })
         .collect();
-    let mut sums = vec![Neumaier::default(); p];
-    let mut min = vec![f64::INFINITY; p];
-    let mut max = vec![f64::NEG_INFINITY; p];
-    let mut ysum = Neumaier::default();
-    let (mut ymin, mut ymax) = (f64::INFINITY, f64::NEG_INFINITY);
-    let mut wsum = Neumaier::default();
-    let mut usable = 0;
+    let mut total = Partial::new(p);
     for part in partials {
         let part = part?;
         for j in 0..p {
-            sums[j].add(part.sums[j].sum);
-            sums[j].add(part.sums[j].comp);
-            min[j] = min[j].min(part.min[j]);
-            max[j] = max[j].max(part.max[j]);
+            total.sums[j].add(part.sums[j].sum);
+            total.sums[j].add(part.sums[j].comp);
+            total.min[j] = total.min[j].min(part.min[j]);
+            total.max[j] = total.max[j].max(part.max[j]);
+            total.all_min[j] = total.all_min[j].min(part.all_min[j]);
+            total.all_max[j] = total.all_max[j].max(part.all_max[j]);
+            total.mix[j] += part.mix[j];
         }
-        ysum.add(part.ysum.sum);
-        ysum.add(part.ysum.comp);
-        ymin = ymin.min(part.ymin);
-        ymax = ymax.max(part.ymax);
-        wsum.add(part.wsum.sum);
-        wsum.add(part.wsum.comp);
-        usable += part.usable;
+        total.ymix += part.ymix;
+        total.wmix += part.wmix;
+        total.ysum.add(part.ysum.sum);
+        total.ysum.add(part.ysum.comp);
+        total.ymin = total.ymin.min(part.ymin);
+        total.ymax = total.ymax.max(part.ymax);
+        total.y_all_min = total.y_all_min.min(part.y_all_min);
+        total.y_all_max = total.y_all_max.max(part.y_all_max);
+        total.wsum.add(part.wsum.sum);
+        total.wsum.add(part.wsum.comp);
+        total.usable += part.usable;
     }
-    let total_weight = wsum.value();
-    // Means: sum(w x) / W. Each term w x may overflow only if |x| * w
-    // exceeds f64, which the weight scaling (max weight <= 2) rules out for
-    // finite x below about 9e307; guard anyway by averaging min and max.
-    let mean_of = |s: Neumaier, lo: f64, hi: f64| -> f64 {
-        if !intercept {
-            return 0.0;
-        }
-        let m = s.value() / total_weight;
-        if m.is_finite() {
-            m.clamp(lo, hi)
-        } else {
-            0.5 * lo + 0.5 * hi
-        }
-    };
-    let means: Vec<f64> = (0..p).map(|j| mean_of(sums[j], min[j], max[j])).collect();
-    let raw_max: Vec<f64> = (0..p).map(|j| max[j].abs().max(min[j].abs())).collect();
-    let centered_max: Vec<f64> = (0..p)
-        .map(|j| (max[j] - means[j]).abs().max((means[j] - min[j]).abs()))
+    let total_weight = total.wsum.value();
+    let raw_max: Vec<f64> = (0..p)
+        .map(|j| total.max[j].abs().max(total.min[j].abs()))
         .collect();
-    let target_mean = mean_of(ysum, ymin, ymax);
+    let y_raw_max = total.ymax.abs().max(total.ymin.abs());
+    let mut means = vec![0.0; p];
+    let mut target_mean = 0.0;
+    if intercept {
+        // Sums of values of moderate size are right as they stand; the
+        // others (values near the ends of the f64 range) are formed again,
+        // each value divided by the power of two at or below the column's
+        // largest magnitude (exact), so that they cannot overflow.
+        let extreme = |big: f64, sum: Neumaier| {
+            big > SAFE_MAX || (big > 0.0 && big < SAFE_MIN) || !sum.value().is_finite()
+        };
+        let redo: Vec<usize> = (0..p)
+            .filter(|&j| extreme(raw_max[j], total.sums[j]))
+            .collect();
+        let redo_target = extreme(y_raw_max, total.ysum);
+        let mut sums: Vec<Neumaier> = total.sums.clone();
+        let mut ysum = total.ysum;
+        let mut col_scale = vec![1.0; p];
+        let mut y_scale = 1.0;
+        if !redo.is_empty() || redo_target {
+            for &j in &redo {
+                col_scale[j] = pow2_scale(raw_max[j]);
+            }
+            if redo_target {
+                y_scale = pow2_scale(y_raw_max);
+            }
+            let (s, t) = scaled_sums(
+                x,
+                y,
+                w,
+                weight_scale,
+                &redo,
+                &col_scale,
+                redo_target,
+                y_scale,
+            );
+            for (&j, v) in redo.iter().zip(s) {
+                sums[j] = v;
+            }
+            if let Some(t) = t {
+                ysum = t;
+            }
+        }
+        for j in 0..p {
+            // sum / W lies within the scaled column's range: no overflow.
+            let m = (sums[j].value() / total_weight) * col_scale[j];
+            means[j] = m.clamp(total.min[j], total.max[j]);
+        }
+        target_mean = ((ysum.value() / total_weight) * y_scale).clamp(total.ymin, total.ymax);
+    }
+    let spread = |lo: f64, hi: f64, m: f64| (hi - m).abs().max((m - lo).abs());
+    let mut centered_max = Vec::with_capacity(p);
+    for j in 0..p {
+        // Every row's centered value must be representable (zero weights
+        // included: their residuals and fills are formed too).
+        if !spread(total.all_min[j], total.all_max[j], means[j]).is_finite() {
+            return Err(Error::SpreadOverflow {
+                input: Input::Design,
+                column: Some(j),
+            });
+        }
+        centered_max.push(spread(total.min[j], total.max[j], means[j]));
+    }
+    if !spread(total.y_all_min, total.y_all_max, target_mean).is_finite() {
+        return Err(Error::SpreadOverflow {
+            input: Input::Target,
+            column: None,
+        });
+    }
+    let target_centered_max = spread(total.ymin, total.ymax, target_mean);
+    let mut hash = Fingerprint::new();
+    for v in [n, p, total.usable, usize::from(intercept)] {
+        hash.word(v as u64);
+    }
+    for v in [
+        weight_scale,
+        total_weight,
+        total.wmix,
+        total.ymix,
+        target_mean,
+        total.ymin,
+        total.ymax,
+    ] {
+        hash.word(v.to_bits());
+    }
+    for j in 0..p {
+        for v in [means[j], total.min[j], total.max[j], total.mix[j]] {
+            hash.word(v.to_bits());
+        }
+    }
     Ok(Stats {
         means,
         raw_max,
         centered_max,
         target_mean,
-        target_centered_max: (ymax - target_mean).abs().max((target_mean - ymin).abs()),
+        target_centered_max,
         weight_scale,
         total_weight,
-        usable_rows: usable,
+        usable_rows: total.usable,
+        fingerprint: hash.finish(),
     })
+}
+
+/// The multiplier `c_i` in `[1, 2)` of row `i` in the fingerprint sums (a
+/// fixed pseudo-random function of the row index: splitmix64).
+#[inline(always)]
+fn row_multiplier(i: usize) -> f64 {
+    let mut z = (i as u64).wrapping_add(0x9e37_79b9_7f4a_7c15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+    z ^= z >> 31;
+    1.0 + (z >> 12) as f64 * (1.0 / (1u64 << 52) as f64)
+}
+
+/// A 64-bit FNV-1a hash over 64-bit words, with a final avalanche.
+struct Fingerprint(u64);
+
+impl Fingerprint {
+    fn new() -> Self {
+        Fingerprint(0xcbf2_9ce4_8422_2325)
+    }
+
+    fn word(&mut self, w: u64) {
+        for b in w.to_le_bytes() {
+            self.0 ^= u64::from(b);
+            self.0 = self.0.wrapping_mul(0x0100_0000_01b3);
+        }
+    }
+
+    fn finish(self) -> u64 {
+        let mut z = self.0;
+        z = (z ^ (z >> 33)).wrapping_mul(0xff51_afd7_ed55_8ccd);
+        z ^ (z >> 33)
+    }
+}
+
+/// Weighted sums of the listed columns (and of the target when asked),
+/// each value divided by its column's power-of-two scale first: one pass
+/// over the rows in fixed chunks, partial sums added in chunk order.
+#[allow(clippy::too_many_arguments)]
+fn scaled_sums(
+    x: &ArrayView2<'_, f64>,
+    y: &ArrayView1<'_, f64>,
+    w: Option<&ArrayView1<'_, f64>>,
+    weight_scale: f64,
+    cols: &[usize],
+    col_scale: &[f64],
+    target: bool,
+    y_scale: f64,
+) -> (Vec<Neumaier>, Option<Neumaier>) {
+    let n = x.nrows();
+    let inv: Vec<f64> = cols.iter().map(|&j| 1.0 / col_scale[j]).collect();
+    let inv_y = 1.0 / y_scale;
+    let parts: Vec<(Vec<Neumaier>, Neumaier)> = (0..n.div_ceil(STATS_CHUNK))
+        .into_par_iter()
+        .map(|c| {
+            let mut acc = vec![Neumaier::default(); cols.len()];
+            let mut yacc = Neumaier::default();
+            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
+                let wi = w.map_or(1.0, |w| w[i] / weight_scale);
+                if wi == 0.0 {
+                    continue;
+                }
+                for ((a, &j), &s) in acc.iter_mut().zip(cols).zip(&inv) {
+                    a.add(wi * (x[(i, j)] * s));
+                }
+                if target {
+                    yacc.add(wi * (y[i] * inv_y));
+                }
+            }
+            (acc, yacc)
+        })
+        .collect();
+    let mut sums = vec![Neumaier::default(); cols.len()];
+    let mut ysum = Neumaier::default();
+    for (acc, yacc) in parts {
+        for (s, a) in sums.iter_mut().zip(acc) {
+            s.add(a.sum);
+            s.add(a.comp);
+        }
+        ysum.add(yacc.sum);
+        ysum.add(yacc.comp);
+    }
+    (sums, target.then_some(ysum))
 }

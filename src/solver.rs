@@ -5,6 +5,7 @@ use std::fmt::Debug;
 use crate::error::{Error, Result};
 use crate::model::LinearModel;
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp, pow2_scale};
 
 /// A method that fits a linear model to a [`Problem`].
 ///
@@ -49,32 +50,50 @@ pub struct Fit {
 }
 
 /// How a fit went: numbers a caller should look at before trusting it.
+///
+/// Every number here is finite: a value whose true size lies beyond the
+/// range of `f64` (a residual sum of squares of targets near `1e300`, say)
+/// makes the fit fail with [`Error::Overflow`] instead.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
 pub struct FitReport {
     /// The solver's name.
     pub solver: String,
-    /// Numerical rank of the centered design (columns that carry information).
-    pub rank: usize,
+    /// Numerical rank of the centered design (columns that carry
+    /// information), as measured by the solver's factorisation; `None`
+    /// when the solver does not measure it (the gradient solvers, and the
+    /// ridge methods other than `Svd`, whose penalised systems always have
+    /// full rank).
+    pub rank: Option<usize>,
     /// Columns of the design.
     pub columns: usize,
-    /// Condition estimate of the centered design after exact power-of-two
-    /// column scaling: the 1-norm condition number of its triangular factor
-    /// for QR and Cholesky, the ratio of the extreme retained singular values
-    /// for SVD. The normal equations' Gram matrix has about its square.
-    pub condition: f64,
+    /// Condition estimate of the matrix the solver factored, after exact
+    /// power-of-two column scaling: the 1-norm condition number of the
+    /// triangular factor of the centered design for QR and Cholesky, the
+    /// ratio of the extreme retained singular values for SVD, and that of
+    /// the penalised system for ridge. The normal equations' Gram matrix
+    /// has about its square. `None` when nothing was factored (the
+    /// gradient solvers).
+    pub condition: Option<f64>,
     /// Weighted residual sum of squares `sum w_i (y_i - y_hat_i)^2`, formed
-    /// from the residuals of the centered problem.
+    /// from the residuals of the centered problem in scaled units.
     pub residual_sum_of_squares: f64,
-    /// Residual degrees of freedom: usable rows minus rank minus the intercept.
-    pub residual_df: usize,
+    /// Residual degrees of freedom: usable rows minus rank minus the
+    /// intercept; `None` when the rank was not measured. (For a penalised
+    /// fit this counts the unpenalised parameters; the penalised count is
+    /// [`crate::RidgePath::effective_df`].)
+    pub residual_df: Option<usize>,
     /// Rows with non-zero weight.
     pub usable_rows: usize,
     /// The L2 penalty applied (0 for unpenalised solvers).
     pub penalty: f64,
     /// Iterative solvers: how the iteration went; `None` for closed forms.
     pub iterations: Option<IterationReport>,
+    /// The [`Problem::fingerprint`] of the problem the fit was computed
+    /// from: inference refuses a problem with another fingerprint.
+    #[cfg_attr(feature = "serde", serde(default))]
+    pub fingerprint: u64,
 }
 
 /// How an iterative fit went.
@@ -110,8 +129,8 @@ pub(crate) fn finish_closed_form(
     problem: &Problem<'_>,
     solver: &str,
     beta: Vec<f64>,
-    rank: usize,
-    condition: f64,
+    rank: Option<usize>,
+    condition: Option<f64>,
     target_scale: f64,
     penalty: f64,
 ) -> Result<Fit> {
@@ -122,19 +141,37 @@ pub(crate) fn finish_closed_form(
         });
     }
     let rss = crate::linalg::residuals::centered_rss(problem, &beta, target_scale);
+    let rss = caller_rss(problem, exponent(target_scale), rss)?;
     finish_with_rss(problem, solver, beta, rank, condition, rss, penalty)
 }
 
+/// The weighted residual sum of squares in the caller's units from its
+/// value in scaled units (`sum w~ (r / s_y)^2` with `s_y = 2^target_exp`).
+///
+/// # Errors
+/// [`Error::Overflow`] when the value exceeds the range of `f64` (or is
+/// not a number).
+pub(crate) fn caller_rss(problem: &Problem<'_>, target_exp: i32, scaled: f64) -> Result<f64> {
+    let ws = exponent(problem.stats.weight_scale);
+    let rss = ldexp(scaled, 2 * target_exp + ws);
+    if !rss.is_finite() {
+        return Err(Error::Overflow {
+            what: "residual sum of squares",
+        });
+    }
+    Ok(rss)
+}
+
 /// As [`finish_closed_form`], for solvers that already know the weighted
-/// residual sum of squares (caller's units) from their factorisation, so
-/// that no pass over the design is needed (the ridge path scores many
-/// penalties from one decomposition).
+/// residual sum of squares (caller's units, finite) from their
+/// factorisation, so that no pass over the design is needed (the ridge
+/// path scores many penalties from one decomposition).
 pub(crate) fn finish_with_rss(
     problem: &Problem<'_>,
     solver: &str,
     beta: Vec<f64>,
-    rank: usize,
-    condition: f64,
+    rank: Option<usize>,
+    condition: Option<f64>,
     rss: f64,
     penalty: f64,
 ) -> Result<Fit> {
@@ -147,18 +184,26 @@ pub(crate) fn finish_with_rss(
     if !intercept.is_finite() {
         return Err(Error::Overflow { what: "intercept" });
     }
-    // A residual sum of squares beyond the f64 range (values near 1e300)
-    // is reported as infinite; NaN would mean a lost value.
-    if rss.is_nan() {
+    if !rss.is_finite() {
         return Err(Error::Overflow {
             what: "residual sum of squares",
         });
     }
-    let residual_df = problem
-        .usable_rows()
-        .saturating_sub(rank + usize::from(problem.has_intercept()));
+    let condition = match condition {
+        Some(c) if !c.is_finite() => {
+            return Err(Error::Overflow {
+                what: "condition estimate",
+            })
+        }
+        other => other,
+    };
+    let residual_df = rank.map(|rank| {
+        problem
+            .usable_rows()
+            .saturating_sub(rank + usize::from(problem.has_intercept()))
+    });
     Ok(Fit {
-        model: LinearModel::new(ndarray::Array1::from(beta), intercept),
+        model: LinearModel::from_parts(ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: solver.to_string(),
             rank,
@@ -169,20 +214,37 @@ pub(crate) fn finish_with_rss(
             usable_rows: problem.usable_rows(),
             penalty,
             iterations: None,
+            fingerprint: problem.fingerprint(),
         },
     })
 }
 
 /// The intercept `mean(y) - mean(x) . beta` (0 without an intercept).
+///
+/// Formed directly; when a product `m_j b_j` leaves the range of `f64`
+/// (columns and coefficients near the ends of the range), formed again in
+/// units of the target scale, where every term is moderate.
 pub(crate) fn intercept_for(problem: &Problem<'_>, beta: &[f64]) -> f64 {
     if !problem.has_intercept() {
         return 0.0;
     }
-    let mut acc = problem.stats.target_mean;
-    for (m, b) in problem.stats.means.iter().zip(beta) {
+    let st = &problem.stats;
+    let mut acc = st.target_mean;
+    for (m, b) in st.means.iter().zip(beta) {
         acc -= m * b;
     }
-    acc
+    if acc.is_finite() {
+        return acc;
+    }
+    // m_j b_j = (m_j / s_j) (b_j s_j / s_y) s_y, with |m_j / s_j| below
+    // about 2^54 for every column that is not constant.
+    let ey = exponent(pow2_scale(st.target_centered_max));
+    let mut sum = 0.0;
+    for (j, (m, b)) in st.means.iter().zip(beta).enumerate() {
+        let ej = exponent(pow2_scale(st.centered_max[j]));
+        sum += ldexp(*m, -ej) * ldexp(*b, ej - ey);
+    }
+    st.target_mean - ldexp(sum, ey)
 }
 
 /// Checks a user-supplied tolerance.

@@ -398,7 +398,7 @@ fn rank_deficient_fits_are_refused() {
     let y = array![1.0, 2.1, 2.9, 4.2, 5.0];
     let problem = Problem::new(x.view(), y.view()).unwrap();
     let fit = Svd::default().fit(&problem).unwrap();
-    assert_eq!(fit.report.rank, 1);
+    assert_eq!(fit.report.rank, Some(1));
     match Inference::new(&problem, &fit) {
         Err(Error::InferenceRefused {
             refusal:
@@ -516,7 +516,7 @@ fn arguments_are_checked() {
     assert!(matches!(
         inf.diagnostics(&other),
         Err(Error::InferenceRefused {
-            refusal: InferenceRefusal::DifferentProblem { .. }
+            refusal: InferenceRefusal::DifferentData { .. }
         })
     ));
     // A fit of another number of columns.

@@ -136,6 +136,10 @@ pub enum Control {
     Stop,
 }
 
+/// Columns whose power-of-two scale lies beyond `2^±480` are scaled inside
+/// the passes (see [`Objective`]).
+const EXTREME_SCALE_EXP: u32 = 480;
+
 /// A loss above this multiple of the reference loss counts as divergence.
 const DIVERGENCE_FACTOR: f64 = 1e4;
 /// Power-iteration steps: at least this many ...
@@ -203,16 +207,27 @@ pub(crate) struct Objective<'p, 'a> {
     /// Power-of-two target scale `s_y`.
     target_scale: f64,
     /// Effective inverse column scales `k_j` (0 for constant columns):
-    /// slope `b_j = d_j s_y k_j`.
+    /// the passes multiply `(x_ij - m_j) pre_j` by `d_j k_j`.
     k: Vec<f64>,
+    /// Standardising factors `r_j` (0 for constant columns): slope
+    /// `b_j = d_j r_j s_y / s_j`.
+    r: Vec<f64>,
+    /// Per-column pre-multipliers `1 / s_j` applied inside the passes, for
+    /// designs with columns near the ends of the f64 range (then `k_j =
+    /// r_j`); `None` for every other design (then `k_j = r_j / s_j`, the
+    /// faster passes).
+    pre: Option<Vec<f64>>,
+    /// `log2 s_j` and `log2 s_y`.
+    scale_exp: Vec<i32>,
+    target_exp: i32,
     /// Total internal weight `W`.
     weight: f64,
     /// Diagonal penalty in internal coordinates (0 for constant columns).
     mu: Vec<f64>,
     /// Columns that carry information (not constant beside the intercept).
     live: Vec<bool>,
-    /// Multiplier from internal to caller loss: `s_y^2`.
-    loss_unit: f64,
+    /// `log2` of the multiplier from internal to caller loss, `s_y^2`.
+    loss_exp: i32,
     /// Full passes over the design so far.
     pub passes: usize,
     coef: Vec<f64>,
@@ -229,17 +244,24 @@ impl<'p, 'a> Objective<'p, 'a> {
         // Squared norms of the columns after the exact power-of-two scaling
         // (no overflow: every scaled value is at most 2 in magnitude).
         let norms = column_norms(problem, &scaling.inv_scale);
+        // Columns near the ends of the range: (x - m) k would leave the
+        // range of f64 (or lose digits to underflow), so the passes scale
+        // (x - m) by 1 / s_j first.
+        let extreme = (0..p).any(|j| {
+            !scaling.constant[j] && scaling.scale_exp[j].unsigned_abs() > EXTREME_SCALE_EXP
+        });
         let mut k = vec![0.0; p];
+        let mut rs = vec![0.0; p];
         let mut mu = vec![0.0; p];
         let mut live = vec![false; p];
+        let ws_exp = crate::scaled::exponent(ws);
         for j in 0..p {
             if scaling.constant[j] {
                 continue;
             }
             // Penalty on the power-of-two-scaled coordinate:
             // lambda b_j^2 / (ws s_y^2) with b_j = g_j s_y / s_j.
-            let s = scaling.scale[j];
-            let pen = penalty / ws / s / s;
+            let pen = crate::scaled::ldexp(penalty, -ws_exp - 2 * scaling.scale_exp[j]);
             let diag = norms[j] + pen;
             if diag.is_nan() || diag <= 0.0 {
                 continue;
@@ -252,17 +274,22 @@ impl<'p, 'a> Objective<'p, 'a> {
             }
             // Rescale so that the Hessian's diagonal entry is 1.
             let r = (weight / diag).sqrt();
-            k[j] = scaling.inv_scale[j] * r;
+            rs[j] = r;
+            k[j] = if extreme { r } else { scaling.inv_scale[j] * r };
             mu[j] = pen * r * r;
         }
         Objective {
             problem,
             target_scale: scaling.target_scale,
             k,
+            r: rs,
+            pre: extreme.then(|| scaling.inv_scale.clone()),
+            scale_exp: scaling.scale_exp.clone(),
+            target_exp: scaling.target_exp,
             weight,
             mu,
             live,
-            loss_unit: scaling.target_scale * scaling.target_scale,
+            loss_exp: 2 * scaling.target_exp,
             passes: 1,
             coef: vec![0.0; p],
         }
@@ -272,13 +299,10 @@ impl<'p, 'a> Objective<'p, 'a> {
         self.mu.len()
     }
 
-    pub fn live(&self) -> &[bool] {
-        &self.live
-    }
-
-    /// Caller-unit loss for an internal loss.
+    /// Caller-unit loss for an internal loss (infinite when it exceeds the
+    /// range of `f64`).
     pub fn caller_loss(&self, f: f64) -> f64 {
-        f * self.loss_unit
+        crate::scaled::ldexp(f, self.loss_exp)
     }
 
     fn set_coef(&mut self, g: &[f64]) {
@@ -307,7 +331,12 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// Loss and gradient at `g` (one full pass).
     pub fn eval(&mut self, g: &[f64]) -> Eval {
         self.set_coef(g);
-        let pass = residual_pass(self.problem, &self.coef, 1.0 / self.target_scale);
+        let pass = residual_pass(
+            self.problem,
+            &self.coef,
+            self.pre.as_deref(),
+            1.0 / self.target_scale,
+        );
         self.passes += 1;
         self.assemble(g, pass, 1.0)
     }
@@ -317,7 +346,13 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// sampling of the usable rows.
     pub fn eval_rows(&mut self, g: &[f64], rows: &[usize]) -> Eval {
         self.set_coef(g);
-        let pass = residual_rows(self.problem, &self.coef, 1.0 / self.target_scale, rows);
+        let pass = residual_rows(
+            self.problem,
+            &self.coef,
+            self.pre.as_deref(),
+            1.0 / self.target_scale,
+            rows,
+        );
         let factor = self.problem.usable_rows() as f64 / rows.len().max(1) as f64;
         self.assemble(g, pass, factor)
     }
@@ -325,7 +360,7 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// `H v` with `H` the Hessian of `f` (one full pass).
     fn hess_vec(&mut self, v: &[f64]) -> Vec<f64> {
         self.set_coef(v);
-        let pass = residual_pass(self.problem, &self.coef, 0.0);
+        let pass = residual_pass(self.problem, &self.coef, self.pre.as_deref(), 0.0);
         self.passes += 1;
         let inv_w = 1.0 / self.weight;
         (0..self.dim())
@@ -375,7 +410,7 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// ||z_i||^2` plus the penalty's share (one full pass).
     pub fn row_lipschitz(&mut self) -> f64 {
         self.passes += 1;
-        let rows = max_row_norm(self.problem, &self.k);
+        let rows = max_row_norm(self.problem, &self.k, self.pre.as_deref());
         let mu_max = self.mu.iter().fold(0.0_f64, |a, &b| a.max(b));
         (self.problem.usable_rows() as f64 * rows + mu_max) / self.weight
     }
@@ -402,8 +437,8 @@ impl<'p, 'a> Objective<'p, 'a> {
                     value: b,
                 });
             }
-            if self.k[j] > 0.0 {
-                g[j] = b / self.k[j] / self.target_scale;
+            if self.r[j] > 0.0 {
+                g[j] = crate::scaled::ldexp(b, self.scale_exp[j] - self.target_exp) / self.r[j];
                 if !g[j].is_finite() {
                     return Err(Error::Overflow {
                         what: "starting point in the solver's internal coordinates",
@@ -417,7 +452,7 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// Slopes in caller units.
     pub fn caller_slopes(&self, g: &[f64]) -> Vec<f64> {
         (0..self.dim())
-            .map(|j| g[j] * self.k[j] * self.target_scale)
+            .map(|j| crate::scaled::ldexp(g[j] * self.r[j], self.target_exp - self.scale_exp[j]))
             .collect()
     }
 }
@@ -449,7 +484,7 @@ pub(crate) struct Tracker<'o> {
     denominator: f64,
     /// Internal loss above which the run counts as diverged.
     limit: f64,
-    loss_unit: f64,
+    loss_exp: i32,
     history: Vec<f64>,
     last_recorded: Option<usize>,
     pub last: Option<(usize, f64, f64)>,
@@ -478,7 +513,7 @@ impl<'o> Tracker<'o> {
                 1.0
             },
             limit: DIVERGENCE_FACTOR * reference,
-            loss_unit: objective.loss_unit,
+            loss_exp: objective.loss_exp,
             history: Vec::new(),
             last_recorded: None,
             last: None,
@@ -497,7 +532,7 @@ impl<'o> Tracker<'o> {
             return Err(Error::Diverged {
                 iteration,
                 step,
-                loss: f * self.loss_unit,
+                loss: crate::scaled::ldexp(f, self.loss_exp),
             });
         }
         Ok(())
@@ -509,7 +544,7 @@ impl<'o> Tracker<'o> {
     /// [`Error::Diverged`] for a non-finite or runaway loss or gradient.
     pub fn observe(&mut self, iteration: usize, step: f64, eval: &Eval) -> Result<Verdict> {
         self.check_finite(iteration, step, eval.f, &eval.grad)?;
-        let loss = eval.f * self.loss_unit;
+        let loss = crate::scaled::ldexp(eval.f, self.loss_exp);
         let rel = self.relative(eval);
         if self.stride > 0 && iteration.is_multiple_of(self.stride) {
             self.history.push(loss);
@@ -584,20 +619,22 @@ pub(crate) fn finish(
     if !intercept.is_finite() {
         return Err(Error::Overflow { what: "intercept" });
     }
-    let rank = objective.live().iter().filter(|&&l| l).count();
-    let rss = outcome.eval.sq * objective.loss_unit * problem.stats.weight_scale;
+    let rss = crate::solver::caller_rss(problem, objective.loss_exp / 2, outcome.eval.sq)?;
+    if !final_loss.is_finite() || history.iter().any(|l| !l.is_finite()) {
+        return Err(Error::Overflow { what: "loss" });
+    }
     Ok(Fit {
-        model: LinearModel::new(ndarray::Array1::from(beta), intercept),
+        model: LinearModel::from_parts(ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: name.to_string(),
-            rank,
+            // Nothing is factored: the rank and condition are not measured.
+            rank: None,
             columns: problem.cols(),
-            condition: 0.0,
+            condition: None,
             residual_sum_of_squares: rss,
-            residual_df: problem
-                .usable_rows()
-                .saturating_sub(rank + usize::from(problem.has_intercept())),
+            residual_df: None,
             usable_rows: problem.usable_rows(),
+            fingerprint: problem.fingerprint(),
             penalty: common.penalty,
             iterations: Some(IterationReport {
                 iterations,
@@ -644,6 +681,11 @@ pub(crate) fn setup<'p, 'a>(
     common: &Common<'_>,
 ) -> Result<Setup<'p, 'a>> {
     common.check()?;
+    if common.penalty == 0.0 {
+        // Unpenalised: as the closed forms, at least as many usable rows as
+        // parameters, or the minimiser is not unique.
+        problem.require_determined()?;
+    }
     let mut objective = Objective::new(problem, common.penalty);
     let gamma = objective.start(common.start)?;
     let eval = objective.eval(&gamma);

@@ -3,9 +3,10 @@
 use ndarray::Array1;
 
 use super::{Inference, LEVERAGE_ONE};
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::linalg::leverage::{row_pass, RowPassSpec};
 use crate::problem::Problem;
+use crate::scaled::ldexp;
 
 /// Per-row diagnostics of a fit (one entry per row of the design, rows of
 /// weight zero included).
@@ -109,33 +110,47 @@ impl Inference {
     /// # Errors
     /// [`crate::Error::ColumnCountMismatch`] for a problem with another
     /// number of columns; [`crate::Error::InferenceRefused`] with
-    /// [`super::InferenceRefusal::DifferentProblem`] when its rows, weights
-    /// or column summaries differ from the fitted problem's.
+    /// [`super::InferenceRefusal::DifferentData`] when its
+    /// [`Problem::fingerprint`] differs from the fitted problem's;
+    /// [`crate::Error::OverflowAt`] for a residual beyond the range of
+    /// `f64` (a row of weight zero far outside the data, say);
+    /// [`crate::Error::TooLarge`] when the per-row vectors cannot be
+    /// allocated.
     pub fn diagnostics(&self, problem: &Problem<'_>) -> Result<Diagnostics> {
         let scaling = self.check_problem(problem)?;
         let r = self.basis_r();
-        let beta: Vec<f64> = self.coefficients.iter().map(|e| e.value).collect();
         let pass = row_pass(
             problem,
             &scaling,
             RowPassSpec {
                 r: r.as_ref(),
                 gamma: &self.basis.gamma,
-                beta: &beta,
                 intercept_weight: self.intercept.is_some().then_some(self.basis.total_weight),
                 meat_power: None,
                 keep_rows: true,
                 leverage_one: LEVERAGE_ONE,
             },
-        );
+        )?;
+        drop(r);
+        // Residuals in the caller's units from their scaled values.
+        let mut residuals = pass.residuals;
+        for (row, e) in residuals.iter_mut().enumerate() {
+            *e = ldexp(*e, scaling.target_exp);
+            if !e.is_finite() {
+                return Err(Error::OverflowAt {
+                    what: "residual",
+                    row,
+                });
+            }
+        }
         let n = problem.rows();
         let df = self.residual_df as f64;
         let k = self.parameters as f64;
         let s2 = self.basis.sigma2_scaled;
         let sigma = s2.sqrt();
-        let mut studentized = Vec::with_capacity(n);
-        let mut deleted = Vec::with_capacity(n);
-        let mut cooks = Vec::with_capacity(n);
+        let mut studentized = crate::alloc::with_capacity("studentized residuals", n)?;
+        let mut deleted = crate::alloc::with_capacity("deleted residuals", n)?;
+        let mut cooks = crate::alloc::with_capacity("Cook's distances", n)?;
         for i in 0..n {
             let h = pass.leverage[i];
             let e = pass.scaled_residuals[i];
@@ -159,7 +174,7 @@ impl Inference {
         }
         Ok(Diagnostics {
             leverage: Array1::from(pass.leverage),
-            residuals: Array1::from(pass.residuals),
+            residuals: Array1::from(residuals),
             studentized,
             deleted_studentized: deleted,
             cooks_distance: cooks,

@@ -4,10 +4,11 @@ use faer::{Mat, MatRef};
 
 use super::distributions::f_upper_tail;
 use super::ratio;
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::linalg::products::{inverse_quadratic_form, upper_times};
 use crate::linalg::svd::thin_svd;
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp};
 
 /// How well the model fits, and the overall test that every slope is zero.
 ///
@@ -24,7 +25,8 @@ use crate::problem::Problem;
 /// `AIC = -2 log L + 2 m` and `BIC = -2 log L + m ln n`, where
 /// `m = likelihood_parameters` **counts the residual variance**: the
 /// coefficients, the intercept and `sigma^2`. An exact fit (`RSS = 0`)
-/// has `log L = +inf`.
+/// has `log L = +inf` (and AIC, BIC `-inf`): the only non-finite values
+/// here, written as strings by serde (see [`crate::inference`]).
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
@@ -47,11 +49,14 @@ pub struct GoodnessOfFit {
     /// The test that every slope is zero; `None` without slopes, or when a
     /// sandwich middle matrix is singular.
     pub overall: Option<OverallTest>,
-    /// Gaussian log-likelihood at the estimates.
+    /// Gaussian log-likelihood at the estimates (`+inf` for an exact fit).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub log_likelihood: f64,
-    /// Akaike's information criterion.
+    /// Akaike's information criterion (`-inf` for an exact fit).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub aic: f64,
-    /// Schwarz's Bayesian information criterion.
+    /// Schwarz's Bayesian information criterion (`-inf` for an exact fit).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub bic: f64,
     /// Parameters counted by AIC and BIC: `k + 1` (the variance counts).
     pub likelihood_parameters: usize,
@@ -69,7 +74,8 @@ pub struct GoodnessOfFit {
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
 pub struct OverallTest {
-    /// The F statistic.
+    /// The F statistic (`+inf` for an exact fit).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub statistic: f64,
     /// Numerator degrees of freedom (the number of slopes).
     pub df_model: usize,
@@ -100,6 +106,7 @@ pub struct Collinearity {
     /// Variance inflation factor of every column.
     pub vif: Vec<f64>,
     /// 2-norm condition number of the unit-column design.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub condition_number: f64,
     /// Whether the columns were centered (model with intercept).
     pub centered: bool,
@@ -109,26 +116,40 @@ pub(super) struct Inputs<'a, 'p> {
     pub problem: &'a Problem<'p>,
     pub r: MatRef<'a, f64>,
     pub gamma: &'a [f64],
-    /// The middle matrix; `sigma~^2 I` when `classical`.
-    pub meat: MatRef<'a, f64>,
-    pub classical: bool,
-    pub rss: f64,
-    pub tss: f64,
-    /// Caller units per scaled unit of a sum of squares.
-    pub unit: f64,
+    /// The middle matrix of a sandwich covariance; `None`: classical
+    /// (`sigma~^2 I`).
+    pub meat: Option<MatRef<'a, f64>>,
+    /// Residual variance, residual and total sums of squares, all in
+    /// scaled units.
+    pub sigma2_scaled: f64,
+    pub rss_scaled: f64,
+    pub tss_scaled: f64,
+    /// `log2` of the caller units per scaled unit of a sum of squares.
+    pub sum_exp: i32,
     pub df: usize,
     pub parameters: usize,
 }
 
-pub(super) fn compute(inp: Inputs<'_, '_>) -> GoodnessOfFit {
+/// A sum of squares in the caller's units.
+fn caller_sum(scaled: f64, exp: i32, what: &'static str) -> Result<f64> {
+    let v = ldexp(scaled, exp);
+    if v.is_finite() {
+        Ok(v)
+    } else {
+        Err(Error::Overflow { what })
+    }
+}
+
+pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
     let problem = inp.problem;
     let p = problem.cols();
     let n = problem.usable_rows() as f64;
     let centered = problem.has_intercept();
     let dff = inp.df as f64;
-    let r_squared = if inp.tss > 0.0 {
-        1.0 - inp.rss / inp.tss
-    } else if inp.rss == 0.0 {
+    let (rss, tss) = (inp.rss_scaled, inp.tss_scaled);
+    let r_squared = if tss > 0.0 {
+        1.0 - rss / tss
+    } else if rss == 0.0 {
         1.0
     } else {
         f64::NEG_INFINITY
@@ -140,12 +161,10 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> GoodnessOfFit {
     let overall = if p == 0 {
         None
     } else {
-        let mpp = inp.meat.submatrix(0, 0, p, p);
-        let wald = if inp.classical {
+        let wald = match inp.meat {
             // Classical: M = sigma~^2 I.
-            Some(ratio(ess_scaled, mpp[(0, 0)]))
-        } else {
-            inverse_quadratic_form(mpp, &rg)
+            None => Some(ratio(ess_scaled, inp.sigma2_scaled)),
+            Some(meat) => inverse_quadratic_form(meat.submatrix(0, 0, p, p), &rg),
         };
         wald.map(|w| {
             let statistic = w / p as f64;
@@ -157,26 +176,42 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> GoodnessOfFit {
             }
         })
     };
+    // sum ln w_i over the usable rows, from the scaled weights: ln w_i =
+    // ln w~_i + ln ws.
+    let ln2 = std::f64::consts::LN_2;
     let log_weights: f64 = match problem.weights() {
-        Some(w) => w.iter().filter(|&&v| v > 0.0).map(|v| v.ln()).sum(),
+        Some(_) => {
+            let ws = f64::from(exponent(problem.stats.weight_scale)) * ln2;
+            (0..problem.rows())
+                .map(|i| problem.scaled_weight(i))
+                .filter(|&v| v > 0.0)
+                .map(|v| v.ln() + ws)
+                .sum()
+        }
         None => 0.0,
     };
     let two_pi = 2.0 * std::f64::consts::PI;
-    let log_likelihood = -0.5 * n * (two_pi.ln() + (inp.rss / n).ln() + 1.0) + 0.5 * log_weights;
+    // ln(RSS / n) = ln(rss~ / n) + sum_exp ln 2: no overflow or underflow.
+    let log_rss = (rss / n).ln() + f64::from(inp.sum_exp) * ln2;
+    let log_likelihood = -0.5 * n * (two_pi.ln() + log_rss + 1.0) + 0.5 * log_weights;
     let m = inp.parameters + 1;
-    GoodnessOfFit {
+    Ok(GoodnessOfFit {
         r_squared,
         adjusted_r_squared,
         centered,
-        total_sum_of_squares: inp.tss,
-        regression_sum_of_squares: ess_scaled * inp.unit,
-        residual_sum_of_squares: inp.rss,
+        total_sum_of_squares: caller_sum(tss, inp.sum_exp, "total sum of squares")?,
+        regression_sum_of_squares: caller_sum(
+            ess_scaled,
+            inp.sum_exp,
+            "regression sum of squares",
+        )?,
+        residual_sum_of_squares: caller_sum(rss, inp.sum_exp, "residual sum of squares")?,
         overall,
         log_likelihood,
         aic: -2.0 * log_likelihood + 2.0 * m as f64,
         bic: -2.0 * log_likelihood + m as f64 * n.ln(),
         likelihood_parameters: m,
-    }
+    })
 }
 
 pub(super) fn collinearity(

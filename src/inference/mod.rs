@@ -6,11 +6,35 @@
 //! Everything is computed **on demand from the data and the fitted
 //! coefficients**, never from a solver's internal state: [`Inference::new`]
 //! takes the [`Problem`] and the [`Fit`], recomputes the triangular factor
-//! `R` of the centered, weighted, column-scaled design with one blocked QR
-//! pass (the same pass the QR solver uses; the design is not copied), and
-//! forms the residuals from the fit's coefficients in the caller's units.
-//! The `n x n` hat matrix is never formed: leverages come from a blocked
-//! pass `Z R^-1` over the rows.
+//! `R` of the centered, weighted, column-scaled design and the target's
+//! coordinates `Q^T t` with one blocked QR pass (the same pass the QR
+//! solver uses; the design is not copied), and from them the exact
+//! least-squares solution, how far the fit's coefficients are from it, and
+//! the fit's residual sum of squares (no further pass over the design; the
+//! total sum of squares reads the target alone). The `n x n` hat matrix is
+//! never formed: leverages come from a blocked pass `Z R^-1` over the rows.
+//!
+//! Every statistic is formed in the solvers' scaled coordinates (columns
+//! and target divided by exact powers of two) and only the final numbers
+//! are mapped back to the caller's units, so data near `1e-300` or `1e300`
+//! give the same t statistics, p-values and R² as the same data near 1.
+//! A number whose true value lies beyond the range of `f64` (a covariance
+//! entry, the square of a standard error above about `1.3e154`; a sum of
+//! squares of targets near `1e300`) makes inference fail with
+//! [`Error::Overflow`]; squares below the smallest `f64` (standard errors
+//! below about `1e-162`) are rounded to subnormal numbers or 0 in
+//! [`Inference::covariance`] and [`Inference::residual_variance`] only,
+//! while the standard errors, t statistics and intervals keep their digits.
+//!
+//! ## Memory
+//!
+//! Besides the result (three matrices of `(p + 1)^2` numbers) inference
+//! keeps at most about ten `(p + 1) x (p + 1)` matrices alive, one block of
+//! rows (at most [`BLOCK_BYTES`](crate::inference#memory) = 512 KiB, see
+//! the crate docs) per worker thread, and for the sandwich covariances one
+//! `(p + 1) x (p + 1)` accumulator per group of rows (at most one group per
+//! `8 (p + 1)` rows); [`Inference::diagnostics`] adds four vectors of `n`
+//! numbers.
 //!
 //! ```
 //! use leastline::{inference::Inference, Problem, Qr, Solver};
@@ -54,10 +78,31 @@
 //!   classical or sandwich standard errors are offered;
 //! - an **iterative fit did not converge**: its coefficients are not the
 //!   least-squares estimate the formulas assume (a converged iterative fit
-//!   is accepted and treated as that estimate);
+//!   is accepted when it is close enough to that estimate, see below);
+//! - the fit is **far from the least-squares solution**: inference computes
+//!   the exact solution of the problem from its own factorisation and
+//!   measures the distance of the fit's coefficients (intercept included)
+//!   from it in standard errors, beyond the rounding level of the
+//!   comparison ([`Inference::fit_distance`]); above [`MAX_FIT_DISTANCE`]
+//!   (0.1: intervals would be shifted by a tenth of their half-width) it
+//!   refuses. This catches an iterative fit flagged converged at a loose
+//!   tolerance, or a fit made inaccurate by the normal equations;
+//! - the fit belongs to **another problem**: the fit's report records the
+//!   problem's [`Problem::fingerprint`], and a problem with another one is
+//!   refused (also by [`Inference::predict`]'s sibling
+//!   [`Inference::diagnostics`]);
 //! - no residual degrees of freedom are left (`n <= k`);
 //! - HC2 or HC3 was asked for and a row has leverage 1 (to within
 //!   `1e-10`): those estimators divide by `1 - h_i`.
+//!
+//! ## Exact fits
+//!
+//! When the residuals are exactly zero (`sigma = 0`), every standard error
+//! is 0, each estimate's `t` is `+inf` or `-inf` (0 for an estimate of 0)
+//! with p-value 0, the overall F statistic is `+inf`, and the
+//! log-likelihood is `+inf` (AIC and BIC `-inf`). These are the only
+//! non-finite numbers inference returns; with the `serde` feature they are
+//! written as the strings `"inf"` and `"-inf"` and read back exactly.
 //!
 //! ## Cautions
 //!
@@ -81,19 +126,26 @@ pub use predict::Predictions;
 
 use std::fmt;
 
-use faer::Mat;
+use faer::linalg::matmul::matmul;
+use faer::{Accum, Mat, Par};
 use ndarray::Array2;
 
 use crate::error::{Error, Result};
 use crate::linalg::leverage::{row_pass, RowPassSpec};
 use crate::linalg::products::{congruence, solve_upper_transposed};
-use crate::linalg::{qr::tall_skinny_r, residuals::centered_rss, triangular};
+use crate::linalg::{extended, qr::tall_skinny_r, triangular};
 use crate::prep::Scaling;
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp};
 use crate::solver::Fit;
 
 /// `1 - h_i` at or below this counts as a leverage of 1.
 pub(crate) const LEVERAGE_ONE: f64 = 1e-10;
+
+/// Largest [`Inference::fit_distance`] accepted: a fit whose coefficients
+/// lie further from the exact least-squares solution (in standard errors,
+/// beyond rounding) is refused with [`InferenceRefusal::FarFromSolution`].
+pub const MAX_FIT_DISTANCE: f64 = 0.1;
 
 /// Which covariance matrix of the estimates feeds the standard errors,
 /// tests and intervals.
@@ -227,6 +279,25 @@ pub enum InferenceRefusal {
         /// Usable rows of the problem given.
         problem_rows: usize,
     },
+    /// The problem given is not the one the fit (or the inference) was
+    /// computed from: its [`Problem::fingerprint`] differs.
+    DifferentData {
+        /// The fingerprint recorded at fit time.
+        recorded: u64,
+        /// The fingerprint of the problem given.
+        given: u64,
+    },
+    /// The fit's coefficients are further from the exact least-squares
+    /// solution than [`MAX_FIT_DISTANCE`] standard errors (beyond
+    /// rounding): intervals around them would be shifted.
+    FarFromSolution {
+        /// The distance in standard errors (see [`Inference::fit_distance`];
+        /// `+inf` when the exact solution fits the data exactly and the
+        /// fit does not).
+        distance: f64,
+        /// The bound, [`MAX_FIT_DISTANCE`].
+        bound: f64,
+    },
 }
 
 impl fmt::Display for InferenceRefusal {
@@ -262,6 +333,14 @@ impl fmt::Display for InferenceRefusal {
                 f,
                 "the fit used {fit_rows} rows but the problem given has {problem_rows}: pass the problem that was fitted"
             ),
+            InferenceRefusal::DifferentData { recorded, given } => write!(
+                f,
+                "the problem given (fingerprint {given:016x}) is not the one that was fitted (fingerprint {recorded:016x}): pass the problem that was fitted"
+            ),
+            InferenceRefusal::FarFromSolution { distance, bound } => write!(
+                f,
+                "the fit's coefficients are {distance:.3e} standard errors from the exact least-squares solution (at most {bound} accepted): fit with a closed-form solver, or tighten the iterative tolerance"
+            ),
         }
     }
 }
@@ -279,8 +358,10 @@ pub struct Estimate {
     pub value: f64,
     /// Its standard error under the selected covariance.
     pub std_error: f64,
-    /// `value / std_error` (infinite when the standard error is 0 and the
-    /// value is not; 0 when both are 0).
+    /// `value / std_error`, formed in scaled units (so it does not depend
+    /// on the units of the data); `+inf` or `-inf` when the standard error
+    /// is 0 and the value is not (an exact fit), 0 when both are 0.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub t: f64,
     /// Two-sided p-value of `value = 0` against Student's t with the
     /// residual degrees of freedom.
@@ -289,20 +370,6 @@ pub struct Estimate {
     pub lower: f64,
     /// Upper end of the confidence interval at the chosen level.
     pub upper: f64,
-}
-
-impl Estimate {
-    fn new(value: f64, std_error: f64, df: f64, critical: f64) -> Self {
-        let t = ratio(value, std_error);
-        Estimate {
-            value,
-            std_error,
-            t,
-            p_value: distributions::t_two_sided_p(t, df),
-            lower: value - critical * std_error,
-            upper: value + critical * std_error,
-        }
-    }
 }
 
 /// `a / b` with `0 / 0 = 0` and `a / 0 = ±inf`.
@@ -316,12 +383,6 @@ pub(crate) fn ratio(a: f64, b: f64) -> f64 {
     } else {
         a / b
     }
-}
-
-/// Equal to a relative `1e-12` (a value restored from text may differ in
-/// its last bits).
-fn close(a: f64, b: f64) -> bool {
-    (a - b).abs() <= 1e-12 * a.abs().max(b.abs())
 }
 
 /// What prediction and diagnostics need, kept in scaled coordinates.
@@ -342,22 +403,27 @@ struct Basis {
     means: Vec<f64>,
     /// Weighted mean of the target (zero without intercept).
     target_mean: f64,
-    /// The middle matrix in orthonormal coordinates (`q x q`), in scaled
-    /// units: `sigma~^2 I` for the classical covariance.
-    meat: Array2<f64>,
+    /// The middle matrix of a sandwich covariance in orthonormal
+    /// coordinates (`q x q`, scaled units); `None` for the classical
+    /// covariance, whose middle matrix is `sigma~^2 I`.
+    meat: Option<Array2<f64>>,
     /// Residual variance in scaled units.
     sigma2_scaled: f64,
     /// Slopes in scaled coordinates.
     gamma: Vec<f64>,
+    /// The fingerprint of the problem.
+    fingerprint: u64,
 }
 
 /// Inference for a fitted least-squares model: every number is a public
 /// field; [`fmt::Display`] prints a plain-text summary.
 ///
 /// See the [module documentation](crate::inference) for the model, the
-/// conventions and the cautions.
+/// conventions, the cautions and the memory used. Deserialised values
+/// (feature `serde`) are checked for consistent sizes and finite numbers.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[cfg_attr(feature = "serde", serde(try_from = "serde_check::InferenceData"))]
 #[non_exhaustive]
 pub struct Inference {
     /// The settings used.
@@ -372,11 +438,14 @@ pub struct Inference {
     pub intercept: Option<Estimate>,
     /// Covariance of the estimates in the caller's units, `k x k`: columns
     /// in the design's order, then the intercept (when fitted) last.
+    /// Entries are squares of standard errors: below about `1e-308` they
+    /// are subnormal or 0 (see the module docs).
     pub covariance: Array2<f64>,
     /// `sigma^2`, the residual variance `sum w e^2 / df` (caller units),
-    /// whatever the covariance kind.
+    /// whatever the covariance kind (subnormal or 0 below about `1e-308`).
     pub residual_variance: f64,
-    /// `sigma`, its square root.
+    /// `sigma`, its square root (formed in scaled units, so it keeps its
+    /// digits when the variance underflows).
     pub residual_sd: f64,
     /// Residual degrees of freedom `n - k`.
     pub residual_df: usize,
@@ -386,6 +455,13 @@ pub struct Inference {
     pub parameters: usize,
     /// The Student t quantile used for every interval at the chosen level.
     pub critical_value: f64,
+    /// How far the fit's coefficients (intercept included) are from the
+    /// exact least-squares solution of the problem, in standard errors: the
+    /// norm `sqrt(d^T C^-1 d)` of the difference `d` under the classical
+    /// covariance `C` (so each coefficient is at most this many of its
+    /// standard errors away), less the rounding level of the comparison
+    /// (and never below 0). At most [`MAX_FIT_DISTANCE`].
+    pub fit_distance: f64,
     /// R², the overall test and the likelihood-based criteria.
     pub goodness: GoodnessOfFit,
     /// Variance inflation factors and condition number.
@@ -404,6 +480,29 @@ impl Fit {
     }
 }
 
+/// The exponents mapping each parameter from scaled to caller units: a
+/// slope `b_j = gamma_j 2^(e_y - e_j)`, the intercept `b0 = b0~ 2^e_y`.
+fn unit_exponents(scaling: &Scaling, p: usize, intercept: bool) -> Vec<i32> {
+    let mut u: Vec<i32> = (0..p)
+        .map(|j| scaling.target_exp - scaling.scale_exp[j])
+        .collect();
+    if intercept {
+        u.push(scaling.target_exp);
+    }
+    u
+}
+
+/// Euclidean norm without overflow or underflow of the squares.
+fn norm(v: impl Iterator<Item = f64> + Clone) -> f64 {
+    let big = v.clone().fold(0.0_f64, |m, x| m.max(x.abs()));
+    if big == 0.0 || !big.is_finite() {
+        return big;
+    }
+    let e = exponent(big);
+    let s: f64 = v.map(|x| ldexp(x, -e).powi(2)).sum();
+    ldexp(s.sqrt(), e)
+}
+
 impl Inference {
     /// Inference with the default options: classical covariance, 95% intervals.
     ///
@@ -416,16 +515,20 @@ impl Inference {
     /// Inference for `fit`, which must have been fitted to `problem`.
     ///
     /// Cost: one blocked QR pass over the design (about `2 n p^2` flops)
-    /// and one residual pass; a sandwich covariance adds one more pass
-    /// (`about 2 n p^2`). The design is never copied.
+    /// and one read of the target; a sandwich covariance adds one more pass
+    /// (`about 2 n p^2`). The design is never copied. The residual sum of
+    /// squares is the fit's own (refined fits form it in extended
+    /// precision) when it agrees with the factorisation's to rounding.
     ///
     /// # Errors
     /// [`Error::InvalidParameter`] for a level outside `(0, 1)`;
     /// [`Error::ColumnCountMismatch`] when the fit has a different number of
-    /// columns than the problem; [`Error::Overflow`] for non-finite
-    /// coefficients or sums of squares; [`Error::InferenceRefused`] for a
-    /// rank-deficient, penalised or unconverged fit, no residual degrees of
-    /// freedom, a leverage of 1 under HC2/HC3, or a fit of another problem.
+    /// columns than the problem; [`Error::Overflow`] for a covariance, sum
+    /// of squares or interval end beyond the range of `f64`;
+    /// [`Error::InferenceRefused`] for a rank-deficient, penalised or
+    /// unconverged fit, a fit far from the least-squares solution, no
+    /// residual degrees of freedom, a leverage of 1 under HC2/HC3, or a fit
+    /// of another problem.
     pub fn with_options(
         problem: &Problem<'_>,
         fit: &Fit,
@@ -452,6 +555,12 @@ impl Inference {
                 problem_rows: problem.usable_rows(),
             }));
         }
+        if report.fingerprint != problem.fingerprint() {
+            return Err(refuse(InferenceRefusal::DifferentData {
+                recorded: report.fingerprint,
+                given: problem.fingerprint(),
+            }));
+        }
         if report.penalty != 0.0 {
             return Err(refuse(InferenceRefusal::Penalised {
                 penalty: report.penalty,
@@ -464,11 +573,10 @@ impl Inference {
                 }));
             }
         }
-        if report.rank < p {
-            return Err(refuse(InferenceRefusal::RankDeficient {
-                rank: report.rank,
-                columns: p,
-            }));
+        if let Some(rank) = report.rank {
+            if rank < p {
+                return Err(refuse(InferenceRefusal::RankDeficient { rank, columns: p }));
+            }
         }
         let beta: Vec<f64> = fit.model.coefficients().to_vec();
         let intercept_value = fit.model.intercept();
@@ -491,7 +599,12 @@ impl Inference {
 
         let tolerance = problem.default_rank_tolerance();
         let scaling = Scaling::new(problem, tolerance);
-        let r = tall_skinny_r(problem, &scaling, false);
+        let (r, qty, rnorm) = {
+            let full = tall_skinny_r(problem, &scaling, true);
+            let r: Mat<f64> = full.as_ref().submatrix(0, 0, p, p).to_owned();
+            let qty: Vec<f64> = (0..p).map(|i| full[(i, p)]).collect();
+            (r, qty, full[(p, p)].abs())
+        };
         let dependent = crate::solvers::dependent_columns(problem, &scaling, r.as_ref(), tolerance);
         if !dependent.is_empty() {
             return Err(refuse(InferenceRefusal::RankDeficient {
@@ -499,32 +612,84 @@ impl Inference {
                 columns: p,
             }));
         }
-        let sy = scaling.target_scale;
-        let ws = problem.stats.weight_scale;
+        let ey = scaling.target_exp;
+        let ws_exp = exponent(problem.stats.weight_scale);
         let w_scaled = problem.stats.total_weight;
-        let gamma: Vec<f64> = beta
-            .iter()
-            .zip(&scaling.scale)
-            .map(|(b, s)| b * (s / sy))
+        let gamma: Vec<f64> = (0..p).map(|j| scaling.to_scaled(j, beta[j])).collect();
+        // Scaled means a_j = m_j / s_j (below about 2^54 for a column that
+        // is not constant) and the intercept in units of s_y.
+        let a: Vec<f64> = (0..p)
+            .map(|j| ldexp(problem.stats.means[j], -scaling.scale_exp[j]))
             .collect();
+        let ybar = ldexp(problem.stats.target_mean, -ey);
+        let b0 = ldexp(intercept_value, -ey);
 
-        // Residual and total sums of squares in caller units; their scaled
-        // versions differ by the exact factor sy^2 * ws.
-        let rss = centered_rss(problem, &beta, sy);
-        let tss = centered_rss(problem, &vec![0.0; p], sy);
-        if !rss.is_finite() || !tss.is_finite() {
+        // Distance from the exact solution: with u = Q^T t - R gamma (the
+        // slopes' part in orthonormal coordinates) and c0 the intercept's
+        // departure from mean(y) - mean(x) . b, the fit's residual sum of
+        // squares is |t - Z gamma|^2 + W c0^2 = rnorm^2 + |u_full|^2.
+        let mut u: Vec<f64> = qty.clone();
+        for (i, ui) in u.iter_mut().enumerate() {
+            for j in i..p {
+                *ui -= r[(i, j)] * gamma[j];
+            }
+        }
+        let ag: f64 = a.iter().zip(&gamma).map(|(x, g)| x * g).sum();
+        let c0 = if has_intercept { b0 - (ybar - ag) } else { 0.0 };
+        let sqrt_w = w_scaled.sqrt();
+        let dist_num = norm(u.iter().copied().chain(std::iter::once(c0 * sqrt_w)));
+        let condition = triangular::condition_upper(r.as_ref());
+        let t_norm = norm(qty.iter().copied().chain(std::iter::once(rnorm)));
+        let rg_norm = norm((0..p).map(|i| (i..p).map(|j| (r[(i, j)] * gamma[j]).abs()).sum()));
+        let intercept_size = if has_intercept {
+            (ybar.abs()
+                + a.iter()
+                    .zip(&gamma)
+                    .map(|(x, g)| (x * g).abs())
+                    .sum::<f64>()
+                + b0.abs())
+                * sqrt_w
+        } else {
+            0.0
+        };
+        let floor = 2.0
+            * (p + 1) as f64
+            * f64::EPSILON
+            * (condition.min(1.0 / f64::EPSILON) * (t_norm + rg_norm) + intercept_size);
+        let rss_ours = rnorm * rnorm + dist_num * dist_num;
+        // The fit's own residual sum of squares, when it agrees with ours to
+        // rounding (refined fits form it in extended precision).
+        let rss_fit = ldexp(report.residual_sum_of_squares, -(2 * ey + ws_exp));
+        let rss_tolerance = 2.0 * rnorm * floor + floor * floor + 4.0 * f64::EPSILON * rss_ours;
+        let rss_scaled = if rss_fit.is_finite() && (rss_fit - rss_ours).abs() <= rss_tolerance {
+            rss_fit
+        } else {
+            rss_ours
+        };
+        if !rss_scaled.is_finite() {
             return Err(Error::Overflow {
                 what: "residual sum of squares",
             });
         }
-        let unit = sy * sy * ws;
-        let sigma2_scaled = rss / unit / dff;
-        let residual_variance = rss / dff;
+        let sigma2_scaled = rss_scaled / dff;
+        let sigma_scaled = sigma2_scaled.sqrt();
+        let excess = (dist_num - floor).max(0.0);
+        let fit_distance = if excess == 0.0 {
+            0.0
+        } else {
+            ratio(excess, sigma_scaled)
+        };
+        if !(fit_distance <= MAX_FIT_DISTANCE) {
+            return Err(refuse(InferenceRefusal::FarFromSolution {
+                distance: fit_distance,
+                bound: MAX_FIT_DISTANCE,
+            }));
+        }
 
-        // Middle matrix in orthonormal coordinates.
+        // Middle matrix in orthonormal coordinates (None: sigma~^2 I).
         let q = k;
-        let meat: Mat<f64> = match options.covariance.leverage_power() {
-            None => Mat::<f64>::from_fn(q, q, |i, j| if i == j { sigma2_scaled } else { 0.0 }),
+        let meat: Option<Mat<f64>> = match options.covariance.leverage_power() {
+            None => None,
             Some(power) => {
                 let pass = row_pass(
                     problem,
@@ -532,13 +697,12 @@ impl Inference {
                     RowPassSpec {
                         r: r.as_ref(),
                         gamma: &gamma,
-                        beta: &beta,
                         intercept_weight: has_intercept.then_some(w_scaled),
                         meat_power: Some(power),
                         keep_rows: false,
                         leverage_one: LEVERAGE_ONE,
                     },
-                );
+                )?;
                 if power > 0 {
                     if let Some((row, h)) = pass.max_leverage {
                         if 1.0 - h <= LEVERAGE_ONE {
@@ -555,31 +719,50 @@ impl Inference {
                         }
                     }
                 }
-                m
+                Some(m)
             }
         };
 
-        // V maps orthonormal coordinates to (slopes, intercept) in caller units.
-        let rinv = triangular::inverse_upper(r.as_ref());
+        // V maps orthonormal coordinates to (slopes, intercept) in scaled
+        // units: R^-1 on the slopes, the intercept's row from the means.
         let mut v = Mat::<f64>::zeros(q, q);
-        for j in 0..p {
-            let f = sy / scaling.scale[j];
-            for c in j..p {
-                v[(j, c)] = f * rinv[(j, c)];
-            }
-        }
+        v.as_mut()
+            .submatrix_mut(0, 0, p, p)
+            .copy_from(triangular::inverse_upper(r.as_ref()));
         if has_intercept {
-            let mut t: Vec<f64> = (0..p)
-                .map(|j| problem.stats.means[j] * (sy / scaling.scale[j]))
-                .collect();
+            let mut t = a.clone();
             solve_upper_transposed(r.as_ref(), &mut t);
             for (c, tc) in t.iter().enumerate() {
                 v[(p, c)] = -tc;
             }
-            v[(p, p)] = sy / w_scaled.sqrt();
+            v[(p, p)] = 1.0 / sqrt_w;
         }
-        let cov = congruence(v.as_ref(), meat.as_ref());
-        let covariance = Array2::from_shape_fn((q, q), |(i, j)| cov[(i, j)]);
+        let cov_scaled = match &meat {
+            Some(m) => congruence(v.as_ref(), m.as_ref()),
+            None => {
+                let mut c = Mat::<f64>::zeros(q, q);
+                matmul(
+                    c.as_mut(),
+                    Accum::Replace,
+                    v.as_ref(),
+                    v.as_ref().transpose(),
+                    sigma2_scaled,
+                    Par::Seq,
+                );
+                for j in 0..q {
+                    for i in (j + 1)..q {
+                        let s = 0.5 * (c[(i, j)] + c[(j, i)]);
+                        c[(i, j)] = s;
+                        c[(j, i)] = s;
+                    }
+                }
+                c
+            }
+        };
+        let units = unit_exponents(&scaling, p, has_intercept);
+        let covariance = Array2::from_shape_fn((q, q), |(i, j)| {
+            ldexp(cov_scaled[(i, j)], units[i] + units[j])
+        });
         if covariance.iter().any(|c| !c.is_finite()) {
             return Err(Error::Overflow {
                 what: "covariance matrix",
@@ -587,37 +770,88 @@ impl Inference {
         }
 
         let critical = student_t_quantile(0.5 + 0.5 * options.level, dff)?;
-        let se = |i: usize| cov[(i, i)].max(0.0).sqrt();
-        let coefficients: Vec<Estimate> = (0..p)
-            .map(|j| Estimate::new(beta[j], se(j), dff, critical))
+        let values: Vec<f64> = beta
+            .iter()
+            .copied()
+            .chain(has_intercept.then_some(intercept_value))
             .collect();
-        let intercept = has_intercept.then(|| Estimate::new(intercept_value, se(p), dff, critical));
+        let scaled_values: Vec<f64> = gamma
+            .iter()
+            .copied()
+            .chain(has_intercept.then_some(b0))
+            .collect();
+        let mut estimates = Vec::with_capacity(q);
+        for i in 0..q {
+            let se = cov_scaled[(i, i)].max(0.0).sqrt();
+            let t = ratio(scaled_values[i], se);
+            let e = Estimate {
+                value: values[i],
+                std_error: ldexp(se, units[i]),
+                t,
+                p_value: distributions::t_two_sided_p(t, dff),
+                lower: ldexp(scaled_values[i] - critical * se, units[i]),
+                upper: ldexp(scaled_values[i] + critical * se, units[i]),
+            };
+            if !(e.lower.is_finite() && e.upper.is_finite()) {
+                return Err(Error::Overflow {
+                    what: "confidence interval",
+                });
+            }
+            estimates.push(e);
+        }
+        let intercept = if has_intercept { estimates.pop() } else { None };
+        let coefficients = estimates;
 
+        // The residual variance and its square root in caller units:
+        // sigma^2 = sigma~^2 s_y^2 ws; sqrt(ws) split into an even power.
+        let variance_exp = 2 * ey + ws_exp;
+        let residual_variance = ldexp(sigma2_scaled, variance_exp);
+        let residual_sd = ldexp(
+            (sigma2_scaled * f64::from(1 << ws_exp.rem_euclid(2))).sqrt(),
+            ey + ws_exp.div_euclid(2),
+        );
+        if !residual_variance.is_finite() || !residual_sd.is_finite() {
+            return Err(Error::Overflow {
+                what: "residual variance",
+            });
+        }
+        let inv_sy = 1.0 / scaling.target_scale;
+        let tss_scaled = extended::centered_target_sum_of_squares(
+            problem,
+            &extended::Units {
+                col: Vec::new(),
+                target: inv_sy,
+            },
+        );
         let goodness = goodness::compute(goodness::Inputs {
             problem,
             r: r.as_ref(),
             gamma: &gamma,
-            meat: meat.as_ref(),
-            classical: options.covariance == CovarianceKind::Classical,
-            rss,
-            tss,
-            unit,
+            meat: meat.as_ref().map(|m| m.as_ref()),
+            sigma2_scaled,
+            rss_scaled,
+            tss_scaled,
+            sum_exp: variance_exp,
             df,
             parameters: k,
-        });
-        let collinearity = goodness::collinearity(r.as_ref(), rinv.as_ref(), has_intercept)?;
+        })?;
+        let collinearity =
+            goodness::collinearity(r.as_ref(), v.as_ref().submatrix(0, 0, p, p), has_intercept)?;
+        drop(v);
+        drop(cov_scaled);
 
         let basis = Basis {
             r: Array2::from_shape_fn((p, p), |(i, j)| r[(i, j)]),
             scale: scaling.scale.clone(),
-            target_scale: sy,
-            weight_scale: ws,
+            target_scale: scaling.target_scale,
+            weight_scale: problem.stats.weight_scale,
             total_weight: w_scaled,
             means: problem.stats.means.clone(),
             target_mean: problem.stats.target_mean,
-            meat: Array2::from_shape_fn((q, q), |(i, j)| meat[(i, j)]),
+            meat: meat.map(|m| Array2::from_shape_fn((q, q), |(i, j)| m[(i, j)])),
             sigma2_scaled,
             gamma,
+            fingerprint: problem.fingerprint(),
         };
         Ok(Inference {
             options,
@@ -627,11 +861,12 @@ impl Inference {
             intercept,
             covariance,
             residual_variance,
-            residual_sd: residual_variance.sqrt(),
+            residual_sd,
             residual_df: df,
             usable_rows: n,
             parameters: k,
             critical_value: critical,
+            fit_distance,
             goodness,
             collinearity,
             basis,
@@ -672,9 +907,12 @@ impl Inference {
         Mat::from_fn(p, p, |i, j| self.basis.r[[i, j]])
     }
 
-    fn basis_meat(&self) -> Mat<f64> {
-        let q = self.basis.meat.nrows();
-        Mat::from_fn(q, q, |i, j| self.basis.meat[[i, j]])
+    /// The middle matrix (`None`: `sigma~^2 I`).
+    fn basis_meat(&self) -> Option<Mat<f64>> {
+        self.basis.meat.as_ref().map(|m| {
+            let q = m.nrows();
+            Mat::from_fn(q, q, |i, j| m[[i, j]])
+        })
     }
 
     fn check_problem(&self, problem: &Problem<'_>) -> Result<Scaling> {
@@ -685,27 +923,129 @@ impl Inference {
                 found: problem.cols(),
             });
         }
-        let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-        let same = problem.usable_rows() == self.usable_rows
-            && problem.has_intercept() == self.intercept.is_some()
-            && scaling.scale == self.basis.scale
-            && scaling.target_scale == self.basis.target_scale
-            && problem.stats.weight_scale == self.basis.weight_scale
-            && close(problem.stats.total_weight, self.basis.total_weight)
-            && close(problem.stats.target_mean, self.basis.target_mean)
-            && problem
-                .stats
-                .means
-                .iter()
-                .zip(&self.basis.means)
-                .all(|(&a, &b)| close(a, b));
-        if !same {
-            return Err(refuse(InferenceRefusal::DifferentProblem {
-                fit_rows: self.usable_rows,
-                problem_rows: problem.usable_rows(),
+        if problem.fingerprint() != self.basis.fingerprint {
+            return Err(refuse(InferenceRefusal::DifferentData {
+                recorded: self.basis.fingerprint,
+                given: problem.fingerprint(),
             }));
         }
-        Ok(scaling)
+        Ok(Scaling::new(problem, problem.default_rank_tolerance()))
+    }
+}
+
+#[cfg(feature = "serde")]
+mod serde_check {
+    //! Deserialised inference is untrusted: every size and number is
+    //! checked before an [`Inference`] exists.
+    use super::*;
+
+    #[derive(serde::Deserialize)]
+    pub(super) struct InferenceData {
+        options: InferenceOptions,
+        solver: String,
+        names: Vec<String>,
+        coefficients: Vec<Estimate>,
+        intercept: Option<Estimate>,
+        covariance: Array2<f64>,
+        residual_variance: f64,
+        residual_sd: f64,
+        residual_df: usize,
+        usable_rows: usize,
+        parameters: usize,
+        critical_value: f64,
+        fit_distance: f64,
+        goodness: GoodnessOfFit,
+        collinearity: Collinearity,
+        basis: Basis,
+    }
+
+    fn bad(reason: &'static str) -> Error {
+        Error::InvalidParameter {
+            name: "inference",
+            value: f64::NAN,
+            reason,
+        }
+    }
+
+    fn power_of_two(v: f64) -> bool {
+        v > 0.0 && v.is_finite() && crate::scaled::pow2(exponent(v)) == v
+    }
+
+    impl TryFrom<InferenceData> for Inference {
+        type Error = Error;
+
+        fn try_from(d: InferenceData) -> Result<Self> {
+            let p = d.coefficients.len();
+            let q = p + usize::from(d.intercept.is_some());
+            let b = &d.basis;
+            let finite = |v: &[f64]| v.iter().all(|x| x.is_finite());
+            let shapes = d.names.len() == p
+                && d.parameters == q
+                && d.covariance.dim() == (q, q)
+                && b.r.dim() == (p, p)
+                && b.scale.len() == p
+                && b.means.len() == p
+                && b.gamma.len() == p
+                && b.meat.as_ref().is_none_or(|m| m.dim() == (q, q))
+                && d.collinearity.vif.len() == p
+                && d.usable_rows > q
+                && d.residual_df == d.usable_rows - q;
+            if !shapes {
+                return Err(bad("inconsistent sizes in a deserialised inference"));
+            }
+            let numbers = finite(d.covariance.as_slice().unwrap_or(&[f64::NAN]))
+                && finite(b.r.as_slice().unwrap_or(&[f64::NAN]))
+                && b.meat
+                    .as_ref()
+                    .is_none_or(|m| finite(m.as_slice().unwrap_or(&[f64::NAN])))
+                && finite(&b.means)
+                && finite(&b.gamma)
+                && b.scale.iter().all(|&s| power_of_two(s))
+                && power_of_two(b.target_scale)
+                && power_of_two(b.weight_scale)
+                && b.total_weight > 0.0
+                && b.total_weight.is_finite()
+                && b.target_mean.is_finite()
+                && b.sigma2_scaled >= 0.0
+                && b.sigma2_scaled.is_finite()
+                && (0..p).all(|i| b.r[(i, i)] != 0.0)
+                && d.critical_value.is_finite()
+                && d.critical_value > 0.0
+                && d.residual_variance.is_finite()
+                && d.residual_sd.is_finite()
+                && d.fit_distance.is_finite()
+                && d.options.level > 0.0
+                && d.options.level < 1.0
+                && d.coefficients.iter().chain(d.intercept.iter()).all(|e| {
+                    e.value.is_finite()
+                        && e.std_error.is_finite()
+                        && e.lower.is_finite()
+                        && e.upper.is_finite()
+                        && !e.t.is_nan()
+                        && e.p_value.is_finite()
+                });
+            if !numbers {
+                return Err(bad("a number in a deserialised inference is out of range"));
+            }
+            Ok(Inference {
+                options: d.options,
+                solver: d.solver,
+                names: d.names,
+                coefficients: d.coefficients,
+                intercept: d.intercept,
+                covariance: d.covariance,
+                residual_variance: d.residual_variance,
+                residual_sd: d.residual_sd,
+                residual_df: d.residual_df,
+                usable_rows: d.usable_rows,
+                parameters: d.parameters,
+                critical_value: d.critical_value,
+                fit_distance: d.fit_distance,
+                goodness: d.goodness,
+                collinearity: d.collinearity,
+                basis: d.basis,
+            })
+        }
     }
 }
 

@@ -5,6 +5,8 @@ use ndarray::{Array1, ArrayView1, ArrayView2};
 use super::Inference;
 use crate::error::{Error, Input, Result};
 use crate::linalg::products::{quadratic_form, solve_upper_transposed};
+use crate::model::{difference, LinearModel};
+use crate::scaled::{exponent, ldexp};
 
 /// Predictions at new rows with their intervals (all at the level of the
 /// [`Inference`] they came from).
@@ -62,9 +64,15 @@ impl Inference {
     /// # Ok::<(), leastline::Error>(())
     /// ```
     ///
+    /// Every number is formed in scaled units and mapped back at the end, so
+    /// rows near the ends of the `f64` range give the intervals their
+    /// values imply, or a typed error.
+    ///
     /// # Errors
     /// [`Error::ColumnCountMismatch`]; [`Error::NonFinite`] naming the row
-    /// and column of a NaN or infinite entry.
+    /// and column of a NaN or infinite entry; [`Error::OverflowAt`] naming
+    /// the first row whose prediction or interval exceeds the range of
+    /// `f64`.
     pub fn predict(&self, x: ArrayView2<'_, f64>) -> Result<Predictions> {
         self.predict_inner(x, None)
     }
@@ -107,9 +115,14 @@ impl Inference {
         let b = &self.basis;
         let r = self.basis_r();
         let meat = self.basis_meat();
-        let q = meat.nrows();
-        let intercept = self.intercept.map_or(0.0, |e| e.value);
-        let sy = b.target_scale;
+        let q = p + usize::from(self.intercept.is_some());
+        let model = LinearModel::from_parts(
+            self.coefficients.iter().map(|e| e.value).collect(),
+            self.intercept.map_or(0.0, |e| e.value),
+        );
+        let ey = exponent(b.target_scale);
+        let ws_exp = exponent(b.weight_scale);
+        let inv_scale: Vec<f64> = b.scale.iter().map(|s| 1.0 / s).collect();
         let mut out = Predictions {
             level: self.options.level,
             fitted: Array1::zeros(m),
@@ -132,7 +145,6 @@ impl Inference {
                 }
                 None => 1.0,
             };
-            let mut fitted = intercept;
             for (j, &v) in row.iter().enumerate() {
                 if !v.is_finite() {
                     return Err(Error::NonFinite {
@@ -142,29 +154,52 @@ impl Inference {
                         value: v,
                     });
                 }
-                fitted += v * self.coefficients[j].value;
-                g[j] = (v - b.means[j]) * (sy / b.scale[j]);
+                // The new row in scaled units, (x - m) / s (a difference of
+                // values near the ends of the range is formed from halves).
+                let (d, e) = difference(v, b.means[j]);
+                g[j] = ldexp(d * inv_scale[j], e);
             }
+            let fitted = model.predict_row(row).map_err(|e| match e {
+                Error::OverflowAt { what, .. } => Error::OverflowAt { what, row: i },
+                other => other,
+            })?;
             solve_upper_transposed(r.as_ref(), &mut g[..p]);
             if q > p {
-                g[p] = sy / b.total_weight.sqrt();
+                g[p] = 1.0 / b.total_weight.sqrt();
             }
-            let var_mean = quadratic_form(meat.as_ref(), &g).max(0.0);
+            // Variances in units of s_y^2.
+            let var_mean = match &meat {
+                Some(meat) => quadratic_form(meat.as_ref(), &g).max(0.0),
+                None => b.sigma2_scaled * g.iter().map(|v| v * v).sum::<f64>(),
+            };
+            // sigma^2 / w0 in units of s_y^2: sigma~^2 ws / w0.
+            let e0 = exponent(w0);
+            let noise = b.sigma2_scaled * ldexp(1.0 / ldexp(w0, -e0), ws_exp - e0);
             let se_mean = var_mean.sqrt();
-            let se_new = (var_mean + self.residual_variance / w0).sqrt();
+            let se_new = (var_mean + noise).sqrt();
             let t = self.critical_value;
+            let fitted_scaled = ldexp(fitted, -ey);
+            let values = [
+                ldexp(se_mean, ey),
+                ldexp(fitted_scaled - t * se_mean, ey),
+                ldexp(fitted_scaled + t * se_mean, ey),
+                ldexp(se_new, ey),
+                ldexp(fitted_scaled - t * se_new, ey),
+                ldexp(fitted_scaled + t * se_new, ey),
+            ];
+            if values.iter().any(|v| !v.is_finite()) {
+                return Err(Error::OverflowAt {
+                    what: "prediction interval",
+                    row: i,
+                });
+            }
             out.fitted[i] = fitted;
-            out.mean_std_error[i] = se_mean;
-            out.mean_lower[i] = fitted - t * se_mean;
-            out.mean_upper[i] = fitted + t * se_mean;
-            out.prediction_std_error[i] = se_new;
-            out.prediction_lower[i] = fitted - t * se_new;
-            out.prediction_upper[i] = fitted + t * se_new;
-        }
-        if out.prediction_std_error.iter().any(|v| !v.is_finite()) {
-            return Err(Error::Overflow {
-                what: "prediction standard error",
-            });
+            out.mean_std_error[i] = values[0];
+            out.mean_lower[i] = values[1];
+            out.mean_upper[i] = values[2];
+            out.prediction_std_error[i] = values[3];
+            out.prediction_lower[i] = values[4];
+            out.prediction_upper[i] = values[5];
         }
         Ok(out)
     }

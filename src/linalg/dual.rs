@@ -39,9 +39,11 @@ fn column_coefficients(scaling: &Scaling, factors: &[f64]) -> Vec<f64> {
         .collect()
 }
 
-/// Columns per block for a row Gram over `n` rows: about 8 MiB of block.
+/// Columns per block for a row Gram over `n` rows: a block of
+/// [`super::BLOCK_BYTES`] (see [`super::block_rows`]: the block holds `n`
+/// numbers per column).
 fn column_block(n: usize) -> usize {
-    ((1usize << 20) / n.max(1)).clamp(64, 2048)
+    super::block_rows(n)
 }
 
 /// Computes `Ẑ Ẑ^T` over the rows listed in `rows` (row indices of the
@@ -53,12 +55,16 @@ fn column_block(n: usize) -> usize {
 /// symmetric rank-k update, and the groups are summed in order, so the
 /// result does not depend on the thread count. Extra memory: one `n_u x n_u`
 /// matrix and one block per group; the design is never copied whole.
+///
+/// # Errors
+/// [`crate::Error::TooLarge`] when the `n_u x n_u` matrices cannot be
+/// allocated.
 pub(crate) fn row_gram(
     problem: &Problem<'_>,
     scaling: &Scaling,
     factors: &[f64],
     rows: &[usize],
-) -> RowGram {
+) -> crate::error::Result<RowGram> {
     let x = as_faer(&problem.design());
     let n = rows.len();
     let p = problem.cols();
@@ -76,6 +82,8 @@ pub(crate) fn row_gram(
     let groups = (GRAM_BUDGET / per_acc)
         .clamp(1, MAX_GRAM_GROUPS)
         .min(blocks.len().max(1));
+    crate::alloc::reserve_matrices("row Gram matrix", n, n, groups + 1)?;
+    crate::alloc::reserve_matrices("column block", cb, n, groups)?;
     let per = blocks.len().div_ceil(groups).max(1);
     let chunks: Vec<&[(usize, usize)]> = blocks.chunks(per).collect();
     let partials: Vec<Mat<f64>> = chunks
@@ -128,7 +136,7 @@ pub(crate) fn row_gram(
         .zip(&sw)
         .map(|(&i, s)| s * ((y[i] - ym) * inv_sy))
         .collect();
-    RowGram { gram, target }
+    Ok(RowGram { gram, target })
 }
 
 /// Computes `Ẑ^T v` (length `p`) for `v` indexed like `rows`.

@@ -8,11 +8,15 @@
 //! comes out as accurate as if it had been computed in twice the working
 //! precision and rounded once at the end.
 //!
-//! The passes read the caller's **original** data (no centering, no
-//! scaling), so the residual `y_i - b0 - x_i . b` they produce is that of
-//! the problem as given, with the intercept explicit. Rows are processed in
-//! fixed chunks in parallel and partial sums are combined in chunk order, so
-//! results do not depend on the thread count.
+//! The passes read the caller's **original** data, uncentered, so the
+//! residual `y_i - b0 - x_i . b` they produce is that of the problem as
+//! given, with the intercept explicit. Each value is multiplied by an exact
+//! power of two on the way in ([`Units`]: `x_ij / s_j`, `y_i / s_y`, the
+//! scales of [`crate::prep::Scaling`]), so that data near the ends of the
+//! `f64` range give products and sums of moderate size; coefficients are
+//! then in scaled units (`gamma_j = b_j s_j / s_y`, `b0 / s_y`). Rows are
+//! processed in fixed chunks in parallel and partial sums are combined in
+//! chunk order, so results do not depend on the thread count.
 
 use ndarray::Axis;
 use rayon::prelude::*;
@@ -110,22 +114,40 @@ impl Accumulator {
     }
 }
 
-/// `y_i - b0 - x_i . beta - e_i` in extended precision, rounded once.
+/// The exact power-of-two multipliers applied to the data on the way in.
+#[derive(Debug, Clone)]
+pub(crate) struct Units {
+    /// `1 / s_j` per column.
+    pub col: Vec<f64>,
+    /// `1 / s_y`.
+    pub target: f64,
+}
+
+/// `y_i - b0 - x_i . beta - e_i` in extended precision (scaled units),
+/// rounded once.
 #[inline]
-fn row_residual(row: ndarray::ArrayView1<'_, f64>, y: f64, b0: f64, beta: &[f64], e: f64) -> f64 {
+fn row_residual(
+    row: ndarray::ArrayView1<'_, f64>,
+    y: f64,
+    units: &Units,
+    b0: f64,
+    beta: &[f64],
+    e: f64,
+) -> f64 {
     let mut acc = Accumulator::default();
-    acc.add(y);
+    acc.add(y * units.target);
     acc.add(-b0);
-    for (&v, &b) in row.iter().zip(beta) {
-        acc.add_product(-v, b);
+    for ((&v, &b), &a) in row.iter().zip(beta).zip(&units.col) {
+        acc.add_product(-(v * a), b);
     }
     acc.add(-e);
     acc.value()
 }
 
-/// Residuals `y_i - b0 - x_i . beta` of the original problem, each computed
-/// in extended precision and rounded once (every row, weighted or not).
-pub(crate) fn residuals(problem: &Problem<'_>, b0: f64, beta: &[f64]) -> Vec<f64> {
+/// Residuals `y_i / s_y - b0 - sum_j (x_ij / s_j) beta_j` of the original
+/// problem (scaled units), each computed in extended precision and rounded
+/// once (every row, weighted or not).
+pub(crate) fn residuals(problem: &Problem<'_>, units: &Units, b0: f64, beta: &[f64]) -> Vec<f64> {
     let x = problem.design();
     let y = problem.target();
     let mut out = vec![0.0; problem.rows()];
@@ -135,13 +157,13 @@ pub(crate) fn residuals(problem: &Problem<'_>, b0: f64, beta: &[f64]) -> Vec<f64
             let r0 = c * STATS_CHUNK;
             for (k, o) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
-                *o = row_residual(x.index_axis(Axis(0), i), y[i], b0, beta, 0.0);
+                *o = row_residual(x.index_axis(Axis(0), i), y[i], units, b0, beta, 0.0);
             }
         });
     out
 }
 
-/// Weighted sum of squares `sum_i w_i r_i^2` (caller's weights), compensated.
+/// Weighted sum of squares `sum_i w~_i r_i^2` (scaled weights), compensated.
 pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
     let parts: Vec<Accumulator> = r
         .par_chunks(STATS_CHUNK)
@@ -159,21 +181,22 @@ pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
     for p in parts {
         total.merge(p);
     }
-    total.value() * problem.stats.weight_scale
+    total.value()
 }
 
-/// `sum_i w_i (y_i - ybar)^2` with the scaled weights (`ybar` the
+/// `sum_i w~_i ((y_i - ybar) / s_y)^2` with the scaled weights (`ybar` the
 /// centering mean, 0 without an intercept), compensated.
-pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>) -> f64 {
+pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, units: &Units) -> f64 {
     let y = problem.target();
     let ym = problem.stats.target_mean;
+    let a = units.target;
     let n = problem.rows();
     let parts: Vec<Accumulator> = (0..n.div_ceil(STATS_CHUNK))
         .into_par_iter()
         .map(|c| {
             let mut acc = Accumulator::default();
             for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
-                let d = y[i] - ym;
+                let d = (y[i] - ym) * a;
                 acc.add_weighted_product(problem.scaled_weight(i), d, d);
             }
             acc
@@ -199,7 +222,8 @@ pub(crate) struct Defects {
     pub g0: f64,
     /// `-sum_i w_i x_ij e_i` (scaled weights), extended precision.
     pub g: Vec<f64>,
-    /// `sum_i w_i (x_ij - m_j) f_i` (working precision; `m` the centering means).
+    /// `sum_i w_i (x_ij - m_j) f_i` (working precision; `m` the centering
+    /// means; scaled units).
     pub centered_xf: Vec<f64>,
     /// `sum_i w_i (x_ij - m_j)`: zero up to the rounding of the means.
     pub centered_x: Vec<f64>,
@@ -225,8 +249,14 @@ struct DefectPart {
 }
 
 /// One pass over the original data computing the [`Defects`] of the current
-/// solution `(b0, beta)` and residual estimate `e`.
-pub(crate) fn defects(problem: &Problem<'_>, b0: f64, beta: &[f64], e: &[f64]) -> Defects {
+/// solution `(b0, beta)` and residual estimate `e` (scaled units).
+pub(crate) fn defects(
+    problem: &Problem<'_>,
+    units: &Units,
+    b0: f64,
+    beta: &[f64],
+    e: &[f64],
+) -> Defects {
     let x = problem.design();
     let y = problem.target();
     let p = problem.cols();
@@ -247,7 +277,7 @@ pub(crate) fn defects(problem: &Problem<'_>, b0: f64, beta: &[f64], e: &[f64]) -
             for (k, out) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 let row = x.index_axis(Axis(0), i);
-                let fi = row_residual(row, y[i], b0, beta, e[i]);
+                let fi = row_residual(row, y[i], units, b0, beta, e[i]);
                 *out = fi;
                 let w = problem.scaled_weight(i);
                 if w == 0.0 {
@@ -256,8 +286,9 @@ pub(crate) fn defects(problem: &Problem<'_>, b0: f64, beta: &[f64], e: &[f64]) -
                 part.weighted_f.add(w * fi);
                 part.g0.add_product(-w, e[i]);
                 for (j, &v) in row.iter().enumerate() {
-                    part.g[j].add_weighted_product(w, -v, e[i]);
-                    let d = v - means[j];
+                    let a = units.col[j];
+                    part.g[j].add_weighted_product(w, -(v * a), e[i]);
+                    let d = (v - means[j]) * a;
                     part.centered_xf[j] += w * d * fi;
                     part.centered_x[j] += w * d;
                 }
@@ -290,9 +321,10 @@ pub(crate) fn defects(problem: &Problem<'_>, b0: f64, beta: &[f64], e: &[f64]) -
 }
 
 /// Applies a correction to the residual estimate:
-/// `e_i += (f_i - c) - (x_i - m) . d_beta` (working precision).
+/// `e_i += (f_i - c) - (x_i - m) . d_beta` (working precision, scaled units).
 pub(crate) fn update_residuals(
     problem: &Problem<'_>,
+    units: &Units,
     e: &mut [f64],
     f: &[f64],
     c: f64,
@@ -308,8 +340,8 @@ pub(crate) fn update_residuals(
                 let i = r0 + k;
                 let row = x.index_axis(Axis(0), i);
                 let mut fit = 0.0;
-                for ((&v, &m), &d) in row.iter().zip(means).zip(d_beta) {
-                    fit += (v - m) * d;
+                for (((&v, &m), &d), &a) in row.iter().zip(means).zip(d_beta).zip(&units.col) {
+                    fit += ((v - m) * a) * d;
                 }
                 *ei += (f[i] - c) - fit;
             }

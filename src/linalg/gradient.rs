@@ -46,9 +46,10 @@ pub(crate) struct Pass {
 /// Rows handled together by one sequential unit of a mini-batch pass.
 const ROW_CHUNK: usize = 1024;
 
-/// Rows per block of a column-major pass: about 256 KiB of design per block.
+/// Rows per block of the partition (and of a column-major pass's residual
+/// vectors): [`super::block_rows`].
 fn block_len(p: usize) -> usize {
-    ((1usize << 15) / p.max(1)).clamp(64, 4096)
+    super::block_rows(p)
 }
 
 /// What a pass needs besides the design.
@@ -57,6 +58,9 @@ struct Inputs<'b, 'a> {
     x: ArrayView2<'a, f64>,
     means: &'b [f64],
     coef: &'b [f64],
+    /// Per-column multipliers of `x - m` applied before `coef` (columns
+    /// near the ends of the f64 range); `None`: the fast kernels.
+    pre: Option<&'b [f64]>,
     problem: &'b Problem<'a>,
     ym: f64,
     inv_sy: f64,
@@ -76,13 +80,22 @@ impl Inputs<'_, '_> {
 /// Full residual pass over every row (see the module docs). `coef` has one
 /// entry per column; `inv_sy` is `1 / s_y`, or 0 to leave the target out
 /// (then the pass computes `acc = -Z^T Z c` in the transformed coordinates).
-pub(crate) fn residual_pass(problem: &Problem<'_>, coef: &[f64], inv_sy: f64) -> Pass {
+/// With `pre`, every `x_ij - m_j` is multiplied by `pre_j` first (and
+/// `acc` holds the sums of the pre-multiplied values): a plain, exact and
+/// slower path for columns near the ends of the f64 range.
+pub(crate) fn residual_pass(
+    problem: &Problem<'_>,
+    coef: &[f64],
+    pre: Option<&[f64]>,
+    inv_sy: f64,
+) -> Pass {
     let x = problem.design();
     let (n, p) = x.dim();
     let inputs = Inputs {
         x,
         means: &problem.stats.means,
         coef,
+        pre,
         problem,
         ym: problem.stats.target_mean,
         inv_sy,
@@ -97,7 +110,9 @@ pub(crate) fn residual_pass(problem: &Problem<'_>, coef: &[f64], inv_sy: f64) ->
                 sq: 0.0,
             };
             for &(r0, r1) in group {
-                if column_major {
+                if inputs.pre.is_some() {
+                    rows_prescaled(&inputs, r0..r1, &mut out);
+                } else if column_major {
                     dispatch_block_cols(&inputs, r0, r1, &mut out);
                 } else if !dispatch_contiguous(&inputs, r0, r1, &mut out) {
                     dispatch_rows(&inputs, r0..r1, &mut out);
@@ -116,6 +131,7 @@ pub(crate) fn residual_pass(problem: &Problem<'_>, coef: &[f64], inv_sy: f64) ->
 pub(crate) fn residual_rows(
     problem: &Problem<'_>,
     coef: &[f64],
+    pre: Option<&[f64]>,
     inv_sy: f64,
     rows: &[usize],
 ) -> Pass {
@@ -124,6 +140,7 @@ pub(crate) fn residual_rows(
         x: problem.design(),
         means: &problem.stats.means,
         coef,
+        pre,
         problem,
         ym: problem.stats.target_mean,
         inv_sy,
@@ -133,7 +150,11 @@ pub(crate) fn residual_rows(
             acc: vec![0.0; p],
             sq: 0.0,
         };
-        dispatch_rows(&inputs, chunk.iter().copied(), &mut out);
+        if inputs.pre.is_some() {
+            rows_prescaled(&inputs, chunk.iter().copied(), &mut out);
+        } else {
+            dispatch_rows(&inputs, chunk.iter().copied(), &mut out);
+        }
         out
     };
     if rows.len() <= ROW_CHUNK {
@@ -143,9 +164,9 @@ pub(crate) fn residual_rows(
     combine(partials, p)
 }
 
-/// `max_i w_i sum_j ((x_ij - m_j) inv_scale_j)^2`: the largest squared norm
-/// of a row of the transformed design (zero-weight rows excluded).
-pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64]) -> f64 {
+/// `max_i w_i sum_j ((x_ij - m_j) pre_j inv_scale_j)^2`: the largest squared
+/// norm of a row of the transformed design (zero-weight rows excluded).
+pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64], pre: Option<&[f64]>) -> f64 {
     let x = problem.design();
     let (n, p) = x.dim();
     let means = &problem.stats.means;
@@ -161,8 +182,13 @@ pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64]) -> f64 {
                         continue;
                     }
                     let mut s = 0.0;
-                    for ((&v, &m), &k) in x.row(i).iter().zip(means).zip(inv_scale) {
-                        let z = (v - m) * k;
+                    for (j, ((&v, &m), &k)) in x.row(i).iter().zip(means).zip(inv_scale).enumerate()
+                    {
+                        let d = match pre {
+                            Some(pre) => (v - m) * pre[j],
+                            None => v - m,
+                        };
+                        let z = d * k;
                         s += z * z;
                     }
                     best = best.max(w * s);
@@ -222,6 +248,36 @@ pub(crate) fn column_norms(problem: &Problem<'_>, inv_scale: &[f64]) -> Vec<f64>
         }
     }
     total
+}
+
+/// The plain path with per-column pre-multipliers: `d_ij = (x_ij - m_j)
+/// pre_j`, `r_i = t_i - sum_j d_ij c_j`, `acc_j += w_i r_i d_ij`.
+fn rows_prescaled(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
+    let Inputs {
+        x,
+        means,
+        coef,
+        pre,
+        ..
+    } = *inputs;
+    let pre = pre.unwrap_or(&[]);
+    for i in rows {
+        let w = inputs.problem.scaled_weight(i);
+        if w == 0.0 {
+            continue;
+        }
+        let row = x.index_axis(Axis(0), i);
+        let mut fit = 0.0;
+        for (((&v, &m), &c), &a) in row.iter().zip(means).zip(coef).zip(pre) {
+            fit += ((v - m) * a) * c;
+        }
+        let r = inputs.target(i) - fit;
+        let u = w * r;
+        for (((acc, &v), &m), &a) in out.acc.iter_mut().zip(row.iter()).zip(means).zip(pre) {
+            *acc += u * ((v - m) * a);
+        }
+        out.sq += u * r;
+    }
 }
 
 fn combine(partials: Vec<Pass>, p: usize) -> Pass {

@@ -4,7 +4,7 @@ use faer::linalg::matmul::matmul;
 use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
 
-use super::{block_groups, gram_block_rows, tree_reduce, GROUPS};
+use super::{accumulator_groups, block_groups, block_rows, tree_reduce};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -26,8 +26,8 @@ pub(crate) fn centered_gram(
     with_target: bool,
 ) -> Mat<f64> {
     let k = problem.cols() + usize::from(with_target);
-    let b = gram_block_rows(k);
-    let groups = block_groups(problem.rows(), b, GROUPS);
+    let b = block_rows(k);
+    let groups = block_groups(problem.rows(), b, accumulator_groups(problem.rows(), k));
     // A column-major design is read column by column into a `rows x k`
     // block; any other layout row by row into a `k x rows` block.
     let design = problem.design();

@@ -161,8 +161,14 @@ pub(crate) struct ColumnSummary {
     pub comp: Vec<f64>,
     pub min: Vec<f64>,
     pub max: Vec<f64>,
+    /// Smallest and largest value over every row, zero weights included.
+    pub all_min: Vec<f64>,
+    pub all_max: Vec<f64>,
     /// `sum_i 0 * x_ij`: 0 while every value seen is finite, NaN after.
     pub check: Vec<f64>,
+    /// `sum_i c_i x_ij` over every row, with the row multipliers `c_i` of
+    /// the problem's fingerprint.
+    pub mix: Vec<f64>,
 }
 
 impl ColumnSummary {
@@ -172,13 +178,17 @@ impl ColumnSummary {
             comp: vec![0.0; p],
             min: vec![f64::INFINITY; p],
             max: vec![f64::NEG_INFINITY; p],
+            all_min: vec![f64::INFINITY; p],
+            all_max: vec![f64::NEG_INFINITY; p],
             check: vec![0.0; p],
+            mix: vec![0.0; p],
         }
     }
 
-    /// Takes row `x` with weight `w` (> 0) into the summaries.
+    /// Takes row `x` with weight `w` (> 0) and fingerprint multiplier `c`
+    /// into the summaries.
     #[inline(always)]
-    pub fn add_row(&mut self, x: &[f64], w: f64, weighted: bool) {
+    pub fn add_row(&mut self, x: &[f64], w: f64, weighted: bool, mult: f64) {
         let n = x.len();
         let s = &mut self.sum[..n];
         let c = &mut self.comp[..n];
@@ -196,15 +206,32 @@ impl ColumnSummary {
             lo[j] = if v < lo[j] { v } else { lo[j] };
             hi[j] = if v > hi[j] { v } else { hi[j] };
         }
+        self.extremes(x, mult);
     }
 
-    /// Checks row `x` (weight zero) for finiteness only.
+    /// Checks row `x` (weight zero) for finiteness and takes its extremes
+    /// and fingerprint only.
     #[inline(always)]
-    pub fn check_row(&mut self, x: &[f64]) {
+    pub fn check_row(&mut self, x: &[f64], c: f64) {
         let n = x.len();
         let ck = &mut self.check[..n];
         for j in 0..n {
             ck[j] += x[j] * 0.0;
+        }
+        self.extremes(x, c);
+    }
+
+    #[inline(always)]
+    fn extremes(&mut self, x: &[f64], c: f64) {
+        let n = x.len();
+        let lo = &mut self.all_min[..n];
+        let hi = &mut self.all_max[..n];
+        let mix = &mut self.mix[..n];
+        for j in 0..n {
+            let v = x[j];
+            lo[j] = if v < lo[j] { v } else { lo[j] };
+            hi[j] = if v > hi[j] { v } else { hi[j] };
+            mix[j] += c * v;
         }
     }
 

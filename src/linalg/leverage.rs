@@ -14,9 +14,9 @@ use faer::linalg::matmul::triangular::{matmul, BlockStructure};
 use faer::linalg::triangular_solve::solve_lower_triangular_in_place;
 use faer::{Accum, Mat, MatRef, Par};
 use ndarray::Axis;
-use rayon::prelude::*;
 
-use super::{block_groups, block_rows, GROUPS};
+use super::{accumulator_groups, block_groups, block_rows, tree_reduce, GROUPS};
+use crate::error::Result;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -27,8 +27,6 @@ pub(crate) struct RowPassSpec<'a> {
     pub r: MatRef<'a, f64>,
     /// Slopes in scaled coordinates (`gamma_j = b_j s_j / s_y`).
     pub gamma: &'a [f64],
-    /// Slopes in the caller's units (for the caller-unit residuals).
-    pub beta: &'a [f64],
     /// `Some(W)` (sum of the scaled weights) when the model has an intercept.
     pub intercept_weight: Option<f64>,
     /// `Some(k)`: accumulate the middle matrix
@@ -50,8 +48,8 @@ pub(crate) struct RowPass {
     /// Weighted residuals in scaled units, `sqrt(w_i / w_scale) e_i / s_y`;
     /// empty unless kept.
     pub scaled_residuals: Vec<f64>,
-    /// Residuals `y_i - y_hat_i` in the caller's units, formed from centered
-    /// values; empty unless kept.
+    /// Residuals `y_i - y_hat_i` (unweighted) in units of the target scale
+    /// `s_y`, formed from centered, scaled values; empty unless kept.
     pub residuals: Vec<f64>,
     /// The middle matrix (`q x q`, `q = p + intercept`) when asked for.
     pub meat: Option<Mat<f64>>,
@@ -68,129 +66,140 @@ struct GroupResult {
 }
 
 /// Runs the pass: one read of the design, in parallel over a fixed
-/// partition of the rows (results do not depend on the thread count).
-/// Extra memory: one block and one `q x q` matrix per group, plus the
+/// partition of the rows (results do not depend on the thread count), the
+/// groups' results folded in a fixed tree ([`tree_reduce`]).
+///
+/// Extra memory: one block of rows ([`super::BLOCK_BYTES`]) per running
+/// group; with a middle matrix, one `q x q` accumulator per group alive
+/// (at most one group per `8 q` rows, see [`accumulator_groups`]); the
 /// per-row vectors when kept.
-pub(crate) fn row_pass(problem: &Problem<'_>, scaling: &Scaling, spec: RowPassSpec<'_>) -> RowPass {
+///
+/// # Errors
+/// [`crate::Error::TooLarge`] when the per-row vectors or the accumulators cannot
+/// be allocated.
+pub(crate) fn row_pass(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    spec: RowPassSpec<'_>,
+) -> Result<RowPass> {
     let p = problem.cols();
+    let n = problem.rows();
     let intercept = spec.intercept_weight.is_some();
     let q = p + usize::from(intercept);
     let k = p + 1;
     let b = block_rows(k);
-    let groups = block_groups(problem.rows(), b, GROUPS);
+    let max_groups = if spec.meat_power.is_some() {
+        accumulator_groups(n, q)
+    } else {
+        GROUPS
+    };
+    let groups = block_groups(n, b, max_groups);
+    crate::alloc::reserve_matrices("row block", b, k, 1)?;
+    if spec.meat_power.is_some() {
+        crate::alloc::reserve_matrices("sandwich middle matrix", q, q, 2)?;
+    }
+    if spec.keep_rows {
+        crate::alloc::reserve_matrices("per-row diagnostics", n, 3, 2)?;
+    }
     let inv_sqrt_w = spec.intercept_weight.map_or(0.0, |w| 1.0 / w.sqrt());
     let x = problem.design();
     let y = problem.target();
     let means = problem.column_means();
     let ym = problem.target_mean();
-    let parts: Vec<GroupResult> = groups
-        .par_iter()
-        .map(|group| {
-            let mut block = Mat::<f64>::zeros(b, k);
-            let mut res = vec![0.0; b];
-            let rows_here: usize = group.iter().map(|&(r0, r1)| r1 - r0).sum();
-            let cap = if spec.keep_rows { rows_here } else { 0 };
-            let mut out = GroupResult {
-                leverage: Vec::with_capacity(cap),
-                scaled_residuals: Vec::with_capacity(cap),
-                residuals: Vec::with_capacity(cap),
-                meat: spec.meat_power.map(|_| Mat::<f64>::zeros(q, q)),
-                max_leverage: None,
-            };
-            for &(r0, r1) in group {
-                let len = r1 - r0;
-                fill_block(
-                    problem,
-                    scaling,
-                    r0,
-                    r1,
-                    true,
-                    block.as_mut().subrows_mut(0, len),
+    let inv_sy = 1.0 / scaling.target_scale;
+    let leaf = |group: &[(usize, usize)]| {
+        let mut block = Mat::<f64>::zeros(b, k);
+        let mut res = vec![0.0; b];
+        let rows_here: usize = group.iter().map(|&(r0, r1)| r1 - r0).sum();
+        let cap = if spec.keep_rows { rows_here } else { 0 };
+        let mut out = GroupResult {
+            leverage: Vec::with_capacity(cap),
+            scaled_residuals: Vec::with_capacity(cap),
+            residuals: Vec::with_capacity(cap),
+            meat: spec.meat_power.map(|_| Mat::<f64>::zeros(q, q)),
+            max_leverage: None,
+        };
+        for &(r0, r1) in group {
+            let len = r1 - r0;
+            fill_block(
+                problem,
+                scaling,
+                r0,
+                r1,
+                true,
+                block.as_mut().subrows_mut(0, len),
+            );
+            for (l, e) in res.iter_mut().enumerate().take(len) {
+                let mut fit = 0.0;
+                for (j, g) in spec.gamma.iter().enumerate() {
+                    fit += block[(l, j)] * g;
+                }
+                *e = block[(l, p)] - fit;
+            }
+            if p > 0 {
+                // Q_blk = Z_blk R^-1, i.e. R^T Q_blk^T = Z_blk^T.
+                solve_lower_triangular_in_place(
+                    spec.r.transpose(),
+                    block.as_mut().submatrix_mut(0, 0, len, p).transpose_mut(),
+                    Par::Seq,
                 );
-                for (l, e) in res.iter_mut().enumerate().take(len) {
+            }
+            for (l, i) in (r0..r1).enumerate() {
+                block[(l, p)] = if intercept {
+                    problem.scaled_weight(i).sqrt() * inv_sqrt_w
+                } else {
+                    0.0
+                };
+                let h: f64 = (0..q).map(|j| block[(l, j)] * block[(l, j)]).sum();
+                if out.max_leverage.is_none_or(|(_, m)| h > m) {
+                    out.max_leverage = Some((i, h));
+                }
+                if spec.keep_rows {
+                    out.leverage.push(h);
+                    out.scaled_residuals.push(res[l]);
+                    let row = x.index_axis(Axis(0), i);
                     let mut fit = 0.0;
-                    for (j, g) in spec.gamma.iter().enumerate() {
-                        fit += block[(l, j)] * g;
+                    for (j, &v) in row.iter().enumerate() {
+                        fit += ((v - means[j]) * scaling.inv_scale[j]) * spec.gamma[j];
                     }
-                    *e = block[(l, p)] - fit;
+                    out.residuals.push((y[i] - ym) * inv_sy - fit);
                 }
-                if p > 0 {
-                    // Q_blk = Z_blk R^-1, i.e. R^T Q_blk^T = Z_blk^T.
-                    solve_lower_triangular_in_place(
-                        spec.r.transpose(),
-                        block.as_mut().submatrix_mut(0, 0, len, p).transpose_mut(),
-                        Par::Seq,
-                    );
-                }
-                for (l, i) in (r0..r1).enumerate() {
-                    block[(l, p)] = if intercept {
-                        problem.scaled_weight(i).sqrt() * inv_sqrt_w
-                    } else {
+                if let Some(power) = spec.meat_power {
+                    let gap = 1.0 - h;
+                    let c = if power == 0 {
+                        res[l]
+                    } else if gap <= spec.leverage_one {
                         0.0
+                    } else {
+                        res[l] / gap.powi(power).sqrt()
                     };
-                    let h: f64 = (0..q).map(|j| block[(l, j)] * block[(l, j)]).sum();
-                    if out.max_leverage.is_none_or(|(_, m)| h > m) {
-                        out.max_leverage = Some((i, h));
+                    for j in 0..q {
+                        block[(l, j)] *= c;
                     }
-                    if spec.keep_rows {
-                        out.leverage.push(h);
-                        out.scaled_residuals.push(res[l]);
-                        let row = x.index_axis(Axis(0), i);
-                        let mut fit = 0.0;
-                        for (j, &v) in row.iter().enumerate() {
-                            fit += (v - means[j]) * spec.beta[j];
-                        }
-                        out.residuals.push((y[i] - ym) - fit);
-                    }
-                    if let Some(power) = spec.meat_power {
-                        let gap = 1.0 - h;
-                        let c = if power == 0 {
-                            res[l]
-                        } else if gap <= spec.leverage_one {
-                            0.0
-                        } else {
-                            res[l] / gap.powi(power).sqrt()
-                        };
-                        for j in 0..q {
-                            block[(l, j)] *= c;
-                        }
-                    }
-                }
-                if let Some(meat) = out.meat.as_mut() {
-                    let blk = block.as_ref().submatrix(0, 0, len, q);
-                    matmul(
-                        meat.as_mut(),
-                        BlockStructure::TriangularLower,
-                        Accum::Add,
-                        blk.transpose(),
-                        BlockStructure::Rectangular,
-                        blk,
-                        BlockStructure::Rectangular,
-                        1.0,
-                        Par::Seq,
-                    );
                 }
             }
-            out
-        })
-        .collect();
-    let mut pass = RowPass {
-        leverage: Vec::new(),
-        scaled_residuals: Vec::new(),
-        residuals: Vec::new(),
-        meat: spec.meat_power.map(|_| Mat::<f64>::zeros(q, q)),
-        max_leverage: None,
+            if let Some(meat) = out.meat.as_mut() {
+                let blk = block.as_ref().submatrix(0, 0, len, q);
+                matmul(
+                    meat.as_mut(),
+                    BlockStructure::TriangularLower,
+                    Accum::Add,
+                    blk.transpose(),
+                    BlockStructure::Rectangular,
+                    blk,
+                    BlockStructure::Rectangular,
+                    1.0,
+                    Par::Seq,
+                );
+            }
+        }
+        out
     };
-    if spec.keep_rows {
-        pass.leverage.reserve(problem.rows());
-        pass.scaled_residuals.reserve(problem.rows());
-        pass.residuals.reserve(problem.rows());
-    }
-    for part in parts {
-        pass.leverage.extend(part.leverage);
-        pass.scaled_residuals.extend(part.scaled_residuals);
-        pass.residuals.extend(part.residuals);
-        if let (Some(acc), Some(m)) = (pass.meat.as_mut(), part.meat.as_ref()) {
+    let merge = |mut a: GroupResult, part: GroupResult| {
+        a.leverage.extend(part.leverage);
+        a.scaled_residuals.extend(part.scaled_residuals);
+        a.residuals.extend(part.residuals);
+        if let (Some(acc), Some(m)) = (a.meat.as_mut(), part.meat.as_ref()) {
             for j in 0..q {
                 for i in j..q {
                     acc[(i, j)] += m[(i, j)];
@@ -198,11 +207,29 @@ pub(crate) fn row_pass(problem: &Problem<'_>, scaling: &Scaling, spec: RowPassSp
             }
         }
         if let Some((row, h)) = part.max_leverage {
-            if pass.max_leverage.is_none_or(|(_, m)| h > m) {
-                pass.max_leverage = Some((row, h));
+            if a.max_leverage.is_none_or(|(_, m)| h > m) {
+                a.max_leverage = Some((row, h));
             }
         }
-    }
+        a
+    };
+    let total = tree_reduce(&groups, &leaf, &merge);
+    let mut pass = match total {
+        Some(t) => RowPass {
+            leverage: t.leverage,
+            scaled_residuals: t.scaled_residuals,
+            residuals: t.residuals,
+            meat: t.meat,
+            max_leverage: t.max_leverage,
+        },
+        None => RowPass {
+            leverage: Vec::new(),
+            scaled_residuals: Vec::new(),
+            residuals: Vec::new(),
+            meat: spec.meat_power.map(|_| Mat::<f64>::zeros(q, q)),
+            max_leverage: None,
+        },
+    };
     if let Some(acc) = pass.meat.as_mut() {
         for j in 0..q {
             for i in (j + 1)..q {
@@ -210,5 +237,5 @@ pub(crate) fn row_pass(problem: &Problem<'_>, scaling: &Scaling, spec: RowPassSp
             }
         }
     }
-    pass
+    Ok(pass)
 }

@@ -45,7 +45,9 @@ pub(crate) fn loo_sums(
     let r = spec.v.ncols();
     let m = spec.leverage.ncols();
     let k = p + 1;
-    let b = block_rows(k);
+    // The block and the four products formed from it, within one block's
+    // worth of bytes.
+    let b = block_rows(k + 2 * r + 2 * m);
     let tiny = 16.0 * f64::EPSILON * (r.max(1) as f64);
     let groups = block_groups(problem.rows(), b, GROUPS);
     let partials: Vec<Vec<f64>> = groups

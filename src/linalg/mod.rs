@@ -50,21 +50,34 @@ pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
     unsafe { MatRef::from_raw_parts(x.as_ptr(), n, p, strides[0], strides[1]) }
 }
 
-/// Rows per block for a transformed design with `k` columns: about 2 MiB of
-/// block, at least `2 k` rows so that a stacked QR stays tall. (Kept for
-/// passes of other modules; the Gram and QR passes size their own blocks.)
-#[allow(dead_code)]
+/// Bytes of one block of rows: every pass that fills or forms a block of
+/// `k` numbers per row (the Gram, QR, leverage and leave-one-out passes,
+/// the gradient passes' partition, the column blocks of the wide-design
+/// products) sizes it by this many bytes, so that it stays in a core's
+/// second-level cache and the memory of a pass does not grow with the
+/// width of the design faster than its own `k x k` results.
+pub(crate) const BLOCK_BYTES: usize = 1 << 19;
+
+/// Fewest rows in a block (a block of a very wide design may exceed
+/// [`BLOCK_BYTES`]: it holds at least this many rows).
+const MIN_BLOCK_ROWS: usize = 16;
+
+/// Most rows in a block (narrow designs).
+const MAX_BLOCK_ROWS: usize = 4096;
+
+/// Rows per block of `k` numbers per row: [`BLOCK_BYTES`] of block, within
+/// `[16, 4096]` rows.
 pub(crate) fn block_rows(k: usize) -> usize {
-    let target = (1usize << 18) / k.max(1);
-    target.clamp(256, 8192).max(2 * k)
+    (BLOCK_BYTES / (8 * k.max(1))).clamp(MIN_BLOCK_ROWS, MAX_BLOCK_ROWS)
 }
 
-/// Rows per block of the Gram pass: about 512 KiB of block (it is written
-/// by the fill and read back by the product while it is still in the
-/// core's second-level cache), at least 256 rows so that each product
-/// amortises its packing.
-pub(crate) fn gram_block_rows(k: usize) -> usize {
-    ((1usize << 16) / k.max(1)).clamp(256, 4096)
+/// Groups of a pass in which every group holds a `k x k` accumulator: at
+/// most one group per `8 k` rows (and at most [`GROUPS`]), so that the
+/// accumulators alive at once (about `threads * (1 + log2 groups)` of them,
+/// see [`tree_reduce`]) never outweigh the design, and a design with fewer
+/// than `16 k` rows is reduced by one group.
+pub(crate) fn accumulator_groups(n: usize, k: usize) -> usize {
+    (n / (8 * k.max(1))).clamp(1, GROUPS)
 }
 
 /// Splits `0..n` into consecutive ranges of `block` rows, grouped into at

@@ -39,11 +39,12 @@ pub(crate) fn row_stride(k: usize) -> usize {
     k.div_ceil(PANEL).max(1) * PANEL
 }
 
-/// Rows per block of the TSQR pass: about 512 KiB of block (at least 256
-/// rows), so that the block stays in a core's second-level cache and the
-/// panel of a block of up to about 600 rows in the first-level cache.
+/// Rows per block of the TSQR pass: [`super::BLOCK_BYTES`] of block (see
+/// [`super::block_rows`]), so that the block stays in a core's
+/// second-level cache and the panel of a block of up to about 600 rows in
+/// the first-level cache.
 pub(crate) fn qr_block_rows(k: usize) -> usize {
-    ((1usize << 16) / row_stride(k)).clamp(256, 4096)
+    super::block_rows(row_stride(k))
 }
 
 /// Workspace of [`stacked_qr`], reused across blocks.
@@ -505,7 +506,7 @@ fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> M
     let b = qr_block_rows(k);
     // Folding two triangles costs about as much as factoring `k` rows, so
     // every group gets at least `8 k` rows (a wide design gets one group).
-    let max_groups = (problem.rows() / (8 * k.max(1))).clamp(1, QR_GROUPS);
+    let max_groups = super::accumulator_groups(problem.rows(), k).min(QR_GROUPS);
     let groups = block_groups(problem.rows(), b, max_groups);
     // A column-major design is read column by column into a column-major
     // block; any other layout row by row into a row-major block.

@@ -7,11 +7,15 @@ use super::kernels;
 use crate::problem::{Problem, STATS_CHUNK};
 
 /// Weighted residual sum of squares of the centered problem for slopes
-/// `beta` (caller's units): `sum_i w_i ((y_i - ybar) - sum_j (x_ij - m_j) beta_j)^2`.
+/// `beta` (caller's units), in scaled units:
+/// `sum_i w~_i (((y_i - ybar) - sum_j (x_ij - m_j) beta_j) / scale)^2`
+/// with the scaled weights `w~` (multiply by `scale^2 ws` for the caller's
+/// units).
 ///
 /// Each residual is formed from centered values, so large column offsets
-/// cost no digits; the sum is scaled by `scale` (a power of two near the
-/// target's spread) so that it neither overflows nor underflows. One read
+/// cost no digits; it is divided by `scale` (a power of two near the
+/// target's spread) before squaring, so that the sum neither overflows nor
+/// underflows. One read
 /// of the design, in parallel over fixed row chunks; a row-major design is
 /// read row by row with a vectorised dot product, a column-major one column
 /// by column with a vectorised update of the chunk's residuals.
@@ -107,8 +111,7 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
             )
         })
         .collect();
-    let s: f64 = parts.iter().sum();
-    s * scale * scale * problem.stats.weight_scale
+    parts.iter().sum()
 }
 
 /// Sum of every element of the design: one streaming read, parallel over

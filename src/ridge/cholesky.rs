@@ -20,6 +20,8 @@ pub(super) fn solve(
     lambda: f64,
 ) -> Result<Solution> {
     let p = problem.cols();
+    // The Gram matrix, its penalised copy and the factor.
+    crate::alloc::reserve_matrices("penalised Gram matrix", p + 1, p + 1, 3)?;
     let g = centered_gram(problem, scaling, true);
     let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
@@ -46,7 +48,6 @@ pub(super) fn solve(
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
         condition: triangular::condition_lower(l.as_ref()),
-        live: map.live(),
         method: "cholesky",
     })
 }

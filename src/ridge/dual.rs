@@ -9,6 +9,10 @@ use crate::problem::Problem;
 
 use super::Solution;
 
+/// Bytes of row system accepted on a design with more usable rows than
+/// columns (64 MiB; beyond that the dual is refused on such designs).
+const TALL_LIMIT: u128 = 64 << 20;
+
 /// With the uniform-penalty design `Ẑ` (see [`PenaltyMap`]) over the rows
 /// with non-zero weight, `gamma^ = Ẑ^T (Ẑ Ẑ^T + mu I)^-1 t`: one pass
 /// forms the `n_u x n_u` row Gram by column blocks, a Cholesky factor
@@ -20,13 +24,24 @@ pub(super) fn solve(
     standardize: bool,
     lambda: f64,
 ) -> Result<Solution> {
+    let nu = problem.usable_rows();
+    let p = problem.cols();
+    // The row system has n_u^2 entries: on a tall design it dwarfs both the
+    // design and the primal methods' p x p system.
+    let bytes = 8 * (nu as u128) * (nu as u128);
+    if nu > p && bytes > (8 * nu as u128 * p as u128).max(TALL_LIMIT) {
+        return Err(Error::TooLarge {
+            what: "dual row system of a design with more usable rows than columns (use another ridge method)",
+            bytes,
+        });
+    }
     let rows: Vec<usize> = (0..problem.rows())
         .filter(|&i| problem.scaled_weight(i) > 0.0)
         .collect();
     let norms = standardize.then(|| dual::column_sq_norms(problem, scaling));
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let mu = map.scaled(lambda);
-    let dual::RowGram { mut gram, target } = dual::row_gram(problem, scaling, &map.factors, &rows);
+    let dual::RowGram { mut gram, target } = dual::row_gram(problem, scaling, &map.factors, &rows)?;
     for i in 0..rows.len() {
         gram[(i, i)] += mu;
     }
@@ -46,7 +61,6 @@ pub(super) fn solve(
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
         condition: triangular::condition_lower(l.as_ref()),
-        live: map.live(),
         method: "dual",
     })
 }

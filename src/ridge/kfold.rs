@@ -1,12 +1,14 @@
 //! K-fold cross-validation of any solver.
 
-use ndarray::Array1;
+use ndarray::ArrayView1;
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use crate::error::{Error, Result};
+use crate::model::difference;
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp};
 use crate::solver::Solver;
 
 /// K-fold cross-validation that scores any [`Solver`] by the error of
@@ -76,6 +78,27 @@ pub struct CrossValidation {
     pub std_error: f64,
 }
 
+/// `sum_i w_i r_i^2 / sum_i w_i` for residuals `r_i = m_i 2^e_i`, formed
+/// from values divided by a power of two near the largest (no overflow of
+/// the squares); infinite only when the mean itself exceeds the range.
+fn weighted_mean_square(items: &[(f64, (f64, i32))]) -> f64 {
+    let top = items
+        .iter()
+        .filter(|(w, (m, _))| *w != 0.0 && *m != 0.0)
+        .map(|(_, (m, e))| exponent(*m) + e)
+        .max();
+    let Some(top) = top else {
+        return 0.0;
+    };
+    let (mut num, mut den) = (0.0, 0.0);
+    for &(w, (m, e)) in items {
+        let s = ldexp(m, e - top);
+        num += w * s * s;
+        den += w;
+    }
+    ldexp(num / den, 2 * top)
+}
+
 impl KFold {
     /// `folds` folds shuffled with `seed`.
     pub fn new(folds: usize, seed: u64) -> Self {
@@ -117,9 +140,16 @@ impl KFold {
     /// Fits `solver` once per fold on the other folds and scores it on the
     /// held-out one.
     ///
+    /// Every error is formed from scaled values, so weights and targets near
+    /// the ends of the `f64` range give finite scores (or a typed error
+    /// when a score itself exceeds the range).
+    ///
     /// # Errors
     /// As [`KFold::assignments`]; [`Error::FoldFit`] carrying the fold and
-    /// the solver's error when a training fit fails.
+    /// the solver's error when a training fit fails; [`Error::OverflowAt`]
+    /// naming a held-out row whose prediction exceeds the range of `f64`;
+    /// [`Error::Overflow`] when a fold's error does; [`Error::TooLarge`]
+    /// when the training weights cannot be allocated.
     pub fn cross_validate(
         &self,
         solver: &dyn Solver,
@@ -132,13 +162,17 @@ impl KFold {
         let k = self.folds;
         let mut fold_errors = Vec::with_capacity(k);
         let mut fold_rows = Vec::with_capacity(k);
+        let mut train = crate::alloc::vec("training weights", problem.rows(), 0.0)?;
+        let mut held: Vec<(f64, (f64, i32))> = Vec::new();
         for fold in 0..k {
-            let train = Array1::from_shape_fn(problem.rows(), |i| match fold_of[i] {
-                Some(f) if f != fold => base(i),
-                _ => 0.0,
-            });
+            for (i, t) in train.iter_mut().enumerate() {
+                *t = match fold_of[i] {
+                    Some(f) if f != fold => base(i),
+                    _ => 0.0,
+                };
+            }
             let fit = Problem::builder(x, y)
-                .weights(train.view())
+                .weights(ArrayView1::from(&train[..]))
                 .intercept(problem.has_intercept())
                 .build()
                 .and_then(|training| solver.fit(&training))
@@ -146,27 +180,33 @@ impl KFold {
                     fold,
                     error: Box::new(e),
                 })?;
-            let (mut num, mut den, mut count) = (0.0, 0.0, 0usize);
+            // The held-out rows' scaled weights (w / ws: the weight scale
+            // cancels in the weighted mean, and sums of weights near 1e308
+            // cannot overflow) and residuals as mantissa and exponent.
+            held.clear();
             for (i, f) in fold_of.iter().enumerate() {
                 if *f != Some(fold) {
                     continue;
                 }
-                let e = y[i] - fit.model.predict_row(x.row(i))?;
-                num += base(i) * e * e;
-                den += base(i);
-                count += 1;
+                let predicted = fit.model.predict_row(x.row(i)).map_err(|e| match e {
+                    Error::OverflowAt { what, .. } => Error::OverflowAt { what, row: i },
+                    other => other,
+                })?;
+                held.push((problem.scaled_weight(i), difference(y[i], predicted)));
             }
-            fold_errors.push(num / den);
-            fold_rows.push(count);
+            let error = weighted_mean_square(&held);
+            if !error.is_finite() {
+                return Err(Error::Overflow { what: "fold error" });
+            }
+            fold_errors.push(error);
+            fold_rows.push(held.len());
         }
         let kf = k as f64;
-        let mean_error = fold_errors.iter().sum::<f64>() / kf;
-        let var = fold_errors
-            .iter()
-            .map(|e| (e - mean_error) * (e - mean_error))
-            .sum::<f64>()
-            / (kf - 1.0);
-        let std_dev = var.sqrt();
+        let mean_error = crate::scaled::weighted_mean(fold_errors.iter().map(|&e| (1.0, e)));
+        let spread = crate::scaled::ScaledSquares::weighted(
+            fold_errors.iter().map(|&e| (1.0, e - mean_error)),
+        );
+        let std_dev = spread.sqrt() / (kf - 1.0).sqrt();
         Ok(CrossValidation {
             fold_errors,
             fold_rows,

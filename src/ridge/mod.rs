@@ -132,7 +132,10 @@ pub enum RidgeMethod {
     Svd,
     /// The `n x n` system of the rows (rows of non-zero weight only), for
     /// more columns than rows. Memory: up to four `n_u x n_u` accumulators
-    /// (one when `8 n_u^2` exceeds 256 MiB) and one block of columns.
+    /// (one when `8 n_u^2` exceeds 256 MiB) and one block of columns. On a
+    /// design with more usable rows than columns it is refused with
+    /// [`Error::TooLarge`] once its row system would exceed both the
+    /// design's size and 64 MiB (the primal methods are far smaller then).
     Dual,
 }
 
@@ -191,7 +194,6 @@ impl Ridge {
 pub(crate) struct Solution {
     pub beta: Vec<f64>,
     pub condition: f64,
-    pub live: usize,
     pub method: &'static str,
 }
 
@@ -222,8 +224,8 @@ impl Solver for Ridge {
                 problem,
                 "ridge",
                 Vec::new(),
-                0,
-                1.0,
+                Some(0),
+                Some(1.0),
                 scaling.target_scale,
                 lambda,
             );
@@ -244,17 +246,12 @@ impl Solver for Ridge {
                 }
             }
         };
-        let rank = sol.live.min(
-            problem
-                .usable_rows()
-                .saturating_sub(usize::from(problem.has_intercept())),
-        );
         finish_closed_form(
             problem,
             &format!("ridge-{}", sol.method),
             sol.beta,
-            rank,
-            sol.condition,
+            None,
+            Some(sol.condition),
             scaling.target_scale,
             lambda,
         )

@@ -10,7 +10,7 @@ use crate::linalg::{
 use crate::penalty::{check_penalty, PenaltyMap};
 use crate::prep::Scaling;
 use crate::problem::Problem;
-use crate::solver::{finish_with_rss, Fit};
+use crate::solver::{caller_rss, finish_with_rss, Fit};
 
 /// Ridge fits for many penalties from one decomposition of the design.
 ///
@@ -171,7 +171,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         let norms = standardize.then(|| dual::column_sq_norms(problem, &scaling));
         let map = PenaltyMap::new(problem, &scaling, norms.as_deref());
         let dual::RowGram { mut gram, target } =
-            dual::row_gram(problem, &scaling, &map.factors, &rows);
+            dual::row_gram(problem, &scaling, &map.factors, &rows)?;
         let nu = rows.len();
         let intercept = problem.has_intercept();
         if intercept {
@@ -224,11 +224,10 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// per direction examined: `p` when rows >= columns, else the usable
     /// rows (less one with an intercept).
     pub fn singular_values(&self) -> Vec<f64> {
-        let unit = self.map.unit;
         self.spectrum
             .sq
             .iter()
-            .map(|s2| (s2 / unit).sqrt())
+            .map(|&s2| self.map.caller_singular_value(s2))
             .collect()
     }
 
@@ -322,8 +321,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         let mu = self.map.scaled(lambda);
         let gamma = self.scaled_coefficients(mu);
         let beta = self.map.to_caller(&self.scaling, &gamma);
-        let sy = self.scaling.target_scale;
-        let rss = self.scaled_rss(mu) * sy * sy * self.problem.stats.weight_scale;
+        let rss = caller_rss(self.problem, self.scaling.target_exp, self.scaled_rss(mu))?;
         let sp = &self.spectrum;
         let condition = if sp.kept == 0 {
             1.0
@@ -336,8 +334,8 @@ impl<'p, 'a> RidgePath<'p, 'a> {
             self.problem,
             "ridge-svd",
             beta,
-            sp.kept,
-            condition,
+            Some(sp.kept),
+            Some(condition),
             rss,
             lambda,
         )
@@ -352,7 +350,8 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     ///
     /// # Errors
     /// [`Error::InvalidParameter`] when `count` is 0;
-    /// [`Error::Overflow`] if the singular values are too large to square.
+    /// [`Error::Overflow`] if the singular values are too large to square;
+    /// [`Error::TooLarge`] when `count` penalties cannot be allocated.
     pub fn default_grid(&self, count: usize) -> Result<Vec<f64>> {
         if count == 0 {
             return Err(Error::InvalidParameter {
@@ -375,13 +374,18 @@ impl<'p, 'a> RidgePath<'p, 'a> {
                 what: "default penalty grid",
             });
         }
+        let mut grid = crate::alloc::with_capacity("penalty grid", count)?;
         if count == 1 {
-            return Ok(vec![(lo * hi).sqrt()]);
+            grid.push(lo.sqrt() * hi.sqrt());
+            return Ok(grid);
         }
         let (a, b) = (lo.ln(), hi.ln());
-        Ok((0..count)
-            .map(|i| (a + (b - a) * i as f64 / (count - 1) as f64).exp())
-            .collect())
+        grid.extend((0..count).map(|i| {
+            (a + (b - a) * i as f64 / (count - 1) as f64)
+                .exp()
+                .clamp(lo, hi)
+        }));
+        Ok(grid)
     }
 }
 
@@ -456,7 +460,7 @@ fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) ->
     }
     let beta = map.to_caller(scaling, &gamma);
     let sy = scaling.target_scale;
-    let rss0 = residuals::centered_rss(problem, &beta, sy) / (sy * sy * problem.stats.weight_scale);
+    let rss0 = residuals::centered_rss(problem, &beta, sy);
     let mut r = vec![0.0; p];
     r[..q].copy_from_slice(&rl);
     Some(Triangle {

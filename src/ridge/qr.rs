@@ -1,10 +1,10 @@
 //! Ridge by QR of the augmented system: the triangle of the design stacked
 //! over `sqrt(mu) I`.
 
-use faer::Mat;
+use faer::{Mat, MatRef};
 
 use crate::error::Result;
-use crate::linalg::{dense, qr::tall_skinny_r, triangular};
+use crate::linalg::{dense, qr::tall_skinny_r, svd::thin_svd, triangular};
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -21,6 +21,8 @@ pub(super) fn solve(
     lambda: f64,
 ) -> Result<Solution> {
     let p = problem.cols();
+    // The triangle, the stacked system and its factor.
+    crate::alloc::reserve_matrices("augmented system", 2 * p + 1, p + 1, 2)?;
     let r = tall_skinny_r(problem, scaling, true);
     let norms: Option<Vec<f64>> = standardize.then(|| {
         (0..p)
@@ -28,8 +30,19 @@ pub(super) fn solve(
             .collect()
     });
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
-    let root = map.scaled(lambda).sqrt();
+    let mu = map.scaled(lambda);
     let f = &map.factors;
+    let tolerance = problem.default_rank_tolerance();
+    let r11 = r.as_ref().submatrix(0, 0, p, p);
+    if !crate::solvers::dependent_columns(problem, scaling, r11, tolerance).is_empty() {
+        // Columns dependent to rounding: the triangle's smallest pivots are
+        // rounding noise, which a small penalty would treat as information
+        // (exactly duplicated columns would get unequal coefficients). Take
+        // the SVD of the triangle instead and drop the noise directions, as
+        // the `Svd` method does.
+        return spectral(scaling, &map, r.as_ref(), mu, tolerance);
+    }
+    let root = mu.sqrt();
     let mut stacked = Mat::<f64>::zeros(2 * p + 1, p + 1);
     for i in 0..=p {
         for j in i..p {
@@ -47,7 +60,44 @@ pub(super) fn solve(
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
         condition: triangular::condition_upper(r11.as_ref()),
-        live: map.live(),
+        method: "qr",
+    })
+}
+
+/// The penalised solution from the SVD `R diag(f) = U S V^T` of the
+/// triangle: `gamma^ = sum_k v_k s_k d_k / (s_k^2 + mu)` with `d = U^T r`,
+/// over the singular values above `tolerance * s_max` (the others are
+/// rounding noise of a rank-deficient design).
+fn spectral(
+    scaling: &Scaling,
+    map: &PenaltyMap,
+    r: MatRef<'_, f64>,
+    mu: f64,
+    tolerance: f64,
+) -> Result<Solution> {
+    let p = r.ncols() - 1;
+    let f = &map.factors;
+    let rh = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] * f[j]);
+    let dec = thin_svd(rh.as_ref())?;
+    let smax = dec.s.first().copied().unwrap_or(0.0);
+    let kept = dec
+        .s
+        .iter()
+        .take_while(|&&s| s > 0.0 && s > tolerance * smax)
+        .count();
+    let mut gamma = vec![0.0; p];
+    for k in 0..kept {
+        let d: f64 = (0..p).map(|i| dec.u[(i, k)] * r[(i, p)]).sum();
+        let s = dec.s[k];
+        let c = s * d / (s * s + mu);
+        for (j, g) in gamma.iter_mut().enumerate() {
+            *g += dec.v[(j, k)] * c;
+        }
+    }
+    let smin = dec.s.last().copied().unwrap_or(0.0);
+    Ok(Solution {
+        beta: map.to_caller(scaling, &gamma),
+        condition: ((smax * smax + mu) / (smin * smin + mu)).sqrt(),
         method: "qr",
     })
 }

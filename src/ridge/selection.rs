@@ -5,6 +5,8 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{dense, loo};
+use crate::scaled::ldexp;
+use crate::solver::caller_rss;
 
 use super::path::{RidgePath, Side};
 
@@ -59,10 +61,14 @@ pub struct PenaltyCurve {
     pub effective_df: Vec<f64>,
     /// Weighted residual sum of squares `sum_i w_i e_i^2` of each fit.
     pub residual_sum_of_squares: Vec<f64>,
-    /// Generalized cross-validation score of each penalty.
+    /// Generalized cross-validation score of each penalty (`+inf` where
+    /// it is not determined; written as `"inf"` by serde).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub gcv: Vec<f64>,
     /// Leave-one-out error of each penalty, when the criterion asked for
-    /// it (computing it costs a pass over the design).
+    /// it (computing it costs a pass over the design; `+inf` where it is
+    /// not determined).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_floats"))]
     pub loo: Option<Vec<f64>>,
     /// The criterion minimised.
     pub criterion: Criterion,
@@ -109,32 +115,46 @@ impl RidgePath<'_, '_> {
     pub fn curve(&self, grid: &[f64], criterion: Criterion) -> Result<super::PenaltyCurve> {
         check_grid(grid)?;
         let problem = self.problem;
-        let sy = self.scaling.target_scale;
+        let loss_exp = 2 * self.scaling.target_exp;
         let wt = problem.stats.total_weight;
         let nu = problem.usable_rows() as f64;
+        let m = grid.len();
         let mus: Vec<f64> = grid.iter().map(|&l| self.map.scaled(l)).collect();
-        let mut effective_df = Vec::with_capacity(grid.len());
-        let mut rss = Vec::with_capacity(grid.len());
-        let mut gcv = Vec::with_capacity(grid.len());
+        let mut effective_df = crate::alloc::with_capacity("penalty curve", m)?;
+        let mut rss = crate::alloc::with_capacity("penalty curve", m)?;
+        let mut gcv = crate::alloc::with_capacity("penalty curve", m)?;
+        // A score in the caller's units from its scaled value: infinite only
+        // where it is not determined, an error where it exceeds the range.
+        let caller = |scaled: f64, what: &'static str| -> Result<f64> {
+            if scaled == f64::INFINITY {
+                return Ok(scaled);
+            }
+            let v = ldexp(scaled, loss_exp);
+            if v.is_finite() {
+                Ok(v)
+            } else {
+                Err(Error::Overflow { what })
+            }
+        };
         for &mu in &mus {
             let df = self.scaled_df(mu);
             let r = self.scaled_rss(mu);
-            let mean_sq = (r / wt) * sy * sy;
             let denom = 1.0 - df / nu;
-            gcv.push(if denom > 4.0 * f64::EPSILON {
-                mean_sq / (denom * denom)
+            let score = if denom > 4.0 * f64::EPSILON {
+                (r / wt) / (denom * denom)
             } else {
                 f64::INFINITY
-            });
+            };
+            gcv.push(caller(score, "generalized cross-validation score")?);
             effective_df.push(df);
-            rss.push(r * sy * sy * problem.stats.weight_scale);
+            rss.push(caller_rss(problem, self.scaling.target_exp, r)?);
         }
         let loo = match criterion {
             Criterion::LeaveOneOut => Some(
                 self.loo_sums(&mus)
                     .into_iter()
-                    .map(|s| (s / wt) * sy * sy)
-                    .collect::<Vec<f64>>(),
+                    .map(|s| caller(s / wt, "leave-one-out error"))
+                    .collect::<Result<Vec<f64>>>()?,
             ),
             Criterion::GeneralizedCrossValidation => None,
         };

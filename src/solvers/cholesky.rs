@@ -140,15 +140,15 @@ impl Solver for Cholesky {
         triangular::solve_upper(l.as_ref().transpose(), &mut gamma);
         let beta: Vec<f64> = gamma
             .iter()
-            .zip(&scaling.scale)
-            .map(|(g, s)| g * (scaling.target_scale / s))
+            .enumerate()
+            .map(|(j, &g)| scaling.to_caller(j, g))
             .collect();
         finish_closed_form(
             problem,
             self.name(),
             beta,
-            p,
-            condition,
+            Some(p),
+            Some(condition),
             scaling.target_scale,
             0.0,
         )

@@ -6,8 +6,10 @@ use crate::linalg::{qr::tall_skinny_r, triangular};
 use crate::model::LinearModel;
 use crate::prep::Scaling;
 use crate::problem::Problem;
+use crate::scaled::ldexp;
 use crate::solver::{
-    check_tolerance, finish_closed_form, intercept_for, Fit, IterationReport, Solver,
+    caller_rss, check_tolerance, finish_closed_form, finish_with_rss, intercept_for, Fit,
+    IterationReport, Solver,
 };
 
 use super::dependent_columns;
@@ -133,8 +135,8 @@ impl Solver for Qr {
         triangular::solve_upper(r11.as_ref(), &mut gamma);
         let beta: Vec<f64> = gamma
             .iter()
-            .zip(&scaling.scale)
-            .map(|(g, s)| g * (scaling.target_scale / s))
+            .enumerate()
+            .map(|(j, &g)| scaling.to_caller(j, g))
             .collect();
         let condition = triangular::condition_upper(r11.as_ref());
         let Some(settings) = &self.refinement else {
@@ -142,46 +144,47 @@ impl Solver for Qr {
                 problem,
                 self.name(),
                 beta,
-                p,
-                condition,
+                Some(p),
+                Some(condition),
                 scaling.target_scale,
                 0.0,
             );
         };
         let start = intercept_for(problem, &beta);
         let refined = refine(problem, &scaling, &r11, condition, settings, start, beta)?;
-        let mut fit = finish_closed_form(
-            problem,
-            self.name(),
-            refined.beta.clone(),
-            p,
-            condition,
-            scaling.target_scale,
-            0.0,
-        )?;
         if !refined.intercept.is_finite() {
             return Err(Error::Overflow { what: "intercept" });
         }
-        let residuals =
-            crate::linalg::extended::residuals(problem, refined.intercept, &refined.beta);
-        let rss = crate::linalg::extended::weighted_sum_of_squares(problem, &residuals);
-        // Outside the range of the error-free products (|values| near
-        // 1e300) the extended sum may overflow: keep the plain one then.
-        let rss = if rss.is_finite() {
-            rss
-        } else {
-            fit.report.residual_sum_of_squares
-        };
-        fit.model = LinearModel::new(Array1::from(refined.beta), refined.intercept);
-        fit.report.residual_sum_of_squares = rss;
+        // The residual sum of squares from the extended-precision residuals
+        // of the returned coefficients.
+        let rss = caller_rss(problem, scaling.target_exp, refined.rss_scaled)?;
+        let mut fit = finish_with_rss(
+            problem,
+            self.name(),
+            refined.beta.clone(),
+            Some(p),
+            Some(condition),
+            rss,
+            0.0,
+        )?;
+        fit.model = LinearModel::from_parts(Array1::from(refined.beta), refined.intercept);
+        let loss_exp = 2 * scaling.target_exp;
+        let losses: Vec<f64> = refined.losses.iter().map(|&l| ldexp(l, loss_exp)).collect();
+        let final_loss = ldexp(
+            refined.rss_scaled / (2.0 * problem.stats.total_weight),
+            loss_exp,
+        );
+        if !final_loss.is_finite() || losses.iter().any(|l| !l.is_finite()) {
+            return Err(Error::Overflow { what: "loss" });
+        }
         fit.report.iterations = Some(IterationReport {
             iterations: refined.steps,
             converged: refined.converged,
             stopped_by_observer: false,
-            final_loss: rss / (2.0 * problem.total_weight()),
+            final_loss,
             gradient_norm: refined.gradient,
             step: 1.0,
-            loss_history: refined.losses,
+            loss_history: losses,
             passes: refined.passes,
             restarts: 0,
         });

@@ -4,9 +4,14 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{extended, qr::tall_skinny_r_with, triangular};
+use crate::linalg::{
+    extended::{self, Units},
+    qr::tall_skinny_r_with,
+    triangular,
+};
 use crate::prep::Scaling;
-use crate::problem::{pow2_scale, Problem};
+use crate::problem::Problem;
+use crate::scaled::{ldexp, pow2_scale};
 
 /// Settings of iterative refinement, the opt-in path of [`crate::Qr`] to a
 /// solution correct to nearly full double precision.
@@ -55,29 +60,37 @@ impl Default for Refinement {
 
 /// The refined solution and how the refinement went.
 pub(crate) struct Refined {
+    /// Intercept and slopes in the caller's units.
     pub intercept: f64,
     pub beta: Vec<f64>,
     pub steps: usize,
     pub converged: bool,
     /// Largest `|a_j^T W e| / (|W^(1/2) a_j| |W^(1/2) (y - ybar)|)` over
     /// the centered columns `a_j` and the constant, at the start of the
-    /// last step.
+    /// last step (or of the refinement, when no step was run).
     pub gradient: f64,
-    /// `sum w e^2 / (2 sum w)` (caller's weights) of the residual estimate
-    /// at the start of each step.
+    /// `sum w~ e^2 / (2 sum w~)` (scaled weights, residuals in units of the
+    /// target scale `s_y`) of the residual estimate at the start of each
+    /// step: multiply by `s_y^2` for the caller's loss.
     pub losses: Vec<f64>,
+    /// `sum w~ e^2` of the final residuals in extended precision, in
+    /// scaled units (multiply by `s_y^2 ws` for the caller's units).
+    pub rss_scaled: f64,
     /// Full reads of the design made by the refinement (residuals, defects,
     /// and the QR passes of ill-conditioned problems).
     pub passes: usize,
 }
 
-/// Largest `|d_j| / |t_j|` over the parameters (both 0: skipped).
-fn relative_change(theta: &[f64], delta: &[f64]) -> f64 {
+/// Largest relative change of a parameter: `|d_k| / max(|t_k|, |t_k +
+/// d_k|, floor_k)` (0 for `d_k = 0`), where `floor_k` is the attainable
+/// magnitude of the parameter's error scale (0 for the slopes).
+fn relative_change(theta: &[f64], delta: &[f64], floor: &[f64]) -> f64 {
     theta
         .iter()
         .zip(delta)
-        .map(|(&t, &d)| {
-            let den = t.abs().max((t + d).abs());
+        .zip(floor)
+        .map(|((&t, &d), &fl)| {
+            let den = t.abs().max((t + d).abs()).max(fl);
             if d == 0.0 {
                 0.0
             } else if den == 0.0 {
@@ -89,17 +102,21 @@ fn relative_change(theta: &[f64], delta: &[f64]) -> f64 {
         .fold(0.0, f64::max)
 }
 
-/// Refines `(intercept, beta)` for `problem`, given the triangle `r11` of
-/// its centered, weighted, scaled design and the condition estimate of
-/// `r11`.
+/// Refines `(intercept, beta)` (caller's units) for `problem`, given the
+/// triangle `r11` of its centered, weighted, scaled design and the
+/// condition estimate of `r11`.
+///
+/// Everything runs in the scaled units of `scaling` (`x_ij / s_j`,
+/// `y_i / s_y`, exact powers of two; the intercept in units of `s_y`), so
+/// that data near the ends of the `f64` range refine like data near 1.
 pub(crate) fn refine(
     problem: &Problem<'_>,
     scaling: &Scaling,
     r11: &Mat<f64>,
     condition: f64,
     settings: &Refinement,
-    mut intercept: f64,
-    mut beta: Vec<f64>,
+    intercept: f64,
+    beta: Vec<f64>,
 ) -> Result<Refined> {
     if !settings.tolerance.is_finite() || settings.tolerance < 0.0 {
         return Err(Error::InvalidParameter {
@@ -110,7 +127,16 @@ pub(crate) fn refine(
     }
     let p = problem.cols();
     let with_intercept = problem.has_intercept();
-    let means = &problem.stats.means;
+    let units = Units {
+        col: scaling.scale.iter().map(|s| 1.0 / s).collect(),
+        target: 1.0 / scaling.target_scale,
+    };
+    // Means in scaled units (exact).
+    let means: Vec<f64> = (0..p)
+        .map(|j| problem.stats.means[j] * units.col[j])
+        .collect();
+    let mut gamma: Vec<f64> = (0..p).map(|j| scaling.to_scaled(j, beta[j])).collect();
+    let mut b0 = ldexp(intercept, -scaling.target_exp);
     let total_weight = problem.stats.total_weight;
     let semi_normal = condition * condition * f64::EPSILON <= 1e-3;
     // Column norms of the scaled design (the column norms of R).
@@ -123,20 +149,22 @@ pub(crate) fn refine(
         })
         .collect();
 
-    let y_norm = extended::centered_target_sum_of_squares(problem).sqrt();
-    let mut e = extended::residuals(problem, intercept, &beta);
+    let y_norm = extended::centered_target_sum_of_squares(problem, &units).sqrt();
+    let mut e = extended::residuals(problem, &units, b0, &gamma);
     let mut prev = f64::INFINITY;
     let mut out = Refined {
-        intercept,
+        intercept: 0.0,
         beta: Vec::new(),
         steps: 0,
         converged: false,
-        gradient: f64::NAN,
+        gradient: 0.0,
         losses: Vec::new(),
+        rss_scaled: 0.0,
         passes: 1,
     };
-    for step in 1..=settings.max_steps {
-        let d = extended::defects(problem, intercept, &beta, &e);
+    let mut step = 0;
+    loop {
+        let d = extended::defects(problem, &units, b0, &gamma, &e);
         out.passes += 1;
         if !d.is_finite() {
             break;
@@ -154,7 +182,7 @@ pub(crate) fn refine(
         // Gradient measure for the report: |a_j^T W e| / (|a_j| |y - ybar|)
         // over the (weighted, centered) columns and the constant, in [0, 1].
         let e_ss = extended::weighted_sum_of_squares(problem, &e);
-        out.losses.push(e_ss / (2.0 * problem.total_weight()));
+        out.losses.push(e_ss / (2.0 * total_weight));
         out.gradient = if y_norm == 0.0 {
             0.0
         } else {
@@ -164,13 +192,17 @@ pub(crate) fn refine(
                 0.0
             };
             for j in 0..p {
-                let den = scaling.scale[j] * col_norm[j] * y_norm;
+                let den = col_norm[j] * y_norm;
                 if den > 0.0 {
                     worst = worst.max(gc[j].abs() / den);
                 }
             }
             worst
         };
+        if step >= settings.max_steps {
+            break;
+        }
+        step += 1;
         let fc_max =
             d.f.iter()
                 .enumerate()
@@ -180,18 +212,14 @@ pub(crate) fn refine(
         let t = if fc_max > 0.0 {
             pow2_scale(fc_max)
         } else {
-            pow2_scale(
-                (0..p)
-                    .map(|j| (gc[j] / scaling.scale[j]).abs())
-                    .fold(0.0, f64::max),
-            )
+            pow2_scale(gc.iter().fold(0.0, |m: f64, v| m.max(v.abs())))
         };
-        let gcs: Vec<f64> = (0..p).map(|j| gc[j] / (scaling.scale[j] * t)).collect();
+        let gcs: Vec<f64> = gc.iter().map(|g| g / t).collect();
         let mut dgamma: Vec<f64>;
         if semi_normal {
             // R^T R d = Z^T h - g  with h = W^(1/2) (f - c) / t.
             dgamma = (0..p)
-                .map(|j| (d.centered_xf[j] - c * d.centered_x[j]) / (scaling.scale[j] * t) - gcs[j])
+                .map(|j| (d.centered_xf[j] - c * d.centered_x[j]) / t - gcs[j])
                 .collect();
             triangular::solve_lower(r11.as_ref().transpose(), &mut dgamma);
             triangular::solve_upper(r11.as_ref(), &mut dgamma);
@@ -206,32 +234,43 @@ pub(crate) fn refine(
             dgamma = (0..p).map(|j| rf[(j, p)] - u[j]).collect();
             triangular::solve_upper(r, &mut dgamma);
         }
-        let d_beta: Vec<f64> = (0..p).map(|j| dgamma[j] * (t / scaling.scale[j])).collect();
-        let d_intercept = if with_intercept {
-            c - means.iter().zip(&d_beta).map(|(m, b)| m * b).sum::<f64>()
+        let d_gamma: Vec<f64> = dgamma.iter().map(|v| v * t).collect();
+        let d_b0 = if with_intercept {
+            c - means.iter().zip(&d_gamma).map(|(m, b)| m * b).sum::<f64>()
         } else {
             0.0
         };
-        if d_beta.iter().any(|v| !v.is_finite()) || !d_intercept.is_finite() {
+        if d_gamma.iter().any(|v| !v.is_finite()) || !d_b0.is_finite() {
             break;
         }
-        let mut theta = beta.clone();
-        let mut delta = d_beta.clone();
+        let mut theta = gamma.clone();
+        let mut delta = d_gamma.clone();
+        let mut floor = vec![0.0; p];
         if with_intercept {
-            theta.push(intercept);
-            delta.push(d_intercept);
+            theta.push(b0);
+            delta.push(d_b0);
+            // The intercept is mean(y) - mean(x) . b: it cannot be known
+            // better than the rounding of those products, so its change is
+            // measured against their size, not its own.
+            floor.push(
+                means
+                    .iter()
+                    .zip(&gamma)
+                    .map(|(m, g)| (m * g).abs())
+                    .sum::<f64>(),
+            );
         }
-        let change = relative_change(&theta, &delta);
+        let change = relative_change(&theta, &delta, &floor);
         out.steps = step;
         if change > prev {
             // Growing corrections: the refinement does not converge here;
             // keep the previous iterate.
             break;
         }
-        for (b, db) in beta.iter_mut().zip(&d_beta) {
-            *b += db;
+        for (g, dg) in gamma.iter_mut().zip(&d_gamma) {
+            *g += dg;
         }
-        intercept += d_intercept;
+        b0 += d_b0;
         if change <= settings.tolerance {
             out.converged = true;
             break;
@@ -241,11 +280,14 @@ pub(crate) fn refine(
             out.converged = change <= 64.0 * f64::EPSILON;
             break;
         }
-        extended::update_residuals(problem, &mut e, &d.f, c, &d_beta);
+        extended::update_residuals(problem, &units, &mut e, &d.f, c, &d_gamma);
         out.passes += 1;
         prev = change;
     }
-    out.intercept = intercept;
-    out.beta = beta;
+    let residuals = extended::residuals(problem, &units, b0, &gamma);
+    out.passes += 1;
+    out.rss_scaled = extended::weighted_sum_of_squares(problem, &residuals);
+    out.intercept = ldexp(b0, scaling.target_exp);
+    out.beta = (0..p).map(|j| scaling.to_caller(j, gamma[j])).collect();
     Ok(out)
 }

@@ -4,6 +4,7 @@ use crate::error::{Error, Result};
 use crate::linalg::{qr, svd::thin_svd};
 use crate::prep::Scaling;
 use crate::problem::Problem;
+use crate::scaled::ldexp;
 use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 
 /// Minimum-norm least squares through the singular value decomposition: the
@@ -13,8 +14,9 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 /// same block QR as [`crate::Qr`], takes the SVD `R = U S V^T` (a `p x p`
 /// problem), and keeps the singular values `s_i > relative_cutoff * s_max`;
 /// their count is the numerical rank in the report. The default cutoff is
-/// `max(usable rows, columns) * f64::EPSILON`. Columns that are constant to
-/// that tolerance beside the intercept get coefficient 0.
+/// `max(usable rows, columns) * f64::EPSILON`. Columns that are constant
+/// beside the intercept (to the default tolerance `max(usable rows,
+/// columns) * f64::EPSILON`, whatever the cutoff) get coefficient 0.
 ///
 /// When the rank is below the number of columns, the solution returned is
 /// the one of minimum Euclidean norm **in the caller's units** (the
@@ -29,7 +31,7 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 /// let x = array![[1.0, 2.0], [2.0, 4.0], [3.0, 6.0], [4.0, 8.0]];
 /// let y = array![1.0, 2.1, 2.9, 4.2];
 /// let fit = Svd::default().fit(&Problem::new(x.view(), y.view())?)?;
-/// assert_eq!(fit.report.rank, 1);
+/// assert_eq!(fit.report.rank, Some(1));
 /// let b = fit.model.coefficients();
 /// // Minimum norm: b is proportional to (1, 2).
 /// assert!((b[1] - 2.0 * b[0]).abs() < 1e-12);
@@ -56,7 +58,9 @@ impl Solver for Svd {
             None => problem.default_rank_tolerance(),
         };
         let p = problem.cols();
-        let scaling = Scaling::new(problem, cutoff);
+        // The cutoff applies to singular values only; constant columns are
+        // found with the default tolerance, as in every other solver.
+        let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         let r = qr::tall_skinny_r(problem, &scaling, true);
         // Keep only the informative (non-constant) columns.
         let live: Vec<usize> = (0..p).filter(|&j| !scaling.constant[j]).collect();
@@ -82,12 +86,26 @@ impl Solver for Svd {
                     *g += dec.v[(c, i)] * coef;
                 }
             }
-            let mut b: Vec<f64> = (0..q)
-                .map(|c| gamma[c] * (scaling.target_scale / scaling.scale[live[c]]))
+            // Minimum norm in caller units: b_c = gamma_c 2^(e_y - e_c). Work
+            // with b_c 2^-(e_y + e_max) = gamma_c 2^(-e_c - e_max) (a common
+            // power of two, so the projection is the same) to stay in range.
+            let e_max = live
+                .iter()
+                .map(|&j| -scaling.scale_exp[j])
+                .max()
+                .unwrap_or(0);
+            let unit: Vec<i32> = live
+                .iter()
+                .map(|&j| -scaling.scale_exp[j] - e_max)
                 .collect();
+            let mut b: Vec<f64> = (0..q).map(|c| ldexp(gamma[c], unit[c])).collect();
             if rank < q {
-                project_off_null_space(&mut b, &dec.v, rank, &live, &scaling);
+                project_off_null_space(&mut b, &dec.v, rank, &unit);
             }
+            let b: Vec<f64> = b
+                .iter()
+                .map(|&v| ldexp(v, scaling.target_exp + e_max))
+                .collect();
             for (c, &j) in live.iter().enumerate() {
                 beta[j] = b[c];
             }
@@ -107,27 +125,21 @@ impl Solver for Svd {
             problem,
             self.name(),
             beta,
-            rank,
-            condition,
+            Some(rank),
+            Some(condition),
             scaling.target_scale,
             0.0,
         )
     }
 }
 
-/// Makes `b` (caller units) the minimum-norm member of `b + null space`,
-/// where the null space of the scaled problem is spanned by columns
-/// `rank..` of `v`; in caller units a null vector `n` becomes `n_c / s_c`.
-fn project_off_null_space(
-    b: &mut [f64],
-    v: &Mat<f64>,
-    rank: usize,
-    live: &[usize],
-    scaling: &Scaling,
-) {
+/// Makes `b` the minimum-norm member of `b + null space`, where the null
+/// space of the scaled problem is spanned by columns `rank..` of `v`; in
+/// the units of `b` a null vector `n` becomes `n_c 2^unit_c`.
+fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, unit: &[i32]) {
     let q = b.len();
     let k = v.ncols() - rank;
-    let mut a = Mat::<f64>::from_fn(q, k, |c, i| v[(c, rank + i)] / scaling.scale[live[c]]);
+    let mut a = Mat::<f64>::from_fn(q, k, |c, i| ldexp(v[(c, rank + i)], unit[c]));
     // Column scaling does not change the range; it keeps the QR well scaled.
     for i in 0..k {
         let norm = (0..q).map(|c| a[(c, i)] * a[(c, i)]).sum::<f64>().sqrt();
