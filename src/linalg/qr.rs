@@ -26,9 +26,14 @@ use faer::{Accum, Mat, MatMut, MatRef, Par};
 use super::{block_groups, kernels, tree_reduce};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
+use crate::scaled::{exponent, ldexp};
 
 /// Columns per panel of the stacked QR (one 64-byte cache line of a row).
 pub(crate) const PANEL: usize = 8;
+
+/// Reflectors of columns whose size is below `2^TINY_EXP` are formed from
+/// the column rescaled by a power of two (see [`stacked_qr`]).
+const TINY_EXP: i32 = -900;
 
 /// Groups of the TSQR pass (fixed, not the thread count: their triangles
 /// are folded in order, so the result does not depend on the threads).
@@ -227,10 +232,25 @@ fn stacked_qr_impl(
                 }
                 continue;
             }
-            let beta = -alpha.hypot(xnorm).copysign(alpha);
-            let t = (beta - alpha) / beta;
-            let scal = 1.0 / (alpha - beta);
-            r[(j, j)] = beta;
+            // A column whose remaining norm is near the bottom of the range
+            // (the rounding noise of a stack with fewer rows than columns
+            // shrinks by about eps per round of reflections): bring it and
+            // alpha near 1 by an exact power of two first, so that
+            // 1 / (alpha - beta) cannot overflow (as LAPACK's reflector
+            // generator rescales).
+            let e = exponent(alpha.abs().max(xnorm));
+            let (alpha_s, xnorm_s) = if e < TINY_EXP {
+                for line in pan.chunks_exact_mut(PANEL) {
+                    line[jj] = ldexp(line[jj], -e);
+                }
+                (ldexp(alpha, -e), ldexp(xnorm, -e))
+            } else {
+                (alpha, xnorm)
+            };
+            let beta = -alpha_s.hypot(xnorm_s).copysign(alpha_s);
+            let t = (beta - alpha_s) / beta;
+            let scal = 1.0 / (alpha_s - beta);
+            r[(j, j)] = if e < TINY_EXP { ldexp(beta, e) } else { beta };
             tau[jj] = t;
             // Pass 1: v = B[:, j] * scal; d[l] = v . B[:, j0 + l].
             let d = kernels::dispatch(
@@ -558,6 +578,48 @@ mod tests {
     use super::*;
     use rand::{RngExt, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+
+    /// Wide blocks (few rows, many columns) fold correctly too.
+    #[test]
+    fn wide_blocks_fold_correctly() {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        for &(n, k, block) in &[
+            (1700usize, 1600usize, 32usize),
+            (1700, 1600, 64),
+            (1700, 1100, 32),
+            (1300, 1200, 256),
+        ] {
+            let z: Vec<f64> = (0..n * k).map(|_| rng.random_range(-1.0..1.0)).collect();
+            let ld = row_stride(k);
+            let mut r = Mat::<f64>::zeros(k, k);
+            let mut work = StackedQrWork::new(k);
+            let mut r0 = 0;
+            while r0 < n {
+                let len = block.min(n - r0);
+                let mut buf = vec![0.0; len * ld];
+                for i in 0..len {
+                    buf[i * ld..i * ld + k].copy_from_slice(&z[(r0 + i) * k..(r0 + i + 1) * k]);
+                }
+                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+                r0 += len;
+            }
+            let bad = (0..k)
+                .flat_map(|i| (0..k).map(move |j| (i, j)))
+                .find(|&(i, j)| !r[(i, j)].is_finite());
+            assert!(
+                bad.is_none(),
+                "{n}x{k} block {block}: non-finite R at {bad:?}"
+            );
+            for &(i, j) in &[(0usize, 0usize), (5, 900), (k - 1, k - 1), (k / 2, k - 3)] {
+                let rtr: f64 = (0..k).map(|l| r[(l, i)] * r[(l, j)]).sum();
+                let ztz: f64 = (0..n).map(|l| z[l * k + i] * z[l * k + j]).sum();
+                assert!(
+                    (rtr - ztz).abs() <= 1e-9 * n as f64,
+                    "{n}x{k} block {block} ({i},{j}): {rtr} vs {ztz}"
+                );
+            }
+        }
+    }
 
     /// Stacks of random blocks: `R^T R` must equal `Z^T Z` (an identity of
     /// any QR, `Z = Q R` with orthogonal `Q`), and `|R|` must match
