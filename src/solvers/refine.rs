@@ -32,11 +32,16 @@ use crate::scaled::{ldexp, pow2_scale};
 /// (a full QR pass per step; `Q` is never stored). Either way the extra
 /// memory is two vectors of `n` entries, never a copy of the design.
 ///
-/// Refinement stops when the largest relative change of a coefficient (the
-/// intercept included) is at most `tolerance`, when a step stops shrinking
-/// the change at least by half, or after `max_steps` steps; a step that
-/// would grow it is discarded. The fit report's
-/// [`IterationReport`](crate::IterationReport) says how it went.
+/// Refinement stops when the largest relative change of a coefficient is at
+/// most `tolerance` (the intercept's change measured against the size of
+/// `mean(x) . b`, the accuracy it can have when the columns sit far from
+/// zero), when a step stops shrinking the change at least by half, or
+/// after `max_steps` steps; a step that would grow it is discarded. A fit
+/// that stops shrinking counts as converged when its last change is at the
+/// rounding level of the correction's sums, `64 eps sqrt(usable rows)`.
+/// The fit report's [`IterationReport`](crate::IterationReport) says how it
+/// went (with `max_steps: 0`: no step, not converged, and the gradient
+/// measure of the plain QR solution).
 ///
 /// It cannot recover digits that the `f64` inputs no longer hold: it
 /// converges to the exact least-squares solution *of the data as given*.
@@ -152,6 +157,9 @@ pub(crate) fn refine(
     let y_norm = extended::centered_target_sum_of_squares(problem, &units).sqrt();
     let mut e = extended::residuals(problem, &units, b0, &gamma);
     let mut prev = f64::INFINITY;
+    // The rounding level of a correction: sums over the usable rows in
+    // working precision lose about eps sqrt(n) of their size.
+    let noise = 64.0 * f64::EPSILON * (problem.usable_rows() as f64).sqrt().max(1.0);
     let mut out = Refined {
         intercept: 0.0,
         beta: Vec::new(),
@@ -263,8 +271,9 @@ pub(crate) fn refine(
         let change = relative_change(&theta, &delta, &floor);
         out.steps = step;
         if change > prev {
-            // Growing corrections: the refinement does not converge here;
-            // keep the previous iterate.
+            // Growing corrections: keep the previous iterate. It is the
+            // solution if its own correction was at the noise floor.
+            out.converged = prev <= noise;
             break;
         }
         for (g, dg) in gamma.iter_mut().zip(&d_gamma) {
@@ -276,8 +285,8 @@ pub(crate) fn refine(
             break;
         }
         if change > 0.5 * prev {
-            // Stagnation at rounding level.
-            out.converged = change <= 64.0 * f64::EPSILON;
+            // Stagnation: converged at the noise floor.
+            out.converged = change <= noise;
             break;
         }
         extended::update_residuals(problem, &units, &mut e, &d.f, c, &d_gamma);
