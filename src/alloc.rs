@@ -6,8 +6,6 @@
 //! size beyond what can be allocated is a typed [`Error::TooLarge`] naming
 //! the bytes, never a panic or an abort.
 
-use faer::Mat;
-
 use crate::error::{Error, Result};
 
 /// Bytes of `count` elements of `T`, exactly (`u128` cannot overflow for
@@ -60,9 +58,11 @@ pub(crate) fn with_capacity<T>(what: &'static str, len: usize) -> Result<Vec<T>>
     Ok(v)
 }
 
-/// Checks that `rows x cols` doubles (times `copies`) can be allocated: the
-/// size is checked, and the memory is reserved once and released (faer's
-/// matrices cannot be allocated fallibly themselves).
+/// Checks that `copies` matrices of `rows x cols` doubles can be
+/// allocated: their total size is checked, and the memory of one of them
+/// is reserved once and released (faer's matrices cannot be allocated
+/// fallibly themselves; reserving one is enough to catch a size that no
+/// allocator can serve, without inflating the peak).
 ///
 /// # Errors
 /// [`Error::TooLarge`] naming `what` and the bytes.
@@ -72,22 +72,14 @@ pub(crate) fn reserve_matrices(
     cols: usize,
     copies: usize,
 ) -> Result<()> {
-    let len = checked_len::<f64>(what, &[rows, cols, copies.max(1)])?;
+    checked_len::<f64>(what, &[rows, cols, copies.max(1)])?;
+    let len = checked_len::<f64>(what, &[rows, cols])?;
     let mut probe: Vec<f64> = Vec::new();
     probe.try_reserve_exact(len).map_err(|_| Error::TooLarge {
         what,
         bytes: bytes_of::<f64>(&[rows, cols, copies.max(1)]),
     })?;
     Ok(())
-}
-
-/// A `rows x cols` matrix of zeros, after [`reserve_matrices`].
-///
-/// # Errors
-/// [`Error::TooLarge`] naming `what` and the bytes.
-pub(crate) fn zeros(what: &'static str, rows: usize, cols: usize) -> Result<Mat<f64>> {
-    reserve_matrices(what, rows, cols, 1)?;
-    Ok(Mat::zeros(rows, cols))
 }
 
 #[cfg(test)]
@@ -104,7 +96,7 @@ mod tests {
             }
             other => panic!("{other:?}"),
         }
-        match zeros("square", 1 << 33, 1 << 33) {
+        match reserve_matrices("square", 1 << 33, 1 << 33, 1) {
             Err(Error::TooLarge { bytes, .. }) => assert_eq!(bytes, 1u128 << 69),
             other => panic!("{other:?}"),
         }

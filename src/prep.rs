@@ -91,8 +91,28 @@ impl Scaling {
 /// and write contiguously. A column-major `out` from a row-major design, and
 /// a row-major `out` from a column-major design, are transposed in tiles of
 /// [`TILE`] rows that stay in the first-level cache.
-/// Every path computes the same values bit for bit.
+/// Every path computes the same values bit for bit. Rows of weight zero
+/// are written as exact zeros, whatever their values (a value far outside
+/// the usable rows' range could overflow once scaled, and 0 * inf is NaN).
 pub(crate) fn fill_block(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    r0: usize,
+    r1: usize,
+    with_target: bool,
+    mut out: MatMut<'_, f64>,
+) {
+    fill_block_rows(problem, scaling, r0, r1, with_target, out.rb_mut());
+    if problem.weights().is_some() {
+        for (local, i) in (r0..r1).enumerate() {
+            if problem.scaled_weight(i) == 0.0 {
+                out.rb_mut().row_mut(local).fill(0.0);
+            }
+        }
+    }
+}
+
+fn fill_block_rows(
     problem: &Problem<'_>,
     scaling: &Scaling,
     r0: usize,

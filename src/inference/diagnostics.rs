@@ -127,6 +127,7 @@ impl Inference {
                 gamma: &self.basis.gamma,
                 intercept_weight: self.intercept.is_some().then_some(self.basis.total_weight),
                 meat_power: None,
+                residual_scale: 1.0,
                 keep_rows: true,
                 leverage_one: LEVERAGE_ONE,
             },
@@ -146,14 +147,12 @@ impl Inference {
         let n = problem.rows();
         let df = self.residual_df as f64;
         let k = self.parameters as f64;
-        let s2 = self.basis.sigma2_scaled;
-        let sigma = s2.sqrt();
+        let sigma = self.basis.sigma_scaled;
         let mut studentized = crate::alloc::with_capacity("studentized residuals", n)?;
         let mut deleted = crate::alloc::with_capacity("deleted residuals", n)?;
         let mut cooks = crate::alloc::with_capacity("Cook's distances", n)?;
         for i in 0..n {
             let h = pass.leverage[i];
-            let e = pass.scaled_residuals[i];
             let gap = 1.0 - h;
             let usable = problem.scaled_weight(i) > 0.0;
             if !usable || gap <= LEVERAGE_ONE || sigma == 0.0 {
@@ -162,11 +161,15 @@ impl Inference {
                 cooks.push(None);
                 continue;
             }
-            let r_i = e / (sigma * gap.sqrt());
+            // The residual in units of sigma (a ratio: nothing squared
+            // before it is scale-free).
+            let e = pass.scaled_residuals[i] / sigma;
+            let r_i = e / gap.sqrt();
             studentized.push(Some(r_i));
             cooks.push(Some(r_i * r_i * h / (k * gap)));
+            // sigma_(i)^2 / sigma^2 = (df - e^2 / gap) / (df - 1).
             let s2_i = if df >= 2.0 {
-                (df * s2 - e * e / gap) / (df - 1.0)
+                (df - e * e / gap) / (df - 1.0)
             } else {
                 0.0
             };

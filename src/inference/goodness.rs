@@ -6,7 +6,7 @@ use super::distributions::f_upper_tail;
 use super::ratio;
 use crate::error::{Error, Result};
 use crate::linalg::products::{inverse_quadratic_form, upper_times};
-use crate::linalg::svd::thin_svd;
+use crate::linalg::svd::singular_values;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
 
@@ -74,7 +74,8 @@ pub struct GoodnessOfFit {
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
 pub struct OverallTest {
-    /// The F statistic (`+inf` for an exact fit).
+    /// The F statistic (`+inf` for a fit exact to the precision of `f64`,
+    /// see [`crate::inference`]).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub statistic: f64,
     /// Numerator degrees of freedom (the number of slopes).
@@ -116,13 +117,16 @@ pub(super) struct Inputs<'a, 'p> {
     pub problem: &'a Problem<'p>,
     pub r: MatRef<'a, f64>,
     pub gamma: &'a [f64],
-    /// The middle matrix of a sandwich covariance; `None`: classical
-    /// (`sigma~^2 I`).
+    /// The middle matrix of a sandwich covariance divided by `2^meat_exp`;
+    /// `None`: classical (`sigma~^2 I`).
     pub meat: Option<MatRef<'a, f64>>,
-    /// Residual variance, residual and total sums of squares, all in
-    /// scaled units.
-    pub sigma2_scaled: f64,
-    pub rss_scaled: f64,
+    pub meat_exp: i32,
+    /// Residual standard deviation, residual norm `sqrt(RSS)` and the
+    /// target's norm `|t|` from the factorisation, in scaled units.
+    pub sigma_scaled: f64,
+    pub rss_norm: f64,
+    pub t_norm: f64,
+    /// The total sum of squares from the target alone, scaled units.
     pub tss_scaled: f64,
     /// `log2` of the caller units per scaled unit of a sum of squares.
     pub sum_exp: i32,
@@ -130,9 +134,15 @@ pub(super) struct Inputs<'a, 'p> {
     pub parameters: usize,
 }
 
-/// A sum of squares in the caller's units.
-fn caller_sum(scaled: f64, exp: i32, what: &'static str) -> Result<f64> {
-    let v = ldexp(scaled, exp);
+/// The square of `norm` (scaled units) in the caller's units, `2^exp` per
+/// scaled unit, without underflow or overflow on the way.
+fn caller_square(norm: f64, exp: i32, what: &'static str) -> Result<f64> {
+    if norm == 0.0 {
+        return Ok(0.0);
+    }
+    let e = exponent(norm);
+    let m = ldexp(norm, -e);
+    let v = ldexp(m * m, exp + 2 * e);
     if v.is_finite() {
         Ok(v)
     } else {
@@ -146,10 +156,18 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
     let n = problem.usable_rows() as f64;
     let centered = problem.has_intercept();
     let dff = inp.df as f64;
-    let (rss, tss) = (inp.rss_scaled, inp.tss_scaled);
-    let r_squared = if tss > 0.0 {
-        1.0 - rss / tss
-    } else if rss == 0.0 {
+    // |t| from the target alone when its square is a normal number (the
+    // compensated sum is the more accurate), else from the factorisation.
+    let tss_norm = if inp.tss_scaled >= f64::MIN_POSITIVE / f64::EPSILON {
+        inp.tss_scaled.sqrt()
+    } else {
+        inp.t_norm
+    };
+    let rss_norm = inp.rss_norm;
+    let r_squared = if tss_norm > 0.0 {
+        let q = rss_norm / tss_norm;
+        1.0 - q * q
+    } else if rss_norm == 0.0 {
         1.0
     } else {
         f64::NEG_INFINITY
@@ -157,14 +175,21 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
     let lost = if centered { 1.0 } else { 0.0 };
     let adjusted_r_squared = 1.0 - (1.0 - r_squared) * ((n - lost) / dff);
     let rg = upper_times(inp.r, inp.gamma);
-    let ess_scaled: f64 = rg.iter().map(|v| v * v).sum();
+    let ess_norm = super::norm(rg.iter().copied());
     let overall = if p == 0 {
         None
     } else {
         let wald = match inp.meat {
             // Classical: M = sigma~^2 I.
-            None => Some(ratio(ess_scaled, inp.sigma2_scaled)),
-            Some(meat) => inverse_quadratic_form(meat.submatrix(0, 0, p, p), &rg),
+            None => {
+                let q = ratio(ess_norm, inp.sigma_scaled);
+                Some(q * q)
+            }
+            Some(meat) => {
+                let half = inp.meat_exp / 2;
+                let rgs: Vec<f64> = rg.iter().map(|&v| ldexp(v, -half)).collect();
+                inverse_quadratic_form(meat.submatrix(0, 0, p, p), &rgs)
+            }
         };
         wald.map(|w| {
             let statistic = w / p as f64;
@@ -191,21 +216,32 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
         None => 0.0,
     };
     let two_pi = 2.0 * std::f64::consts::PI;
-    // ln(RSS / n) = ln(rss~ / n) + sum_exp ln 2: no overflow or underflow.
-    let log_rss = (rss / n).ln() + f64::from(inp.sum_exp) * ln2;
+    // ln(RSS / n) = 2 ln |r| - ln n + sum_exp ln 2: no overflow or underflow.
+    let log_rss = 2.0 * rss_norm.ln() - n.ln() + f64::from(inp.sum_exp) * ln2;
     let log_likelihood = -0.5 * n * (two_pi.ln() + log_rss + 1.0) + 0.5 * log_weights;
     let m = inp.parameters + 1;
+    let total = if inp.tss_scaled >= f64::MIN_POSITIVE / f64::EPSILON {
+        let v = ldexp(inp.tss_scaled, inp.sum_exp);
+        if !v.is_finite() {
+            return Err(Error::Overflow {
+                what: "total sum of squares",
+            });
+        }
+        v
+    } else {
+        caller_square(tss_norm, inp.sum_exp, "total sum of squares")?
+    };
     Ok(GoodnessOfFit {
         r_squared,
         adjusted_r_squared,
         centered,
-        total_sum_of_squares: caller_sum(tss, inp.sum_exp, "total sum of squares")?,
-        regression_sum_of_squares: caller_sum(
-            ess_scaled,
+        total_sum_of_squares: total,
+        regression_sum_of_squares: caller_square(
+            ess_norm,
             inp.sum_exp,
             "regression sum of squares",
         )?,
-        residual_sum_of_squares: caller_sum(rss, inp.sum_exp, "residual sum of squares")?,
+        residual_sum_of_squares: caller_square(rss_norm, inp.sum_exp, "residual sum of squares")?,
         overall,
         log_likelihood,
         aic: -2.0 * log_likelihood + 2.0 * m as f64,
@@ -214,33 +250,47 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
     })
 }
 
+/// Column norms of the triangle `r` (those of the design it factors).
+fn column_norms(r: MatRef<'_, f64>) -> Vec<f64> {
+    (0..r.ncols())
+        .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum::<f64>().sqrt())
+        .collect()
+}
+
+/// The 2-norm condition number of the design with unit columns, from the
+/// singular values of `R D^-1` (`D` the column norms).
+pub(super) fn condition_number(r: MatRef<'_, f64>) -> Result<f64> {
+    let p = r.ncols();
+    if p == 0 {
+        return Ok(1.0);
+    }
+    let col_norm = column_norms(r);
+    let unit = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] / col_norm[j]);
+    let s = singular_values(unit.as_ref())?;
+    let smax = s.first().copied().unwrap_or(1.0);
+    let smin = s.last().copied().unwrap_or(1.0);
+    Ok(ratio(smax, smin))
+}
+
+/// The collinearity measures, from `R`, its inverse and the condition
+/// number of [`condition_number`].
 pub(super) fn collinearity(
     r: MatRef<'_, f64>,
     rinv: MatRef<'_, f64>,
+    condition_number: f64,
     centered: bool,
-) -> Result<Collinearity> {
+) -> Collinearity {
     let p = r.ncols();
-    let col_norm: Vec<f64> = (0..p)
-        .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum::<f64>().sqrt())
-        .collect();
+    let col_norm = column_norms(r);
     let vif: Vec<f64> = (0..p)
         .map(|j| {
             let row: f64 = (j..p).map(|c| rinv[(j, c)] * rinv[(j, c)]).sum();
             col_norm[j] * col_norm[j] * row
         })
         .collect();
-    let condition_number = if p == 0 {
-        1.0
-    } else {
-        let unit = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] / col_norm[j]);
-        let svd = thin_svd(unit.as_ref())?;
-        let smax = svd.s.first().copied().unwrap_or(1.0);
-        let smin = svd.s.last().copied().unwrap_or(1.0);
-        ratio(smax, smin)
-    };
-    Ok(Collinearity {
+    Collinearity {
         vif,
         condition_number,
         centered,
-    })
+    }
 }

@@ -100,9 +100,15 @@
 //! When the residuals are exactly zero (`sigma = 0`), every standard error
 //! is 0, each estimate's `t` is `+inf` or `-inf` (0 for an estimate of 0)
 //! with p-value 0, the overall F statistic is `+inf`, and the
-//! log-likelihood is `+inf` (AIC and BIC `-inf`). These are the only
-//! non-finite numbers inference returns; with the `serde` feature they are
-//! written as the strings `"inf"` and `"-inf"` and read back exactly.
+//! log-likelihood is `+inf` (AIC and BIC `-inf`). A fit exact to the
+//! precision of `f64` without being exactly so (R² is 1 to rounding) can
+//! likewise have a `t` or F statistic beyond the range of `f64`: `+-inf`
+//! too. A sandwich covariance can give a standard error of exactly 0 when
+//! the residuals vanish at every row where a parameter has leverage; its
+//! `t` is then `+-inf` (and the overall F statistic may be `+inf`). These
+//! are the only non-finite numbers inference returns; with the
+//! `serde` feature they are written as the strings `"inf"` and `"-inf"`
+//! and read back exactly.
 //!
 //! ## Cautions
 //!
@@ -126,13 +132,12 @@ pub use predict::Predictions;
 
 use std::fmt;
 
-use faer::linalg::matmul::matmul;
-use faer::{Accum, Mat, Par};
+use faer::Mat;
 use ndarray::Array2;
 
 use crate::error::{Error, Result};
 use crate::linalg::leverage::{row_pass, RowPassSpec};
-use crate::linalg::products::{congruence, solve_upper_transposed};
+use crate::linalg::products::{congruence_into, solve_upper_transposed};
 use crate::linalg::{extended, qr::tall_skinny_r, triangular};
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -360,7 +365,11 @@ pub struct Estimate {
     pub std_error: f64,
     /// `value / std_error`, formed in scaled units (so it does not depend
     /// on the units of the data); `+inf` or `-inf` when the standard error
-    /// is 0 and the value is not (an exact fit), 0 when both are 0.
+    /// is 0 and the value is not (an exact fit; or a sandwich covariance
+    /// whose residuals vanish wherever this parameter has leverage), or
+    /// when the fit is exact to the precision of `f64` and the ratio
+    /// exceeds the range (R² is then 1); 0 when value and standard error
+    /// are both 0.
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub t: f64,
     /// Two-sided p-value of `value = 0` against Student's t with the
@@ -404,11 +413,13 @@ struct Basis {
     /// Weighted mean of the target (zero without intercept).
     target_mean: f64,
     /// The middle matrix of a sandwich covariance in orthonormal
-    /// coordinates (`q x q`, scaled units); `None` for the classical
-    /// covariance, whose middle matrix is `sigma~^2 I`.
+    /// coordinates (`q x q`, scaled units divided by `2^meat_exp`); `None`
+    /// for the classical covariance, whose middle matrix is `sigma~^2 I`.
     meat: Option<Array2<f64>>,
-    /// Residual variance in scaled units.
-    sigma2_scaled: f64,
+    /// The power of two the middle matrix is divided by.
+    meat_exp: i32,
+    /// Residual standard deviation in scaled units.
+    sigma_scaled: f64,
     /// Slopes in scaled coordinates.
     gamma: Vec<f64>,
     /// The fingerprint of the problem.
@@ -458,9 +469,9 @@ pub struct Inference {
     /// How far the fit's coefficients (intercept included) are from the
     /// exact least-squares solution of the problem, in standard errors: the
     /// norm `sqrt(d^T C^-1 d)` of the difference `d` under the classical
-    /// covariance `C` (so each coefficient is at most this many of its
-    /// standard errors away), less the rounding level of the comparison
-    /// (and never below 0). At most [`MAX_FIT_DISTANCE`].
+    /// covariance `C` of the exact solution (so each coefficient is at most
+    /// this many of its standard errors away), less the rounding level of
+    /// the comparison (and never below 0). At most [`MAX_FIT_DISTANCE`].
     pub fit_distance: f64,
     /// R², the overall test and the likelihood-based criteria.
     pub goodness: GoodnessOfFit,
@@ -493,7 +504,7 @@ fn unit_exponents(scaling: &Scaling, p: usize, intercept: bool) -> Vec<i32> {
 }
 
 /// Euclidean norm without overflow or underflow of the squares.
-fn norm(v: impl Iterator<Item = f64> + Clone) -> f64 {
+pub(crate) fn norm(v: impl Iterator<Item = f64> + Clone) -> f64 {
     let big = v.clone().fold(0.0_f64, |m, x| m.max(x.abs()));
     if big == 0.0 || !big.is_finite() {
         return big;
@@ -599,19 +610,45 @@ impl Inference {
 
         let tolerance = problem.default_rank_tolerance();
         let scaling = Scaling::new(problem, tolerance);
-        let (r, qty, rnorm) = {
+        // Memory: at most five (p + 1) x (p + 1) matrices are alive at once,
+        // three of them the result's (see the module docs).
+        crate::alloc::reserve_matrices("inference matrices", k + 1, k + 1, 5)?;
+        let (basis_r, qty, rnorm) = {
             let full = tall_skinny_r(problem, &scaling, true);
-            let r: Mat<f64> = full.as_ref().submatrix(0, 0, p, p).to_owned();
-            let qty: Vec<f64> = (0..p).map(|i| full[(i, p)]).collect();
-            (r, qty, full[(p, p)].abs())
+            (
+                Array2::from_shape_fn((p, p), |(i, j)| full[(i, j)]),
+                (0..p).map(|i| full[(i, p)]).collect::<Vec<f64>>(),
+                full[(p, p)].abs(),
+            )
         };
-        let dependent = crate::solvers::dependent_columns(problem, &scaling, r.as_ref(), tolerance);
+        let r = crate::linalg::as_faer(&basis_r.view());
+        let dependent = crate::solvers::dependent_columns(problem, &scaling, r, tolerance);
         if !dependent.is_empty() {
             return Err(refuse(InferenceRefusal::RankDeficient {
                 rank: p - dependent.len(),
                 columns: p,
             }));
         }
+        // The unit-column condition number first: its SVD workspace is the
+        // largest of the pass, and nothing else of size p^2 is alive yet.
+        let unit_condition = goodness::condition_number(r)?;
+        // V maps orthonormal coordinates to (slopes, intercept) in scaled
+        // units: R^-1 on the slopes, the intercept's row from the means
+        // (filled below).
+        let q = k;
+        let mut v = Mat::<f64>::zeros(q, q);
+        triangular::inverse_upper_into(v.as_mut().submatrix_mut(0, 0, p, p), r);
+        let condition = if p == 0 {
+            1.0
+        } else {
+            triangular::norm1(r) * triangular::norm1(v.as_ref().submatrix(0, 0, p, p))
+        };
+        let collinearity = goodness::collinearity(
+            r,
+            v.as_ref().submatrix(0, 0, p, p),
+            unit_condition,
+            has_intercept,
+        );
         let ey = scaling.target_exp;
         let ws_exp = exponent(problem.stats.weight_scale);
         let w_scaled = problem.stats.total_weight;
@@ -638,7 +675,6 @@ impl Inference {
         let c0 = if has_intercept { b0 - (ybar - ag) } else { 0.0 };
         let sqrt_w = w_scaled.sqrt();
         let dist_num = norm(u.iter().copied().chain(std::iter::once(c0 * sqrt_w)));
-        let condition = triangular::condition_upper(r.as_ref());
         let t_norm = norm(qty.iter().copied().chain(std::iter::once(rnorm)));
         let rg_norm = norm((0..p).map(|i| (i..p).map(|j| (r[(i, j)] * gamma[j]).abs()).sum()));
         let intercept_size = if has_intercept {
@@ -656,28 +692,41 @@ impl Inference {
             * (p + 1) as f64
             * f64::EPSILON
             * (condition.min(1.0 / f64::EPSILON) * (t_norm + rg_norm) + intercept_size);
-        let rss_ours = rnorm * rnorm + dist_num * dist_num;
-        // The fit's own residual sum of squares, when it agrees with ours to
-        // rounding (refined fits form it in extended precision).
+        // The fit's residual norm |t - Z gamma| in scaled units: ours from
+        // the factor, or the fit's own when it agrees to rounding (refined
+        // fits form it in extended precision). Norms, not squares, so that
+        // nothing underflows.
+        let rss_norm_ours = rnorm.hypot(dist_num);
         let rss_fit = ldexp(report.residual_sum_of_squares, -(2 * ey + ws_exp));
-        let rss_tolerance = 2.0 * rnorm * floor + floor * floor + 4.0 * f64::EPSILON * rss_ours;
-        let rss_scaled = if rss_fit.is_finite() && (rss_fit - rss_ours).abs() <= rss_tolerance {
-            rss_fit
+        let rss_norm_fit = rss_fit.sqrt();
+        let tolerance_norm = floor + 2.0 * f64::EPSILON * rss_norm_ours;
+        // (The fit's value is used when it is 0 or keeps every digit in
+        // scaled units: a subnormal one has lost some.)
+        let rss_norm = if rss_fit.is_finite()
+            && (rss_fit == 0.0 || rss_fit >= f64::MIN_POSITIVE / f64::EPSILON)
+            && (rss_norm_fit - rss_norm_ours).abs() <= tolerance_norm
+        {
+            rss_norm_fit
         } else {
-            rss_ours
+            rss_norm_ours
         };
-        if !rss_scaled.is_finite() {
+        if !rss_norm.is_finite() {
             return Err(Error::Overflow {
                 what: "residual sum of squares",
             });
         }
-        let sigma2_scaled = rss_scaled / dff;
-        let sigma_scaled = sigma2_scaled.sqrt();
+        // sigma~ = sigma_m 2^sigma_exp with sigma_m in [1, 2) (or 0).
+        let sigma_scaled = rss_norm / dff.sqrt();
+        let sigma_exp = exponent(sigma_scaled);
+        let sigma_m = ldexp(sigma_scaled, -sigma_exp);
+        // The distance is measured in standard errors of the exact fit
+        // (whose residual sum of squares is rnorm^2: the fit's own is larger
+        // by the distance itself).
         let excess = (dist_num - floor).max(0.0);
         let fit_distance = if excess == 0.0 {
             0.0
         } else {
-            ratio(excess, sigma_scaled)
+            ratio(excess, rnorm / dff.sqrt())
         };
         if !(fit_distance <= MAX_FIT_DISTANCE) {
             return Err(refuse(InferenceRefusal::FarFromSolution {
@@ -686,19 +735,24 @@ impl Inference {
             }));
         }
 
-        // Middle matrix in orthonormal coordinates (None: sigma~^2 I).
-        let q = k;
-        let meat: Option<Mat<f64>> = match options.covariance.leverage_power() {
+        // Middle matrix in orthonormal coordinates (None: sigma~^2 I), kept
+        // as the result's array and viewed by faer. The residuals are
+        // divided by 2^residual_exp (near the largest) first, so that the
+        // products of small residuals and small leverage coordinates do not
+        // underflow; the covariance carries the factor back as an exponent.
+        let residual_exp = exponent(rss_norm.max(f64::MIN_POSITIVE));
+        let meat: Option<Array2<f64>> = match options.covariance.leverage_power() {
             None => None,
             Some(power) => {
                 let pass = row_pass(
                     problem,
                     &scaling,
                     RowPassSpec {
-                        r: r.as_ref(),
+                        r,
                         gamma: &gamma,
                         intercept_weight: has_intercept.then_some(w_scaled),
                         meat_power: Some(power),
+                        residual_scale: crate::scaled::pow2(residual_exp.max(-1022)),
                         keep_rows: false,
                         leverage_one: LEVERAGE_ONE,
                     },
@@ -710,59 +764,50 @@ impl Inference {
                         }
                     }
                 }
-                let mut m = pass.meat.unwrap_or_else(|| Mat::zeros(q, q));
-                if options.covariance == CovarianceKind::Hc1 {
-                    let c = n as f64 / dff;
-                    for j in 0..q {
-                        for i in 0..q {
-                            m[(i, j)] *= c;
-                        }
-                    }
-                }
-                Some(m)
+                let c = if options.covariance == CovarianceKind::Hc1 {
+                    n as f64 / dff
+                } else {
+                    1.0
+                };
+                pass.meat
+                    .map(|m| Array2::from_shape_fn((q, q), |(i, j)| c * m[(i, j)]))
+                    .or_else(|| Some(Array2::zeros((q, q))))
             }
         };
 
-        // V maps orthonormal coordinates to (slopes, intercept) in scaled
-        // units: R^-1 on the slopes, the intercept's row from the means.
-        let mut v = Mat::<f64>::zeros(q, q);
-        v.as_mut()
-            .submatrix_mut(0, 0, p, p)
-            .copy_from(triangular::inverse_upper(r.as_ref()));
         if has_intercept {
             let mut t = a.clone();
-            solve_upper_transposed(r.as_ref(), &mut t);
+            solve_upper_transposed(r, &mut t);
             for (c, tc) in t.iter().enumerate() {
                 v[(p, c)] = -tc;
             }
             v[(p, p)] = 1.0 / sqrt_w;
         }
-        let cov_scaled = match &meat {
-            Some(m) => congruence(v.as_ref(), m.as_ref()),
-            None => {
-                let mut c = Mat::<f64>::zeros(q, q);
-                matmul(
-                    c.as_mut(),
-                    Accum::Replace,
-                    v.as_ref(),
-                    v.as_ref().transpose(),
-                    sigma2_scaled,
-                    Par::Seq,
-                );
-                for j in 0..q {
-                    for i in (j + 1)..q {
-                        let s = 0.5 * (c[(i, j)] + c[(j, i)]);
-                        c[(i, j)] = s;
-                        c[(j, i)] = s;
-                    }
-                }
-                c
-            }
+        // The covariance, formed in scaled units (up to the power of two
+        // 2^cov_exp) straight into the result's array (by tiles: no other
+        // q x q matrix), then mapped back.
+        let mut covariance = Array2::<f64>::zeros((q, q));
+        let cov_exp = if meat.is_some() {
+            2 * residual_exp
+        } else {
+            2 * sigma_exp
         };
+        congruence_into(
+            crate::linalg::as_faer_mut(&mut covariance),
+            v.as_ref(),
+            meat.as_ref().map(|m| crate::linalg::as_faer(&m.view())),
+            if meat.is_some() {
+                1.0
+            } else {
+                sigma_m * sigma_m
+            },
+        );
+        drop(v);
+        let variances_m: Vec<f64> = (0..q).map(|i| covariance[[i, i]]).collect();
         let units = unit_exponents(&scaling, p, has_intercept);
-        let covariance = Array2::from_shape_fn((q, q), |(i, j)| {
-            ldexp(cov_scaled[(i, j)], units[i] + units[j])
-        });
+        for ((i, j), c) in covariance.indexed_iter_mut() {
+            *c = ldexp(*c, units[i] + units[j] + cov_exp);
+        }
         if covariance.iter().any(|c| !c.is_finite()) {
             return Err(Error::Overflow {
                 what: "covariance matrix",
@@ -782,15 +827,20 @@ impl Inference {
             .collect();
         let mut estimates = Vec::with_capacity(q);
         for i in 0..q {
-            let se = cov_scaled[(i, i)].max(0.0).sqrt();
-            let t = ratio(scaled_values[i], se);
+            // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
+            // se_m and the exponents (nothing underflows on the way).
+            let se_m = variances_m[i].max(0.0).sqrt();
+            let half = cov_exp / 2;
+            let t = ldexp(ratio(scaled_values[i], se_m), -half);
+            let se = ldexp(se_m, units[i] + half);
+            let margin = critical * se;
             let e = Estimate {
                 value: values[i],
-                std_error: ldexp(se, units[i]),
+                std_error: se,
                 t,
                 p_value: distributions::t_two_sided_p(t, dff),
-                lower: ldexp(scaled_values[i] - critical * se, units[i]),
-                upper: ldexp(scaled_values[i] + critical * se, units[i]),
+                lower: values[i] - margin,
+                upper: values[i] + margin,
             };
             if !(e.lower.is_finite() && e.upper.is_finite()) {
                 return Err(Error::Overflow {
@@ -805,10 +855,10 @@ impl Inference {
         // The residual variance and its square root in caller units:
         // sigma^2 = sigma~^2 s_y^2 ws; sqrt(ws) split into an even power.
         let variance_exp = 2 * ey + ws_exp;
-        let residual_variance = ldexp(sigma2_scaled, variance_exp);
+        let residual_variance = ldexp(sigma_m * sigma_m, variance_exp + 2 * sigma_exp);
         let residual_sd = ldexp(
-            (sigma2_scaled * f64::from(1 << ws_exp.rem_euclid(2))).sqrt(),
-            ey + ws_exp.div_euclid(2),
+            sigma_m * f64::from(1 << ws_exp.rem_euclid(2)).sqrt(),
+            ey + ws_exp.div_euclid(2) + sigma_exp,
         );
         if !residual_variance.is_finite() || !residual_sd.is_finite() {
             return Err(Error::Overflow {
@@ -825,31 +875,30 @@ impl Inference {
         );
         let goodness = goodness::compute(goodness::Inputs {
             problem,
-            r: r.as_ref(),
+            r,
             gamma: &gamma,
-            meat: meat.as_ref().map(|m| m.as_ref()),
-            sigma2_scaled,
-            rss_scaled,
+            meat: meat.as_ref().map(|m| crate::linalg::as_faer(&m.view())),
+            meat_exp: 2 * residual_exp,
+            sigma_scaled,
+            rss_norm,
             tss_scaled,
+            t_norm,
             sum_exp: variance_exp,
             df,
             parameters: k,
         })?;
-        let collinearity =
-            goodness::collinearity(r.as_ref(), v.as_ref().submatrix(0, 0, p, p), has_intercept)?;
-        drop(v);
-        drop(cov_scaled);
 
         let basis = Basis {
-            r: Array2::from_shape_fn((p, p), |(i, j)| r[(i, j)]),
+            r: basis_r,
             scale: scaling.scale.clone(),
             target_scale: scaling.target_scale,
             weight_scale: problem.stats.weight_scale,
             total_weight: w_scaled,
             means: problem.stats.means.clone(),
             target_mean: problem.stats.target_mean,
-            meat: meat.map(|m| Array2::from_shape_fn((q, q), |(i, j)| m[(i, j)])),
-            sigma2_scaled,
+            meat,
+            meat_exp: 2 * residual_exp,
+            sigma_scaled,
             gamma,
             fingerprint: problem.fingerprint(),
         };
@@ -1006,8 +1055,9 @@ mod serde_check {
                 && b.total_weight > 0.0
                 && b.total_weight.is_finite()
                 && b.target_mean.is_finite()
-                && b.sigma2_scaled >= 0.0
-                && b.sigma2_scaled.is_finite()
+                && b.sigma_scaled >= 0.0
+                && b.sigma_scaled.is_finite()
+                && b.meat_exp.unsigned_abs() <= 4400
                 && (0..p).all(|i| b.r[(i, i)] != 0.0)
                 && d.critical_value.is_finite()
                 && d.critical_value > 0.0

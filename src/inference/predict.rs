@@ -167,25 +167,31 @@ impl Inference {
             if q > p {
                 g[p] = 1.0 / b.total_weight.sqrt();
             }
-            // Variances in units of s_y^2.
-            let var_mean = match &meat {
-                Some(meat) => quadratic_form(meat.as_ref(), &g).max(0.0),
-                None => b.sigma2_scaled * g.iter().map(|v| v * v).sum::<f64>(),
+            // Standard errors in the caller's units, from norms and square
+            // roots (no square of a small number is formed).
+            let se_mean = match &meat {
+                Some(meat) => ldexp(
+                    quadratic_form(meat.as_ref(), &g).max(0.0).sqrt(),
+                    ey + b.meat_exp / 2,
+                ),
+                None => ldexp(b.sigma_scaled * super::norm(g.iter().copied()), ey),
             };
-            // sigma^2 / w0 in units of s_y^2: sigma~^2 ws / w0.
-            let e0 = exponent(w0);
-            let noise = b.sigma2_scaled * ldexp(1.0 / ldexp(w0, -e0), ws_exp - e0);
-            let se_mean = var_mean.sqrt();
-            let se_new = (var_mean + noise).sqrt();
+            // sigma / sqrt(w0) in the caller's units: sigma~ s_y sqrt(ws / w0).
+            let e = ws_exp - exponent(w0);
+            let ratio = ldexp(b.weight_scale, -ws_exp) / ldexp(w0, -exponent(w0));
+            let noise = ldexp(
+                b.sigma_scaled * (ratio * f64::from(1 << e.rem_euclid(2))).sqrt(),
+                ey + e.div_euclid(2),
+            );
+            let se_new = se_mean.hypot(noise);
             let t = self.critical_value;
-            let fitted_scaled = ldexp(fitted, -ey);
             let values = [
-                ldexp(se_mean, ey),
-                ldexp(fitted_scaled - t * se_mean, ey),
-                ldexp(fitted_scaled + t * se_mean, ey),
-                ldexp(se_new, ey),
-                ldexp(fitted_scaled - t * se_new, ey),
-                ldexp(fitted_scaled + t * se_new, ey),
+                se_mean,
+                fitted - t * se_mean,
+                fitted + t * se_mean,
+                se_new,
+                fitted - t * se_new,
+                fitted + t * se_new,
             ];
             if values.iter().any(|v| !v.is_finite()) {
                 return Err(Error::OverflowAt {

@@ -4,6 +4,7 @@ use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::linalg::cholesky::llt::factor::{
     cholesky_in_place, cholesky_in_place_scratch, LltRegularization,
 };
+use faer::reborrow::ReborrowMut;
 use faer::{Mat, MatRef, Par};
 
 /// Outcome of [`factor`].
@@ -16,12 +17,21 @@ pub(crate) enum Factor {
 
 /// Factors the symmetric positive definite `a` (only its lower triangle is read).
 pub(crate) fn factor(a: MatRef<'_, f64>) -> Factor {
-    let n = a.nrows();
     let mut l = a.to_owned();
+    match factor_in_place(l.as_mut()) {
+        Ok(()) => Factor::Ok(l),
+        Err(pivot) => Factor::Failed { pivot },
+    }
+}
+
+/// Factors `a` in place (no copy): its lower triangle becomes `L`, its
+/// upper part is zeroed. `Err(pivot)` at a non-positive pivot.
+pub(crate) fn factor_in_place(mut l: faer::MatMut<'_, f64>) -> Result<(), usize> {
+    let n = l.nrows();
     let req = cholesky_in_place_scratch::<f64>(n, Par::Seq, Default::default());
     let mut mem = MemBuffer::new(req);
     match cholesky_in_place(
-        l.as_mut(),
+        l.rb_mut(),
         LltRegularization::default(),
         Par::Seq,
         MemStack::new(&mut mem),
@@ -33,10 +43,10 @@ pub(crate) fn factor(a: MatRef<'_, f64>) -> Factor {
                     l[(i, j)] = 0.0;
                 }
             }
-            Factor::Ok(l)
+            Ok(())
         }
         Err(faer::linalg::cholesky::llt::factor::LltError::NonPositivePivot { index }) => {
-            Factor::Failed { pivot: index }
+            Err(index)
         }
     }
 }

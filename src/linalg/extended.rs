@@ -172,7 +172,10 @@ pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
             let r0 = c * STATS_CHUNK;
             let mut acc = Accumulator::default();
             for (k, &v) in chunk.iter().enumerate() {
-                acc.add_weighted_product(problem.scaled_weight(r0 + k), v, v);
+                let w = problem.scaled_weight(r0 + k);
+                if w != 0.0 {
+                    acc.add_weighted_product(w, v, v);
+                }
             }
             acc
         })
@@ -196,8 +199,11 @@ pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, units: &Unit
         .map(|c| {
             let mut acc = Accumulator::default();
             for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
-                let d = (y[i] - ym) * a;
-                acc.add_weighted_product(problem.scaled_weight(i), d, d);
+                let w = problem.scaled_weight(i);
+                if w != 0.0 {
+                    let d = (y[i] - ym) * a;
+                    acc.add_weighted_product(w, d, d);
+                }
             }
             acc
         })
@@ -277,12 +283,14 @@ pub(crate) fn defects(
             for (k, out) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 let row = x.index_axis(Axis(0), i);
-                let fi = row_residual(row, y[i], units, b0, beta, e[i]);
-                *out = fi;
                 let w = problem.scaled_weight(i);
                 if w == 0.0 {
+                    // No part in the fit (and its residual may not be finite).
+                    *out = 0.0;
                     continue;
                 }
+                let fi = row_residual(row, y[i], units, b0, beta, e[i]);
+                *out = fi;
                 part.weighted_f.add(w * fi);
                 part.g0.add_product(-w, e[i]);
                 for (j, &v) in row.iter().enumerate() {

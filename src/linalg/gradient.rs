@@ -625,8 +625,12 @@ fn block_cols_impl<const AVX: bool>(inputs: &Inputs<'_, '_>, r0: usize, r1: usiz
     let mut u = vec![0.0; len];
     for (k, (uk, &rk)) in u.iter_mut().zip(&r).enumerate() {
         let w = inputs.problem.scaled_weight(r0 + k);
-        *uk = w * rk;
-        out.sq += *uk * rk;
+        // A row of weight zero takes no part, whatever its values (its
+        // residual may be infinite, and 0 * inf is NaN).
+        if w != 0.0 {
+            *uk = w * rk;
+            out.sq += *uk * rk;
+        }
     }
     for (j, col) in block.axis_iter(Axis(1)).enumerate() {
         let m = means[j];

@@ -30,10 +30,13 @@ pub(crate) struct RowPassSpec<'a> {
     /// `Some(W)` (sum of the scaled weights) when the model has an intercept.
     pub intercept_weight: Option<f64>,
     /// `Some(k)`: accumulate the middle matrix
-    /// `sum_i e_i^2 (1 - h_i)^-k q_i q_i^T` (extended rows `q_i`, scaled
-    /// weighted residuals `e_i`). Rows with `1 - h_i <= leverage_one` add
-    /// nothing when `k > 0`.
+    /// `sum_i (e_i / c)^2 (1 - h_i)^-k q_i q_i^T` (extended rows `q_i`,
+    /// scaled weighted residuals `e_i`, `c` = `residual_scale`). Rows with
+    /// `1 - h_i <= leverage_one` add nothing when `k > 0`.
     pub meat_power: Option<i32>,
+    /// A power of two near the largest residual, dividing them before the
+    /// middle matrix is formed (so that it does not underflow).
+    pub residual_scale: f64,
     /// Keep the per-row leverages and residuals.
     pub keep_rows: bool,
     /// Threshold below which `1 - h_i` counts as zero.
@@ -166,12 +169,13 @@ pub(crate) fn row_pass(
                 }
                 if let Some(power) = spec.meat_power {
                     let gap = 1.0 - h;
+                    let e = res[l] / spec.residual_scale;
                     let c = if power == 0 {
-                        res[l]
+                        e
                     } else if gap <= spec.leverage_one {
                         0.0
                     } else {
-                        res[l] / gap.powi(power).sqrt()
+                        e / gap.powi(power).sqrt()
                     };
                     for j in 0..q {
                         block[(l, j)] *= c;

@@ -50,6 +50,15 @@ pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
     unsafe { MatRef::from_raw_parts(x.as_ptr(), n, p, strides[0], strides[1]) }
 }
 
+/// Views an owned ndarray matrix as a mutable faer matrix without copying.
+pub(crate) fn as_faer_mut(x: &mut ndarray::Array2<f64>) -> faer::MatMut<'_, f64> {
+    let (n, p) = x.dim();
+    let (rs, cs) = (x.strides()[0], x.strides()[1]);
+    // SAFETY: the array owns `n x p` elements at `ptr + i*rs + j*cs`, and
+    // the mutable borrow of `x` makes the view exclusive for its lifetime.
+    unsafe { faer::MatMut::from_raw_parts_mut(x.as_mut_ptr(), n, p, rs, cs) }
+}
+
 /// Bytes of one block of rows: every pass that fills or forms a block of
 /// `k` numbers per row (the Gram, QR, leverage and leave-one-out passes,
 /// the gradient passes' partition, the column blocks of the wide-design
@@ -58,15 +67,19 @@ pub(crate) fn as_faer<'a>(x: &ArrayView2<'a, f64>) -> MatRef<'a, f64> {
 /// width of the design faster than its own `k x k` results.
 pub(crate) const BLOCK_BYTES: usize = 1 << 19;
 
-/// Fewest rows in a block (a block of a very wide design may exceed
-/// [`BLOCK_BYTES`]: it holds at least this many rows).
-const MIN_BLOCK_ROWS: usize = 16;
+/// Fewest rows in a block: a block of a wide design (more than 256
+/// columns) exceeds [`BLOCK_BYTES`] and holds this many rows, so that the
+/// QR and Gram passes, which sweep a `k x k` triangle or matrix once per
+/// block, amortise that sweep over enough rows. (Those passes run only on
+/// designs with at least as many rows as columns, so a block stays below
+/// the `k x k` results it is folded into.)
+const MIN_BLOCK_ROWS: usize = 256;
 
 /// Most rows in a block (narrow designs).
 const MAX_BLOCK_ROWS: usize = 4096;
 
 /// Rows per block of `k` numbers per row: [`BLOCK_BYTES`] of block, within
-/// `[16, 4096]` rows.
+/// `[256, 4096]` rows.
 pub(crate) fn block_rows(k: usize) -> usize {
     (BLOCK_BYTES / (8 * k.max(1))).clamp(MIN_BLOCK_ROWS, MAX_BLOCK_ROWS)
 }

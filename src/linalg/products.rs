@@ -2,25 +2,48 @@
 //! quadratic forms and symmetric positive definite solves.
 
 use faer::linalg::matmul::matmul;
-use faer::{Accum, Mat, MatRef, Par};
+use faer::reborrow::ReborrowMut;
+use faer::{Accum, Mat, MatMut, MatRef, Par};
 
 use super::cholesky::{factor, Factor};
 use super::triangular::solve_lower;
 
-/// `V M V^T` for a square symmetric `M`, made exactly symmetric.
-pub(crate) fn congruence(v: MatRef<'_, f64>, m: MatRef<'_, f64>) -> Mat<f64> {
+/// Rows per tile of [`congruence_into`].
+const CONGRUENCE_TILE: usize = 64;
+
+/// `out = scale * V M V^T` (`M = I` when `None`), made exactly symmetric,
+/// by tiles of rows of `V`: extra memory one tile (`64 x k`), never a `k x k`
+/// intermediate.
+pub(crate) fn congruence_into(
+    mut out: MatMut<'_, f64>,
+    v: MatRef<'_, f64>,
+    m: Option<MatRef<'_, f64>>,
+    scale: f64,
+) {
     let (rows, inner) = (v.nrows(), v.ncols());
-    let mut vm = Mat::<f64>::zeros(rows, inner);
-    matmul(vm.as_mut(), Accum::Replace, v, m, 1.0, Par::Seq);
-    let mut out = Mat::<f64>::zeros(rows, rows);
-    matmul(
-        out.as_mut(),
-        Accum::Replace,
-        vm.as_ref(),
-        v.transpose(),
-        1.0,
-        Par::Seq,
-    );
+    let mut tile = Mat::<f64>::zeros(CONGRUENCE_TILE.min(rows.max(1)), inner);
+    let mut r0 = 0;
+    while r0 < rows {
+        let h = CONGRUENCE_TILE.min(rows - r0);
+        let vt = v.subrows(r0, h);
+        let lhs = match m {
+            Some(m) => {
+                let mut t = tile.as_mut().subrows_mut(0, h);
+                matmul(t.rb_mut(), Accum::Replace, vt, m, 1.0, Par::Seq);
+                tile.as_ref().subrows(0, h)
+            }
+            None => vt,
+        };
+        matmul(
+            out.rb_mut().subrows_mut(r0, h),
+            Accum::Replace,
+            lhs,
+            v.transpose(),
+            scale,
+            Par::Seq,
+        );
+        r0 += h;
+    }
     for j in 0..rows {
         for i in (j + 1)..rows {
             let s = 0.5 * (out[(i, j)] + out[(j, i)]);
@@ -28,7 +51,6 @@ pub(crate) fn congruence(v: MatRef<'_, f64>, m: MatRef<'_, f64>) -> Mat<f64> {
             out[(j, i)] = s;
         }
     }
-    out
 }
 
 /// `g^T M g` for a square symmetric `M`.

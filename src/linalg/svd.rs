@@ -47,3 +47,36 @@ pub(crate) fn thin_svd(a: MatRef<'_, f64>) -> Result<Svd> {
     let s = (0..r).map(|i| s[i]).collect();
     Ok(Svd { u, s, v })
 }
+
+/// The singular values of `a`, non-increasing (no vectors: about a third
+/// of the memory of [`thin_svd`]).
+///
+/// # Errors
+/// [`Error::NoConvergence`] if the iteration fails.
+pub(crate) fn singular_values(a: MatRef<'_, f64>) -> Result<Vec<f64>> {
+    let (m, n) = (a.nrows(), a.ncols());
+    let r = m.min(n);
+    let mut s = faer::diag::Diag::<f64>::zeros(r);
+    let req = svd_scratch::<f64>(
+        m,
+        n,
+        ComputeSvdVectors::No,
+        ComputeSvdVectors::No,
+        Par::Seq,
+        Default::default(),
+    );
+    let mut mem = MemBuffer::new(req);
+    svd(
+        a,
+        s.as_mut(),
+        None,
+        None,
+        Par::Seq,
+        MemStack::new(&mut mem),
+        Default::default(),
+    )
+    .map_err(|_| Error::NoConvergence {
+        what: "singular value decomposition",
+    })?;
+    Ok((0..r).map(|i| s[i]).collect())
+}

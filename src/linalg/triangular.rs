@@ -26,10 +26,16 @@ pub(crate) fn solve_lower(l: MatRef<'_, f64>, b: &mut [f64]) {
     }
 }
 
-fn norm1(a: MatRef<'_, f64>) -> f64 {
+/// The 1-norm (largest column sum of magnitudes).
+pub(crate) fn norm1(a: MatRef<'_, f64>) -> f64 {
     (0..a.ncols())
         .map(|j| (0..a.nrows()).map(|i| a[(i, j)].abs()).sum::<f64>())
         .fold(0.0, f64::max)
+}
+
+/// Writes the inverse of the upper-triangular `r` into `dst` (same size).
+pub(crate) fn inverse_upper_into(dst: faer::MatMut<'_, f64>, r: MatRef<'_, f64>) {
+    invert_upper_triangular(dst, r, Par::Seq);
 }
 
 /// Inverse of an upper-triangular matrix.

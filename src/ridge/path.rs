@@ -1,5 +1,6 @@
 //! One decomposition of the design, any number of penalties.
 
+use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::Mat;
 
 use crate::error::{Error, Result};
@@ -427,25 +428,30 @@ fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> T
 /// `t^T t - |r|^2`, which would cancel).
 fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Option<Triangle> {
     let p = problem.cols();
-    let g = centered_gram(problem, scaling, true);
+    let mut g = centered_gram(problem, scaling, true);
     let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let f = &map.factors;
     let live: Vec<usize> = (0..p).filter(|&j| map.is_live(j)).collect();
     let q = live.len();
-    let gl = Mat::<f64>::from_fn(q, q, |a, b| {
-        (f[live[a]] * g[(live[a], live[b])]) * f[live[b]]
-    });
-    let l = match chol::factor(gl.as_ref()) {
-        chol::Factor::Ok(l) => l,
-        chol::Factor::Failed { .. } => return None,
-    };
-    let condition = triangular::condition_lower(l.as_ref());
+    let mut rl: Vec<f64> = live.iter().map(|&j| f[j] * g[(j, p)]).collect();
+    // The Gram matrix of the live columns in uniform-penalty coordinates,
+    // compacted and factored in place (no copy of the p x p matrix).
+    for b in 0..q {
+        for a in b..q {
+            g[(a, b)] = (f[live[a]] * g[(live[a], live[b])]) * f[live[b]];
+        }
+    }
+    let mut l = g.as_mut().submatrix_mut(0, 0, q, q);
+    if chol::factor_in_place(l.rb_mut()).is_err() {
+        return None;
+    }
+    let l = l.into_const();
+    let condition = triangular::condition_lower(l);
     if super::digits(condition * condition) < super::AUTO_MIN_DIGITS {
         return None;
     }
-    let mut rl: Vec<f64> = live.iter().map(|&j| f[j] * g[(j, p)]).collect();
-    triangular::solve_lower(l.as_ref(), &mut rl);
+    triangular::solve_lower(l, &mut rl);
     let mut rh = Mat::<f64>::zeros(p, p);
     for a in 0..q {
         for b in a..q {
@@ -453,7 +459,8 @@ fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) ->
         }
     }
     let mut gamma_live = rl.clone();
-    triangular::solve_upper(l.as_ref().transpose(), &mut gamma_live);
+    triangular::solve_upper(l.transpose(), &mut gamma_live);
+    drop(g);
     let mut gamma = vec![0.0; p];
     for (a, &j) in live.iter().enumerate() {
         gamma[j] = gamma_live[a];
