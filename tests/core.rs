@@ -36,7 +36,7 @@ fn solvers_are_plain_settings_values() {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(48))]
+    #![proptest_config(ProptestConfig::with_cases(common::cases(48)))]
 
     /// Identity: data generated exactly from known coefficients are recovered
     /// to near machine precision, with and without intercept and weights.

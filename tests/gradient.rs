@@ -224,13 +224,12 @@ fn sgd(seed: u64, penalty: f64) -> Stochastic {
     }
 }
 
-/// Fixed-seed proptest settings: the same cases on every run.
+/// Proptest settings: the seed from `PROPTEST_RNG_SEED` (CI fixes it), 32
+/// cases unless `PROPTEST_CASES` asks for more.
 fn config() -> ProptestConfig {
     ProptestConfig {
-        cases: 32,
-        rng_seed: proptest::test_runner::RngSeed::Fixed(0x6772_6164),
         failure_persistence: None,
-        ..ProptestConfig::default()
+        ..ProptestConfig::with_cases(common::cases(32))
     }
 }
 

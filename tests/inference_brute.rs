@@ -4,6 +4,8 @@
 //! refits that leave a row out.
 #![allow(clippy::needless_range_loop)]
 
+mod common;
+
 use leastline::inference::{CovarianceKind, Inference, InferenceOptions};
 use leastline::{Problem, Qr, Solver};
 use nalgebra::{DMatrix, DVector};
@@ -153,7 +155,7 @@ fn problem_of<'a>(
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(48))]
+    #![proptest_config(ProptestConfig::with_cases(common::cases(48)))]
 
     /// Classical and HC0-HC3 covariances equal their defining formulas
     /// evaluated by brute force; the leverages equal the diagonal of the

@@ -4,6 +4,8 @@
 //! model's methods return `Ok` or a typed `Err`, and an `Ok` fit never holds
 //! a non-finite coefficient.
 
+mod common;
+
 use leastline::ridge::Criterion;
 use leastline::{
     Accelerated, Cholesky, GradientDescent, KFold, Problem, Qr, Ridge, RidgeMethod, RidgePath,
@@ -53,7 +55,7 @@ fn solvers() -> Vec<Box<dyn Solver>> {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(64))]
+    #![proptest_config(ProptestConfig::with_cases(common::cases(64)))]
 
     #[test]
     fn awkward_inputs_give_results_or_typed_errors(

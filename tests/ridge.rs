@@ -78,7 +78,7 @@ fn assert_normal_equations(case: &Case, lambda: f64, standardize: bool, b0: f64,
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(32))]
+    #![proptest_config(ProptestConfig::with_cases(common::cases(32)))]
 
     /// Identity: the solution satisfies the penalised normal equations, for
     /// every method, tall and wide shapes, weights (some zero), with and

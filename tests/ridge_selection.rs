@@ -9,6 +9,7 @@
 
 #![allow(clippy::needless_range_loop)] // index-heavy reference formulas
 
+mod common;
 mod ridge_support;
 
 use leastline::ridge::{Criterion, KFold, Ridge, RidgeMethod, RidgePath};
@@ -84,7 +85,7 @@ fn hat_matrix(case: &Case, lambda: f64, standardize: bool) -> DMatrix<f64> {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(24))]
+    #![proptest_config(ProptestConfig::with_cases(common::cases(24)))]
 
     /// The closed-form leave-one-out errors equal refits that leave each
     /// row out, on tall and wide designs (the two decompositions), with

@@ -66,6 +66,21 @@ fn pow2(e: i32) -> BigRational {
 ///
 /// Panics if the design (with the column of ones) is exactly singular.
 pub fn least_squares(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>, intercept: bool) -> Vec<f64> {
+    solve(x, y, intercept).0
+}
+
+/// The exact residual sum of squares `|y - b0 - X b|^2` at the exact
+/// least-squares solution of the `f64` data as given, rounded once.
+pub fn residual_sum_of_squares(
+    x: ArrayView2<'_, f64>,
+    y: ArrayView1<'_, f64>,
+    intercept: bool,
+) -> f64 {
+    solve(x, y, intercept).1
+}
+
+/// The solution (rounded) and the residual sum of squares (rounded).
+fn solve(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>, intercept: bool) -> (Vec<f64>, f64) {
     let (n, p) = x.dim();
     let mut cols: Vec<(Vec<BigInt>, i32)> = Vec::new();
     if intercept {
@@ -108,12 +123,27 @@ pub fn least_squares(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>, intercept: 
             }
         }
     }
-    (0..k)
+    let theta: Vec<f64> = (0..k)
         .map(|c| {
             let theta = &m[c][k] / &m[c][c] * pow2(ye - cols[c].1);
             theta
                 .to_f64()
                 .unwrap_or_else(|| panic!("exact solution entry {c} not representable"))
         })
-        .collect()
+        .collect();
+    // Residuals in the integer units of y: r = yi - sum_c t_c cols_c, with
+    // t_c = m[c][k] / m[c][c] (exact), then RSS = sum r^2 2^(2 ye).
+    let t: Vec<BigRational> = (0..k).map(|c| &m[c][k] / &m[c][c]).collect();
+    let mut rss = BigRational::zero();
+    for i in 0..n {
+        let mut r = BigRational::from_integer(yi[i].clone());
+        for (c, tc) in t.iter().enumerate() {
+            r -= tc * BigRational::from_integer(cols[c].0[i].clone());
+        }
+        rss += &r * &r;
+    }
+    let rss = (rss * pow2(2 * ye))
+        .to_f64()
+        .unwrap_or_else(|| panic!("exact residual sum of squares not representable"));
+    (theta, rss)
 }

@@ -2,3 +2,14 @@
 pub mod exact;
 pub mod gen;
 pub mod nist;
+
+/// Property-test case count: `PROPTEST_CASES` when set (a long soak runs
+/// with, say, `PROPTEST_CASES=20000`), else `default`, the count the
+/// default CI run affords.
+#[allow(dead_code)]
+pub fn cases(default: u32) -> u32 {
+    std::env::var("PROPTEST_CASES")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(default)
+}
