@@ -86,7 +86,7 @@ fn ratios() {
         });
         println!(
             "  {label:<17} condition {:>8.1e}  steps {steps}  plain {:>8.2} ms  refined {:>8.2} ms  ratio {:.2}",
-            refined.report.condition,
+            refined.report.condition.unwrap_or(f64::NAN),
             plain * 1e3,
             slow * 1e3,
             slow / plain

@@ -506,8 +506,8 @@ fn fast_chunk_by_columns(
 /// smallest one whose products with the weights lose no digits that
 /// matter beside the sum. Columns outside `[SAFE_MIN, SAFE_MAX]` have their
 /// sums formed again from values divided by a power of two.
-const SAFE_MAX: f64 = 9.7453140113999032e288; // 2^960
-const SAFE_MIN: f64 = 1.0261342003245941e-289; // 2^-960
+const SAFE_MAX: f64 = 9.745_314_011_4e288; // 2^960 exactly (shortest form)
+const SAFE_MIN: f64 = 1.026_134_200_324_594_1e-289; // 2^-960 exactly
 
 fn compute_stats(
     x: &ArrayView2<'_, f64>,
@@ -640,16 +640,16 @@ fn compute_stats(
     }
     let spread = |lo: f64, hi: f64, m: f64| (hi - m).abs().max((m - lo).abs());
     let mut centered_max = Vec::with_capacity(p);
-    for j in 0..p {
+    for (j, &m) in means.iter().enumerate() {
         // Every row's centered value must be representable (zero weights
         // included: their residuals and fills are formed too).
-        if !spread(total.all_min[j], total.all_max[j], means[j]).is_finite() {
+        if !spread(total.all_min[j], total.all_max[j], m).is_finite() {
             return Err(Error::SpreadOverflow {
                 input: Input::Design,
                 column: Some(j),
             });
         }
-        centered_max.push(spread(total.min[j], total.max[j], means[j]));
+        centered_max.push(spread(total.min[j], total.max[j], m));
     }
     if !spread(total.y_all_min, total.y_all_max, target_mean).is_finite() {
         return Err(Error::SpreadOverflow {
@@ -673,8 +673,8 @@ fn compute_stats(
     ] {
         hash.word(v.to_bits());
     }
-    for j in 0..p {
-        for v in [means[j], total.min[j], total.max[j], total.mix[j]] {
+    for (j, &m) in means.iter().enumerate() {
+        for v in [m, total.min[j], total.max[j], total.mix[j]] {
             hash.word(v.to_bits());
         }
     }

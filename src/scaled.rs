@@ -211,6 +211,12 @@ mod tests {
     }
 
     #[test]
+    fn safe_limits_of_the_stats_pass_are_powers_of_two() {
+        assert_eq!(9.745_314_011_4e288, pow2(960));
+        assert_eq!(1.026_134_200_324_594_1e-289, pow2(-960));
+    }
+
+    #[test]
     fn ldexp_rounds_once() {
         assert_eq!(ldexp(1.5, 1023), 1.5 * pow2(1023));
         assert_eq!(ldexp(1.5, 1024), f64::INFINITY);

@@ -3,7 +3,7 @@
 //! the way in. With the `serde` feature, every result round-trips through
 //! JSON exactly, the documented infinities included.
 
-use leastline::ridge::{Criterion, Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Ridge, RidgeMethod, RidgePath};
 use leastline::{Error, Problem, Solver};
 use ndarray::{Array1, Array2};
 
@@ -84,6 +84,7 @@ fn huge_default_grids_are_typed_errors() {
 mod serde_checks {
     use super::*;
     use leastline::inference::{CovarianceKind, Inference, InferenceOptions};
+    use leastline::ridge::Criterion;
     use leastline::{Accelerated, Fit, KFold, LinearModel, Qr};
     use serde_json::Value;
 

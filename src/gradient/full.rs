@@ -23,10 +23,12 @@ use crate::solver::{Fit, Solver};
 /// `sqrt(kappa)`), or a closed-form solver when `p` is small.
 ///
 /// Settings, losses and the relative-gradient tolerance are described in
-/// the [module docs](crate::gradient). The report's `condition` is not
-/// estimated by gradient solvers and is 0; `rank` counts the columns that
-/// are not constant (collinearity is not tested: without a penalty, a
-/// collinear design converges slowly to one of its many solutions).
+/// the [module docs](crate::gradient). Gradient solvers factor nothing, so
+/// the report's `rank`, `condition` and `residual_df` are `None`
+/// (collinearity is not tested: without a penalty, a collinear design
+/// converges slowly to one of its many solutions; inference measures the
+/// rank itself and refuses it). Unpenalised, a problem with fewer usable
+/// rows than parameters is refused with [`crate::Error::TooFewRows`].
 ///
 /// ```
 /// use leastline::{GradientDescent, Problem, Solver};
@@ -120,7 +122,10 @@ impl GradientDescent {
     /// for a bad starting model; [`crate::Error::Diverged`] (iteration, step
     /// and loss) when the loss becomes non-finite or grows past `10^4` times
     /// its reference; [`crate::Error::NotConverged`] at the iteration limit
-    /// when `fail_if_not_converged`; [`crate::Error::Overflow`].
+    /// when `fail_if_not_converged`; [`crate::Error::TooFewRows`] without a
+    /// penalty and with fewer usable rows than parameters;
+    /// [`crate::Error::Overflow`] for a coefficient, the residual sum of
+    /// squares or a loss beyond the range of `f64`.
     pub fn fit_observed(
         &self,
         problem: &Problem<'_>,

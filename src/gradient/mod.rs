@@ -113,7 +113,10 @@ use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
 ///
 /// Iteration 0 is the starting point; iteration `k` is the point after `k`
 /// updates. The loss is in the caller's units (see the module docs) and the
-/// gradient norm is relative, as in the stopping test.
+/// gradient norm is relative, as in the stopping test. The loss is `+inf`
+/// when its value in the caller's units exceeds the range of `f64` (targets
+/// near `1e300`); such a fit then ends with [`Error::Overflow`], since its
+/// report could not hold the loss.
 #[derive(Debug, Clone, Copy, PartialEq)]
 #[non_exhaustive]
 pub struct Progress {

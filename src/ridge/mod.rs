@@ -149,9 +149,9 @@ pub enum RidgeMethod {
 /// (`"ridge-cholesky"`, `"ridge-qr"`, `"ridge-svd"`, `"ridge-dual"`);
 /// `condition` is that of the penalised system (of `[Z; sqrt(lambda) I]`
 /// for the primal methods, square root of that of `Z Z^T + lambda I` for
-/// `Dual`); `rank` is the numerical rank of the design for `Svd`, and for
-/// the other methods the bound `min(informative columns, usable rows -
-/// intercept)` (the penalised system itself always has full rank).
+/// `Dual`); `rank` is the numerical rank of the design for `Svd`, and
+/// `None` for the other methods, which do not measure it (the penalised
+/// system itself always has full rank).
 ///
 /// ```
 /// use leastline::ridge::{Ridge, RidgeMethod};

@@ -135,8 +135,8 @@ fn solve(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>, intercept: bool) -> (Ve
     // t_c = m[c][k] / m[c][c] (exact), then RSS = sum r^2 2^(2 ye).
     let t: Vec<BigRational> = (0..k).map(|c| &m[c][k] / &m[c][c]).collect();
     let mut rss = BigRational::zero();
-    for i in 0..n {
-        let mut r = BigRational::from_integer(yi[i].clone());
+    for (i, y) in yi.iter().enumerate().take(n) {
+        let mut r = BigRational::from_integer(y.clone());
         for (c, tc) in t.iter().enumerate() {
             r -= tc * BigRational::from_integer(cols[c].0[i].clone());
         }
