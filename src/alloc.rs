@@ -34,12 +34,7 @@ pub(crate) fn checked_len<T>(what: &'static str, counts: &[usize]) -> Result<usi
 /// # Errors
 /// [`Error::TooLarge`] naming `what` and the bytes.
 pub(crate) fn vec<T: Clone>(what: &'static str, len: usize, value: T) -> Result<Vec<T>> {
-    let len = checked_len::<T>(what, &[len])?;
-    let mut v = Vec::new();
-    v.try_reserve_exact(len).map_err(|_| Error::TooLarge {
-        what,
-        bytes: bytes_of::<T>(&[len]),
-    })?;
+    let mut v = with_capacity(what, len)?;
     v.resize(len, value);
     Ok(v)
 }

@@ -70,8 +70,8 @@
 //! time (512 KiB, or 256 rows of a design with more than 256 columns) per
 //! worker thread. Passes that accumulate a `k x k` matrix per group of rows
 //! (the Gram and QR passes, sandwich covariances) use at most one group per
-//! `8 k` rows, and fold the groups in a fixed tree, so that about `threads
-//! * (1 + log2 groups)` accumulators are alive at once. Every array sized
+//! `8 k` rows, and fold the groups in a fixed tree, so that about
+//! `threads x (1 + log2 groups)` accumulators are alive at once. Every array sized
 //! by the input is checked and reserved fallibly first: a size that cannot
 //! be allocated is [`Error::TooLarge`], naming the bytes. Measured on
 //! 6,000 x 2,000 (`tests/memory.rs`): inference 125 MiB, diagnostics

@@ -17,6 +17,8 @@
 
 mod common;
 
+use common::p2;
+
 use leastline::inference::{CovarianceKind, Inference, InferenceOptions};
 use leastline::ridge::{Criterion, KFold, Ridge, RidgeMethod, RidgePath};
 use leastline::{
@@ -24,15 +26,6 @@ use leastline::{
 };
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
-
-/// `2^e` (exact, subnormal included).
-fn p2(e: i32) -> f64 {
-    if e >= -1022 {
-        2f64.powi(e)
-    } else {
-        2f64.powi(-1022) * 2f64.powi(e + 1022)
-    }
-}
 
 /// One value from a random bit pattern of a chosen kind.
 fn value() -> impl Strategy<Value = f64> {

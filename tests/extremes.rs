@@ -10,20 +10,14 @@
 //! p-value and R² unchanged. The base data have mantissas of at most 9
 //! bits, so that they stay exact even as subnormal numbers near `2^-1060`.
 
+mod common;
+
+use common::p2;
 use leastline::ridge::{KFold, Ridge, RidgeMethod};
 use leastline::{
     Accelerated, Cholesky, Error, GradientDescent, Input, Problem, Qr, Solver, Stochastic, Svd,
 };
 use ndarray::{array, Array1, Array2};
-
-/// `2^e` (exact, subnormal included).
-fn p2(e: i32) -> f64 {
-    if e >= -1022 {
-        2f64.powi(e)
-    } else {
-        2f64.powi(-1022) * 2f64.powi(e + 1022)
-    }
-}
 
 /// 24 rows, 2 columns with values in `[0, 8)`, a noisy target in `[-16,
 /// 16)`: every value a multiple of 1/8 (so exactly scalable).

@@ -5,6 +5,8 @@
 
 mod common;
 
+use common::p2;
+
 use common::exact;
 use leastline::ridge::{Ridge, RidgeMethod};
 use leastline::{
@@ -12,14 +14,6 @@ use leastline::{
 };
 use ndarray::{array, Array1, Array2};
 use rand::RngExt;
-
-fn p2(e: i32) -> f64 {
-    if e >= -1022 {
-        2f64.powi(e)
-    } else {
-        2f64.powi(-1022) * 2f64.powi(e + 1022)
-    }
-}
 
 /// A small noisy problem whose values are multiples of 1/8.
 fn base() -> (Array2<f64>, Array1<f64>) {

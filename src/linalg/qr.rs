@@ -579,6 +579,25 @@ mod tests {
     use rand::{RngExt, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 
+    /// The triangle of the row-major `n x k` matrix `z`, folded by blocks of
+    /// `block` rows stored row by row.
+    fn fold_row_blocks(z: &[f64], n: usize, k: usize, block: usize) -> Mat<f64> {
+        let ld = row_stride(k);
+        let mut r = Mat::<f64>::zeros(k, k);
+        let mut work = StackedQrWork::new(k);
+        let mut r0 = 0;
+        while r0 < n {
+            let len = block.min(n - r0);
+            let mut buf = vec![0.0; len * ld];
+            for i in 0..len {
+                buf[i * ld..i * ld + k].copy_from_slice(&z[(r0 + i) * k..(r0 + i + 1) * k]);
+            }
+            stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
+            r0 += len;
+        }
+        r
+    }
+
     /// Wide blocks (few rows, many columns) fold correctly too.
     #[test]
     fn wide_blocks_fold_correctly() {
@@ -590,19 +609,7 @@ mod tests {
             (1300, 1200, 256),
         ] {
             let z: Vec<f64> = (0..n * k).map(|_| rng.random_range(-1.0..1.0)).collect();
-            let ld = row_stride(k);
-            let mut r = Mat::<f64>::zeros(k, k);
-            let mut work = StackedQrWork::new(k);
-            let mut r0 = 0;
-            while r0 < n {
-                let len = block.min(n - r0);
-                let mut buf = vec![0.0; len * ld];
-                for i in 0..len {
-                    buf[i * ld..i * ld + k].copy_from_slice(&z[(r0 + i) * k..(r0 + i + 1) * k]);
-                }
-                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
-                r0 += len;
-            }
+            let r = fold_row_blocks(&z, n, k, block);
             let bad = (0..k)
                 .flat_map(|i| (0..k).map(move |j| (i, j)))
                 .find(|&(i, j)| !r[(i, j)].is_finite());
@@ -636,20 +643,9 @@ mod tests {
             (40, 9, 3),
         ] {
             let z: Vec<f64> = (0..n * k).map(|_| rng.random_range(-1.0..1.0)).collect();
-            let ld = row_stride(k);
-            let mut r = Mat::<f64>::zeros(k, k);
-            let mut work = StackedQrWork::new(k);
-            let mut r0 = 0;
-            while r0 < n {
-                let len = block.min(n - r0);
-                let mut buf = vec![0.0; len * ld];
-                for i in 0..len {
-                    buf[i * ld..i * ld + k].copy_from_slice(&z[(r0 + i) * k..(r0 + i + 1) * k]);
-                }
-                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
-                r0 += len;
-            }
+            let r = fold_row_blocks(&z, n, k, block);
             // The same stack stored column by column gives the same factor.
+            let mut work = StackedQrWork::new(k);
             let mut rc = Mat::<f64>::zeros(k, k);
             let mut r0 = 0;
             while r0 < n {

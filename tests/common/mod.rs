@@ -13,3 +13,13 @@ pub fn cases(default: u32) -> u32 {
         .and_then(|v| v.parse().ok())
         .unwrap_or(default)
 }
+
+/// `2^e`, exact for every exponent of a finite `f64` (subnormal included).
+#[allow(dead_code)]
+pub fn p2(e: i32) -> f64 {
+    if e >= -1022 {
+        2f64.powi(e)
+    } else {
+        2f64.powi(-1022) * 2f64.powi(e + 1022)
+    }
+}
