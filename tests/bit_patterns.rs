@@ -65,7 +65,7 @@ struct Case {
 }
 
 fn case() -> impl Strategy<Value = Case> {
-    (1usize..8, 0usize..4)
+    (1usize..12, 0usize..5)
         .prop_flat_map(|(n, p)| {
             (
                 proptest::collection::vec(value(), n * p),
