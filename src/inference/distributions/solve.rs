@@ -70,6 +70,8 @@ where
     let mut best = (f64::INFINITY, x);
     let mut widen = 1.0f64;
     let noise = LN_PROBABILITY_NOISE * (ln_target.abs() / 100.0).max(1.0);
+    // |psi| before the last Newton step, to see whether that step helped.
+    let mut before_newton: Option<f64> = None;
     let mut finished = None;
     for _ in 0..MAX_EVALUATIONS {
         let (psi, slope) = psi_at(x)?;
@@ -96,9 +98,6 @@ where
         } else {
             f64::NAN
         };
-        // The last Newton step: within what the noise in ln g allows (its
-        // quadratic error is then far below rounding) or below rounding.
-        let last_step = (4.0 * f64::EPSILON).max(noise / slope.abs());
         let newton = if du.is_finite() {
             x * du.clamp(-64.0, 64.0).exp()
         } else {
@@ -110,32 +109,41 @@ where
             (None, Some(h)) => newton < h && newton > 0.0,
             (None, None) => newton.is_finite() && newton > 0.0,
         };
-        if inside && du.abs() <= last_step {
-            finished = Some(newton);
+        // The last Newton step: within what the noise in ln g allows (its
+        // quadratic error is then far below rounding) or below rounding.
+        let last_step = (4.0 * f64::EPSILON).max(noise / slope.abs());
+        if du.abs() <= last_step {
+            finished = Some(if inside { newton } else { x });
             break;
         }
+        // A Newton step that did not halve |psi| is not trusted again (the
+        // slope, a ratio of two probabilities, is inaccurate far out where
+        // both are astronomically small): bisect or widen instead.
+        let progressing = before_newton.is_none_or(|b| psi.abs() <= 0.5 * b);
+        let use_newton = inside && progressing;
         let next = match (lo, hi) {
             (Some(l), Some(h)) => {
                 if h / l - 1.0 <= 4.0 * f64::EPSILON {
                     finished = Some(best.1);
                     break;
                 }
-                if inside {
+                if use_newton {
                     newton
                 } else {
                     geometric_mid(l, h)
                 }
             }
-            (Some(l), None) if !inside => {
+            (Some(l), None) if !use_newton => {
                 widen *= 2.0;
                 l * widen.min(700.0).exp()
             }
-            (None, Some(h)) if !inside => {
+            (None, Some(h)) if !use_newton => {
                 widen *= 2.0;
                 h * (-widen.min(700.0)).exp()
             }
             _ => newton,
         };
+        before_newton = use_newton.then_some(psi.abs());
         x = next.clamp(X_MIN, X_MAX);
     }
     let Some(candidate) = finished else {
@@ -180,7 +188,13 @@ where
     Ok(best_x)
 }
 
-/// `sqrt(l h)` without overflow or underflow.
+/// `sqrt(l h)` without overflow or underflow; the arithmetic midpoint
+/// once `h < 2 l`, where the two agree to first order and the logarithms
+/// would no longer resolve a narrow bracket.
 fn geometric_mid(l: f64, h: f64) -> f64 {
-    (0.5 * (l.ln() + h.ln())).exp()
+    if h < 2.0 * l {
+        l + 0.5 * (h - l)
+    } else {
+        (0.5 * (l.ln() + h.ln())).exp()
+    }
 }
