@@ -53,7 +53,10 @@
 //! parameters from `1e-3` to `1e12` (and `1e300`): the error of `ln I` and
 //! `ln(1 - I)` is below `4e-14 * max(1, |ln p| / 100)`.
 
-use super::special::{ln_gamma_step, ln_one_minus_exp, ln_sqrt_2pi, log1p_gap, stirling_delta};
+use super::special::{
+    ln_gamma_step, ln_gamma_step_over_power, ln_one_minus_exp, ln_sqrt_2pi, log1p_gap,
+    stirling_delta,
+};
 use crate::error::{Error, Result};
 use std::sync::OnceLock;
 
@@ -344,8 +347,15 @@ fn log_series(a: f64, b: f64, pt: BetaPoint) -> Result<f64> {
         // O(a), a ln x + ln Gamma(a + b) - ln Gamma(b) - ln Gamma(1 + a),
         // every difference of log-gammas computed directly, so that ln I,
         // and with it 1 - I, keeps its relative accuracy.
-        let neg_ln_a_beta = ln_gamma_step(b, a) - ln_gamma_step(1.0, a);
-        return Ok(a * pt.ln_x + neg_ln_a_beta + tail);
+        // For b >= 10, a ln x + ln Gamma(a + b) - ln Gamma(b) is formed as
+        // a ln(b x) + [ln Gamma(b + a) - ln Gamma(b) - a ln b], with
+        // ln(b x) = ln(x / x0) + ln(a b / (a + b)): no large a ln b appears.
+        let head = if b >= 10.0 {
+            a * (pt.ln_x_rel + 2.0 * lambda_sd(a, b).1) + ln_gamma_step_over_power(b, a)
+        } else {
+            a * pt.ln_x + ln_gamma_step(b, a)
+        };
+        return Ok(head - ln_gamma_step(1.0, a) + tail);
     }
     Ok(ln_i)
 }
