@@ -962,6 +962,58 @@ fn issue_10_tiny_probabilities_do_not_panic() {
     }
 }
 
+/// Cases that broke earlier drafts of the solver: distributions so narrow
+/// that the distribution function is nearly a step between neighbouring
+/// doubles (the best double must be returned), an evaluation noisy at
+/// 1e-13 (a tiny df against a huge one), far tails where the log-slope is
+/// a ratio of two astronomically small probabilities, and statistics whose
+/// `x = df2 / (df2 + df1 f)` underflows.
+#[test]
+fn hard_cases_for_the_quantile_iteration() {
+    let cases: &[(f64, f64, f64)] = &[
+        (
+            0.498_884_487_460_012_24,
+            2.140_528_961_340_421_4e35,
+            2.176_260_267_525_699e292,
+        ),
+        (
+            0.498_884_487_460_012_24,
+            2.536_747_468_442_016_6e43,
+            1.052_156_479_846_900_5e82,
+        ),
+        (0.499_99, 1e20, 1e20),
+        (0.5 + 1e-9, 1e26, 1e26),
+        (0.001, 1e236, 0.003_162_277_660_168_379_4),
+        (1e-6, 1e6, 1e9),
+        (1e-300, 30.0, 1e300),
+        (0.001, 1e20, 0.003_162_277_660_168_379_4),
+    ];
+    for &(p, d1, d2) in cases {
+        let f = fisher_f_quantile(p, d1, d2).unwrap();
+        let err = f_round_trip_error(p, f, d1, d2);
+        assert!(err <= 1e-12, "F({d1}, {d2}) p {p}: f {f}, error {err:e}");
+        // The same point through the upper quantile: its lower tail is
+        // 1 - upper, exact in floating point.
+        let upper = 1.0 - p;
+        if upper < 1.0 {
+            let u = fisher_f_upper_quantile(upper, d1, d2).unwrap();
+            let err = f_round_trip_error(1.0 - upper, u, d1, d2);
+            assert!(
+                err <= 1e-12,
+                "F({d1}, {d2}) upper {upper}: f {u}, error {err:e}"
+            );
+        }
+    }
+    // Heavy upper tails (tiny df2): the upper quantile is beyond the
+    // largest double, a typed refusal, not a loop.
+    for d1 in [3.0, 1e3, 1e6] {
+        assert!(matches!(
+            fisher_f_quantile(1.0 - 1e-6, d1, 0.03),
+            Err(Error::Overflow { .. })
+        ));
+    }
+}
+
 #[test]
 fn invalid_arguments_are_typed_errors_naming_the_parameter() {
     let named = |r: Result<f64, Error>, want: &str| match r {
