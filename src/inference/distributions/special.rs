@@ -78,8 +78,9 @@ pub(super) fn ln_gamma_step(x: f64, h: f64) -> f64 {
         sum -= (h / x).ln_1p();
         x += 1.0;
     }
-    let l1 = (h / x).ln_1p();
-    sum + (x - 0.5) * l1 + h * (x + h).ln() - h + stirling_delta_step(x, h)
+    // With x >= 10: h ln x plus the small remainder, which stays right
+    // even where h / x underflows.
+    sum + h * x.ln() + ln_gamma_step_over_power(x, h)
 }
 
 /// `ln Gamma(x + h) - ln Gamma(x) - h ln x` for `x >= 10`, `h >= 0`: small
