@@ -1031,6 +1031,9 @@ fn invalid_arguments_are_typed_errors_naming_the_parameter() {
         named(fisher_f_quantile(0.9, df, 3.0), "df1");
         named(fisher_f_quantile(0.9, 3.0, df), "df2");
     }
+    // Subnormal degrees of freedom (half of them would vanish).
+    named(student_t_quantile(0.9, 1e-310), "df");
+    named(fisher_f_quantile(0.9, 3.0, 5e-324), "df2");
     // The F distribution takes finite degrees of freedom only.
     named(fisher_f_quantile(0.9, f64::INFINITY, 3.0), "df1");
     named(fisher_f_quantile(0.9, 3.0, f64::INFINITY), "df2");
@@ -1046,7 +1049,18 @@ fn invalid_arguments_are_typed_errors_naming_the_parameter() {
         normal_tails(f64::NAN),
         Err(Error::InvalidParameter { name: "z", .. })
     ));
-    // Edges that are not errors.
+    // Edges that are not errors: tiny df (every quantile away from the
+    // median is beyond the largest double), infinite arguments, F <= 0.
+    // With df = 1e-300 nearly all the mass is beyond any finite t: both
+    // tails at t = 3 are 1/2 to double precision (they differ by ~1e-297).
+    let tiny = student_t_tails(3.0, 1e-300).unwrap();
+    assert!((tiny.upper - 0.5).abs() < 1e-15 && (tiny.lower - 0.5).abs() < 1e-15);
+    assert!(matches!(
+        student_t_quantile(0.9, 1e-300),
+        Err(Error::Overflow { .. })
+    ));
+    let f = fisher_f_tails(2.0, 1e-300, 1e-300).unwrap();
+    assert!(f.lower > 0.0 && f.upper > 0.0 && (f.lower + f.upper - 1.0).abs() < 1e-15);
     let t = student_t_tails(f64::INFINITY, 3.0).unwrap();
     assert_eq!((t.lower, t.upper), (1.0, 0.0));
     let f = fisher_f_tails(-2.0, 3.0, 4.0).unwrap();

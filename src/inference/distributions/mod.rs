@@ -126,6 +126,15 @@ fn check_df(name: &'static str, df: f64, allow_infinite: bool) -> Result<()> {
             },
         });
     }
+    // Half of a subnormal df would lose its digits (or vanish).
+    if df < 2.0 * f64::MIN_POSITIVE {
+        return Err(Error::InvalidParameter {
+            name,
+            value: df,
+            reason:
+                "degrees of freedom must be at least 4.5e-308 (twice the smallest normal double)",
+        });
+    }
     Ok(())
 }
 
