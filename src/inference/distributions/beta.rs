@@ -59,8 +59,8 @@
 //! `ln(1 - I)` is below `4e-14 * max(1, |ln p| / 100)`.
 
 use super::special::{
-    ln_gamma_step, ln_gamma_step_over_power, ln_one_minus_exp, ln_sqrt_2pi, log1p_gap,
-    stirling_delta,
+    continued_fraction, ln_gamma_step, ln_gamma_step_over_power, ln_one_minus_exp, ln_sqrt_2pi,
+    log1p_gap, stirling_delta,
 };
 use crate::error::{Error, Result};
 use std::sync::OnceLock;
@@ -269,18 +269,11 @@ fn log_prefactor_over_sd(a: f64, b: f64, pt: BetaPoint) -> f64 {
 /// multiplying every level by `a / scale` gives terms with finite limits
 /// as `a` grows.
 fn fraction(a: f64, b: f64, pt: BetaPoint, scale: f64) -> Result<f64> {
-    const TINY: f64 = 1e-300;
     let BetaPoint { x, y, lambda, .. } = pt;
     let inv = 1.0 / scale;
     let inv2 = inv * inv;
-    let mut f = (1.0 + lambda) * (a / (a + 1.0)) * inv;
-    if f == 0.0 {
-        f = TINY;
-    }
-    let mut c = f;
-    let mut d = 0.0;
-    for k in 1..=MAX_FRACTION_TERMS {
-        let kf = k as f64;
+    let b0 = (1.0 + lambda) * (a / (a + 1.0)) * inv;
+    let term = |kf: f64| {
         let r0 = a / (a + 2.0 * kf);
         let r1 = a / (a + 2.0 * kf - 1.0);
         // a^2 * (-d_(2k-1) d_(2k)) / scale^2.
@@ -296,30 +289,21 @@ fn fraction(a: f64, b: f64, pt: BetaPoint, scale: f64) -> Result<f64> {
             + kf * (3.0 * kf + 2.0 + lambda + kf * y) * r0 / (a + 2.0 * kf + 1.0)
             + kf * (b - kf) * x * r0 / (a + 2.0 * kf - 1.0))
             * inv;
-        d = den + num * d;
-        if d == 0.0 {
-            d = TINY;
-        }
-        c = den + num / c;
-        if c == 0.0 {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        let delta = c * d;
-        f *= delta;
-        if (delta - 1.0).abs() <= f64::EPSILON {
-            return if f.is_finite() && f > 0.0 {
-                Ok(f)
-            } else {
-                Err(Error::NoConvergence {
-                    what: "incomplete beta continued fraction (non-finite value)",
-                })
-            };
-        }
+        (num, den)
+    };
+    let w = continued_fraction(
+        b0,
+        term,
+        MAX_FRACTION_TERMS,
+        "incomplete beta continued fraction (term limit)",
+    )?;
+    if w.is_finite() && w > 0.0 {
+        Ok(w)
+    } else {
+        Err(Error::NoConvergence {
+            what: "incomplete beta continued fraction (non-finite value)",
+        })
     }
-    Err(Error::NoConvergence {
-        what: "incomplete beta continued fraction (term limit)",
-    })
 }
 
 /// `ln I_x(a, b)` from the power series, for `x <= 1/2` and `b x <= 1`.

@@ -35,7 +35,7 @@ mod solve;
 mod special;
 
 use beta::{log_beta_tails, log_prefactor, BetaPoint};
-use solve::{solve, Root};
+use solve::solve;
 use special::{ln_beta, ln_one_minus_exp};
 
 use crate::error::{Error, Result};
@@ -295,13 +295,7 @@ fn symmetric_upper_root(q: f64, df: f64) -> Result<f64> {
             what,
         )?
     };
-    match root {
-        Root::At(x) => Ok(x),
-        Root::Below => Ok(0.0),
-        Root::Above => Err(Error::Overflow {
-            what: "Student t quantile (beyond the largest double)",
-        }),
-    }
+    root.value("Student t quantile (beyond the largest double)")
 }
 
 /// Quantile for t (or normal): `p` validated.
@@ -528,13 +522,7 @@ fn f_root(p: f64, lower: bool, df1: f64, df2: f64) -> Result<f64> {
         start,
         "F quantile iteration (evaluation limit)",
     )?;
-    match root {
-        Root::At(x) => Ok(x),
-        Root::Below => Ok(0.0),
-        Root::Above => Err(Error::Overflow {
-            what: "F quantile (beyond the largest double)",
-        }),
-    }
+    root.value("F quantile (beyond the largest double)")
 }
 
 /// The value `f` with `P(F <= f) = probability` for the F distribution with

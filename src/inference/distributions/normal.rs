@@ -15,8 +15,8 @@
 //!   limit of the incomplete-beta fraction in `beta.rs` as the degrees of
 //!   freedom grow. Measured: at most 110 terms at `z = 2`, fewer beyond.
 
-use super::special::ln_sqrt_2pi;
-use crate::error::{Error, Result};
+use super::special::{continued_fraction, ln_sqrt_2pi};
+use crate::error::Result;
 
 /// Below this, the central series; at and above, the continued fraction.
 const SERIES_BELOW: f64 = 2.0;
@@ -52,38 +52,19 @@ fn ln_central_series(z: f64) -> f64 {
 /// `ln V(z)` for `z >= 2`, the continued fraction above, by the modified
 /// Lentz method.
 fn ln_mills_denominator(z: f64) -> Result<f64> {
-    const TINY: f64 = 1e-300;
     const MAX_TERMS: usize = 1000;
     let z2 = z * z;
     if z2 > 1e32 {
         // V = z^2 + 1 - O(z^-2): to double precision, ln(z^2).
         return Ok(2.0 * z.ln());
     }
-    let mut f = z2 + 1.0;
-    let mut c = f;
-    let mut d = 0.0;
-    for k in 1..=MAX_TERMS {
-        let kf = k as f64;
-        let num = -2.0 * kf * (2.0 * kf - 1.0);
-        let den = z2 + 1.0 + 4.0 * kf;
-        d = den + num * d;
-        if d == 0.0 {
-            d = TINY;
-        }
-        c = den + num / c;
-        if c == 0.0 {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        let delta = c * d;
-        f *= delta;
-        if (delta - 1.0).abs() <= f64::EPSILON {
-            return Ok(f.ln());
-        }
-    }
-    Err(Error::NoConvergence {
-        what: "normal tail continued fraction (term limit)",
-    })
+    let v = continued_fraction(
+        z2 + 1.0,
+        |kf| (-2.0 * kf * (2.0 * kf - 1.0), z2 + 1.0 + 4.0 * kf),
+        MAX_TERMS,
+        "normal tail continued fraction (term limit)",
+    )?;
+    Ok(v.ln())
 }
 
 /// `(ln P(Z > z), ln P(0 < Z < z))` for `z >= 0` (`z` may be `+inf`).

@@ -36,6 +36,18 @@ pub(super) enum Root {
     Below,
 }
 
+impl Root {
+    /// The root as a quantile: below the smallest normal double it is
+    /// returned as 0; beyond the largest, `what` names the overflow.
+    pub(super) fn value(self, what: &'static str) -> Result<f64> {
+        match self {
+            Root::At(x) => Ok(x),
+            Root::Below => Ok(0.0),
+            Root::Above => Err(Error::Overflow { what }),
+        }
+    }
+}
+
 /// Solve `ln g(x) = ln_target` for `x > 0`, where `eval(x)` returns
 /// `(ln g(x), d ln g / d ln x)` and `g` is increasing (`increasing`) or
 /// decreasing in `x`.

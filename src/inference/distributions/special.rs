@@ -6,6 +6,8 @@
 //! Everything here is written for positive, finite arguments; the callers
 //! validate their inputs first.
 
+use crate::error::{Error, Result};
+
 /// `ln(sqrt(2 pi))`.
 pub(super) fn ln_sqrt_2pi() -> f64 {
     0.5 * std::f64::consts::TAU.ln()
@@ -153,6 +155,41 @@ pub(super) fn ln_beta(a: f64, b: f64) -> f64 {
         + stirling_delta(a)
         + stirling_delta(b)
         - stirling_delta(a + b)
+}
+
+/// The continued fraction `b0 + a1 / (b1 + a2 / (b2 + ...))`, with
+/// `term(k) = (a_k, b_k)`, by the modified Lentz method (W. J. Lentz,
+/// Applied Optics 15, 1976; I. J. Thompson and A. R. Barnett, J. Comput.
+/// Phys. 64, 1986): stops when a step changes the value by less than an
+/// ulp; `what` names the fraction when `max_terms` are not enough.
+pub(super) fn continued_fraction(
+    b0: f64,
+    mut term: impl FnMut(f64) -> (f64, f64),
+    max_terms: usize,
+    what: &'static str,
+) -> Result<f64> {
+    const TINY: f64 = 1e-300;
+    let mut f = if b0 == 0.0 { TINY } else { b0 };
+    let mut c = f;
+    let mut d = 0.0;
+    for k in 1..=max_terms {
+        let (num, den) = term(k as f64);
+        d = den + num * d;
+        if d == 0.0 {
+            d = TINY;
+        }
+        c = den + num / c;
+        if c == 0.0 {
+            c = TINY;
+        }
+        d = 1.0 / d;
+        let delta = c * d;
+        f *= delta;
+        if (delta - 1.0).abs() <= f64::EPSILON {
+            return Ok(f);
+        }
+    }
+    Err(Error::NoConvergence { what })
 }
 
 /// `ln(a + b)` for positive `a`, `b` without overflow.
