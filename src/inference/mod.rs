@@ -129,7 +129,10 @@ mod predict;
 mod summary;
 
 pub use diagnostics::Diagnostics;
-pub use distributions::{fisher_f_quantile, student_t_quantile};
+pub use distributions::{
+    fisher_f_quantile, fisher_f_tails, fisher_f_upper_quantile, normal_quantile, normal_tails,
+    student_t_quantile, student_t_tails, Tails,
+};
 pub use goodness::{Collinearity, GoodnessOfFit, OverallTest};
 pub use predict::Predictions;
 
