@@ -43,7 +43,7 @@ pub struct Args {
     #[arg(long)]
     pub no_intercept: bool,
 
-    /// Solver to fit with
+    /// Solver to fit with (ridge chooses its penalty by leave-one-out unless --penalty says otherwise)
     #[arg(long, short = 's', value_enum, default_value_t = SolverName::Qr)]
     pub solver: SolverName,
 
@@ -124,21 +124,21 @@ pub struct Args {
 /// The solvers the example can run.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum SolverName {
-    /// Householder QR (the crate's default)
+    // Householder QR (the crate's default)
     Qr,
-    /// QR with iterative refinement in double-double arithmetic
+    // QR with iterative refinement in double-double arithmetic
     QrRefined,
-    /// Cholesky on the normal equations (fastest; refuses ill-conditioned designs)
+    // Cholesky on the normal equations (fastest; refuses ill-conditioned designs)
     Cholesky,
-    /// Singular value decomposition (minimum-norm answer for dependent columns)
+    // Singular value decomposition (minimum-norm answer for dependent columns)
     Svd,
-    /// Ridge: a fixed penalty, or one chosen by leave-one-out (default) or GCV
+    // Ridge: a fixed penalty, or one chosen by leave-one-out (default) or GCV
     Ridge,
-    /// Full-batch gradient descent
+    // Full-batch gradient descent
     Gradient,
-    /// Gradient descent with Nesterov momentum and restarts
+    // Gradient descent with Nesterov momentum and restarts
     Accelerated,
-    /// Mini-batch stochastic gradient with averaged iterates
+    // Mini-batch stochastic gradient with averaged iterates
     Stochastic,
 }
 
