@@ -189,8 +189,8 @@ pub struct Summary {
     pub rank: usize,
     /// Predictor columns.
     pub columns: usize,
-    /// Condition estimate.
-    pub condition: f64,
+    /// Condition estimate (`None` when the solver does not estimate one).
+    pub condition: Option<f64>,
     /// Residual degrees of freedom.
     pub residual_df: usize,
     /// The penalty applied.
@@ -281,8 +281,9 @@ pub struct Comparison {
 pub struct CompareRun {
     /// One line per solver.
     pub rows: Vec<Comparison>,
-    /// The flag of the fit the digits are measured against.
-    pub reference: &'static str,
+    /// The flag of the fit the digits are measured against (none when
+    /// both QR fits were refused).
+    pub reference: Option<&'static str>,
     /// Rows of non-zero weight.
     pub rows_used: usize,
 }
@@ -425,7 +426,9 @@ impl Fitter {
             rows_read: g.lines.len(),
             rank: report.rank,
             columns: report.columns,
-            condition: report.condition,
+            // The gradient solvers report 0: no estimate.
+            condition: (report.iterations.is_none() || report.condition > 0.0)
+                .then_some(report.condition),
             residual_df: report.residual_df,
             penalty: report.penalty,
             chosen_by,
@@ -516,9 +519,10 @@ impl Fitter {
                 .find(|(c, f)| c.flag == flag && f.is_some())
                 .and_then(|(_, f)| f.clone())
         };
-        let (reference, reference_flag) = match pick("qr-refined") {
-            Some(f) => (Some(f), "qr-refined"),
-            None => (pick("qr"), "qr"),
+        let (reference, reference_flag) = match (pick("qr-refined"), pick("qr")) {
+            (Some(f), _) => (Some(f), Some("qr-refined")),
+            (None, Some(f)) => (Some(f), Some("qr")),
+            (None, None) => (None, None),
         };
         let rows = out
             .into_iter()
@@ -770,14 +774,14 @@ impl Describe<'_> {
                 rank,
                 columns,
                 dependent,
-                ..
+                tolerance,
             } => {
                 let named: Vec<String> = dependent.iter().map(|&j| self.column(j)).collect();
                 format!(
-                    "the predictors are linearly dependent (rank {rank} of {columns}): {} \
-                     repeat(s) information of the columns before; drop it, or use --solver svd \
-                     or ridge ({e})",
-                    named.join(", ")
+                    "the predictors are linearly dependent (numerical rank {rank} of {columns}, \
+                     relative tolerance {tolerance:.1e}): {} constant or a combination of the \
+                     columns before; drop it, or use --solver svd or ridge",
+                    named.join(", ") + if named.len() == 1 { " is" } else { " are each" }
                 )
             }
             Error::NonFinite {

@@ -124,12 +124,16 @@ pub fn text(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> String {
     };
     let _ = writeln!(
         out,
-        "  solver     {}{asked} in {}; rank {} of {}, condition estimate {}",
+        "  solver     {}{asked} in {}; rank {} of {}, {}",
         s.solver,
         seconds(s.seconds),
         s.rank,
         s.columns,
-        sig(s.condition, 3)
+        s.condition
+            .map_or("no condition estimate".into(), |c| format!(
+                "condition estimate {}",
+                sig(c, 3)
+            ))
     );
     if s.penalty != 0.0 || s.chosen_by.is_some() {
         let how = match (s.chosen_by, s.chosen_at_edge) {
@@ -166,9 +170,13 @@ pub fn text(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> String {
         Ok(u) => {
             let _ = writeln!(
                 out,
-                "  spread     sigma {} {}, R^2 {}{}",
+                "  spread     sigma {}{}, R^2 {}{}",
                 sig(u.sigma, 5),
-                source.target.unit.as_deref().unwrap_or(""),
+                source
+                    .target
+                    .unit
+                    .as_deref()
+                    .map_or(String::new(), |u| format!(" {u}")),
                 sig(u.r_squared, 5),
                 if u.centered { "" } else { " (about zero)" }
             );
@@ -288,9 +296,10 @@ pub fn compare_text(source: &Source<'_>, run: &CompareRun) -> String {
     );
     let _ = writeln!(
         out,
-        "digits: significant digits of the worst parameter that agree with {reference}; \
+        "digits: significant digits of the worst parameter that agree with {}; \
          time: the fastest of up to three runs;\nridge runs at penalty 0, the gradient solvers \
-         at their default tolerance unless --tolerance is given\n"
+         at their default tolerance unless --tolerance is given\n",
+        reference.unwrap_or("no fit (both QR fits were refused)")
     );
     let qr_time = rows
         .iter()
