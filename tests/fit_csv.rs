@@ -301,6 +301,32 @@ fn the_report_carries_the_inference_of_the_fit() {
     assert_eq!(json["units"]["air_temp"], "C");
     assert_eq!(json["target_unit"], "m3");
 
+    // Units: `name [unit]` at the end of a header, spaces optional; a
+    // column is chosen by its name or its whole header.
+    let units = scratch.write(
+        "units.csv",
+        "load [kg],flow[m3/h],x [],[kg],out [V]\n1,2,3,4,5\n2,1,4,4,7\n3,5,1,2,8\n4,3,2,6,9\n5,4,4,1,9\n6,2,5,3,1\n",
+    );
+    let json = run_json(&[
+        units.to_str().unwrap(),
+        "--target",
+        "out [V]",
+        "-x",
+        "load,flow[m3/h],x [],[kg]",
+        "--json",
+    ]);
+    assert_eq!(json["target"], "out");
+    assert_eq!(json["target_unit"], "V");
+    assert_eq!(json["units"]["load"], "kg");
+    assert_eq!(json["units"]["flow"], "m3/h");
+    assert!(json["units"]["x []"].is_null(), "{json}");
+    assert!(json["units"]["[kg]"].is_null(), "{json}");
+    let sum: f64 = ["load", "flow", "x []", "[kg]"]
+        .iter()
+        .map(|k| json["coefficients"][k].as_f64().unwrap().abs())
+        .sum();
+    assert!(sum > 0.0);
+
     // The text report: the equation, the rows, the crate's own summary.
     let out = run(&args);
     assert!(out.status.success());

@@ -580,20 +580,3 @@ fn resolve(path: &Path, headers: &[String], request: &Request) -> Result<Layout,
         weights,
     })
 }
-
-#[cfg(test)]
-mod tests {
-    use super::split_unit;
-
-    #[test]
-    fn units_come_from_trailing_brackets() {
-        assert_eq!(split_unit("load [kg]"), ("load".into(), Some("kg".into())));
-        assert_eq!(
-            split_unit(" flow[m3/h] "),
-            ("flow".into(), Some("m3/h".into()))
-        );
-        assert_eq!(split_unit("load_kg"), ("load_kg".into(), None));
-        assert_eq!(split_unit("[kg]"), ("[kg]".into(), None));
-        assert_eq!(split_unit("x []"), ("x []".into(), None));
-    }
-}

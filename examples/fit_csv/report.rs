@@ -415,16 +415,3 @@ pub fn compare_json(source: &Source<'_>, run: &CompareRun) -> Value {
         "solvers": solvers,
     })
 }
-
-#[cfg(test)]
-mod tests {
-    use super::sig;
-
-    #[test]
-    fn significant_digits() {
-        assert_eq!(sig(1234.5678, 5), "1234.6");
-        assert_eq!(sig(-0.000123456, 3), "-0.000123");
-        assert_eq!(sig(1.5e12, 3), "1.50e12");
-        assert_eq!(sig(0.0, 4), "0");
-    }
-}
