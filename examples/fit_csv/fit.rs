@@ -11,14 +11,28 @@
 //! instead and nothing outside this file changes. The per-row tables for the
 //! plots would then come from a second pass over the file.
 //!
-//! Library calls made here: `Problem::builder(..).weights(..).intercept(..)
-//! .build()`, `Solver::fit` of `Qr`, `Qr::refined()`, `Cholesky`, `Svd`,
-//! `Ridge`, `fit_observed` of `GradientDescent`, `Accelerated` and
-//! `Stochastic`, `RidgePath::{new, default_grid, curve, fit}`,
-//! `Inference::{with_options, with_names, diagnostics, predict}`,
-//! `LinearModel::{coefficients, intercept, predict}`, the `Fit`/`FitReport`
-//! fields, and the crate's serde impls of `Fit` and `Inference` for the
-//! saved model.
+//! Library calls made here (the list to revisit when the API changes):
+//! - `Problem::builder(x, y).weights(w).intercept(b).build()`, and
+//!   `Problem::{design, target, weights, rows, usable_rows}`;
+//! - `Solver::fit` of `Qr::default()`, `Qr::refined()`, `Cholesky`, `Svd`,
+//!   `Ridge { standardize, ..Ridge::new(penalty) }`; `fit_observed` of
+//!   `GradientDescent`, `Accelerated`, `Stochastic` (fields `tolerance`,
+//!   `max_iterations`/`epochs`, `penalty`, `seed`; `Progress::iteration`,
+//!   `Control::Continue`);
+//! - `RidgePath::{new, default_grid, curve, fit}` with `ridge::Criterion`,
+//!   and the `PenaltyCurve` fields;
+//! - `Inference::{with_options, with_names, diagnostics, predict}`,
+//!   `InferenceOptions::level`, its `Display`, and the fields `options`,
+//!   `residual_sd`, `residual_variance`, `critical_value`, `covariance`,
+//!   `goodness`, `coefficients`, `intercept`; `Diagnostics` fields;
+//! - `LinearModel::{coefficients, intercept, predict, cols}`, the `Fit` and
+//!   `FitReport` fields (`rank`, `condition` read as "no estimate" when an
+//!   iterative fit reports 0), `IterationReport` fields;
+//! - `Error::{RankDeficient, NonFinite, InvalidWeight, InferenceRefused}`
+//!   (turned into column names and file lines);
+//! - the crate's serde impls of `Fit` and `Inference` for the saved model
+//!   (the shape check in `check_inference_shape` reads the serialised
+//!   private `basis` field: replace it with the library's own format).
 
 use std::fmt;
 use std::path::{Path, PathBuf};
