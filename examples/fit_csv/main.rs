@@ -12,6 +12,12 @@
 //! column); 5 a saved model is not valid; 6 an output could not be written.
 //! Errors go to stderr, one line starting with `fit_csv: error:`.
 //!
+//! `--json` prints one object: `coefficients` (predictor name to slope),
+//! `intercept` (null with `--no-intercept`), `rss`, `rows_used`, `rows_read`,
+//! `solver`, `rank`, `condition`, `penalty`, `units`, and when the fit
+//! allows inference `sigma`, `r_squared`, `standard_errors`, `intervals`
+//! (otherwise `no_inference_because`); numbers JSON cannot hold are null.
+//!
 //! Layout: `args` (flags), `read` (CSV blocks), `fit` (the only module that
 //! calls leastline), `report` (text and JSON), `plots` (SVG), `progress`
 //! (bars on stderr).
