@@ -109,16 +109,11 @@ fn bench(c: &mut Criterion) {
     let (x, y) = design();
     let problem = Problem::new(x.view(), y.view()).expect("valid design");
     let bytes = (ROWS * COLS * 8) as u64;
-    let one = GradientDescent {
-        step: Some(0.1),
-        max_iterations: 0,
-        history_stride: 0,
-        ..GradientDescent::default()
-    };
-    let ten = GradientDescent {
-        max_iterations: 10,
-        ..one.clone()
-    };
+    let one = GradientDescent::new()
+        .with_step(0.1)
+        .with_max_iterations(0)
+        .with_history_stride(0);
+    let ten = one.clone().with_max_iterations(10);
     let mut group = c.benchmark_group("gradient_1e6x100");
     group.throughput(Throughput::Bytes(bytes));
     group.bench_function(BenchmarkId::new("floor", "stream_sum"), |b| {

@@ -46,7 +46,7 @@ fn bench(c: &mut Criterion) {
         let mut group = c.benchmark_group(format!("refinement/{label}"));
         group.sample_size(20);
         group.bench_function("plain qr", |b| {
-            b.iter(|| black_box(Qr::default().fit(black_box(&problem)).expect("fit")))
+            b.iter(|| black_box(Qr::new().fit(black_box(&problem)).expect("fit")))
         });
         group.bench_function("refined qr", |b| {
             b.iter(|| black_box(Qr::refined().fit(black_box(&problem)).expect("fit")))
@@ -79,7 +79,7 @@ fn ratios() {
             .as_ref()
             .map_or(0, |i| i.iterations);
         let plain = median_seconds(15, || {
-            black_box(Qr::default().fit(&problem).expect("fit"));
+            black_box(Qr::new().fit(&problem).expect("fit"));
         });
         let slow = median_seconds(15, || {
             black_box(Qr::refined().fit(&problem).expect("fit"));

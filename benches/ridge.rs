@@ -17,7 +17,7 @@ use std::hint::black_box;
 use std::time::Duration;
 
 use criterion::{criterion_group, criterion_main, Criterion};
-use leastline::ridge::{Criterion as Score, Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Criterion as Score, Ridge, RidgeFactorization, RidgePath};
 use leastline::{Problem, Solver};
 use ndarray::{Array1, Array2};
 use rand::{RngExt, SeedableRng};
@@ -41,10 +41,7 @@ fn path_vs_cholesky(c: &mut Criterion) {
         .sample_size(10)
         .measurement_time(Duration::from_secs(10));
     group.bench_function("cholesky_fit", |b| {
-        let solver = Ridge {
-            method: RidgeMethod::Cholesky,
-            ..Ridge::new(5.0)
-        };
+        let solver = Ridge::new(5.0).with_factorization(RidgeFactorization::Cholesky);
         b.iter(|| black_box(solver.fit(&problem).expect("fit")))
     });
     group.bench_function("svd_path_100_gcv", |b| {
@@ -79,13 +76,10 @@ fn dual_vs_primal(c: &mut Criterion) {
         let (x, y) = data(2_000, 5_000, 2);
         let problem = Problem::new(x.view(), y.view()).expect("valid");
         for (name, method) in [
-            ("primal_cholesky_2000x5000", RidgeMethod::Cholesky),
-            ("dual_2000x5000", RidgeMethod::Dual),
+            ("primal_cholesky_2000x5000", RidgeFactorization::Cholesky),
+            ("dual_2000x5000", RidgeFactorization::Dual),
         ] {
-            let solver = Ridge {
-                method,
-                ..Ridge::new(5.0)
-            };
+            let solver = Ridge::new(5.0).with_factorization(method);
             group.bench_function(name, |b| {
                 b.iter(|| black_box(solver.fit(&problem).expect("fit")))
             });
@@ -94,10 +88,7 @@ fn dual_vs_primal(c: &mut Criterion) {
     {
         let (x, y) = data(2_000, 50_000, 3);
         let problem = Problem::new(x.view(), y.view()).expect("valid");
-        let solver = Ridge {
-            method: RidgeMethod::Dual,
-            ..Ridge::new(5.0)
-        };
+        let solver = Ridge::new(5.0).with_factorization(RidgeFactorization::Dual);
         group.bench_function("dual_2000x50000", |b| {
             b.iter(|| black_box(solver.fit(&problem).expect("fit")))
         });

@@ -22,17 +22,17 @@ mod design;
 /// The solvers by name; append a line to bench another one.
 type Maker = fn() -> Box<dyn Solver>;
 const SOLVERS: &[(&str, Maker)] = &[
-    ("qr", || Box::new(Qr::default())),
-    ("cholesky", || Box::new(Cholesky::default())),
-    ("svd", || Box::new(Svd::default())),
+    ("qr", || Box::new(Qr::new())),
+    ("cholesky", || Box::new(Cholesky::new())),
+    ("svd", || Box::new(Svd::new())),
     ("ridge", || Box::new(Ridge::new(1.0))),
     // Fifty accelerated iterations (a fixed amount of work, not a tolerance).
     ("accelerated-50", || {
-        Box::new(Accelerated {
-            tolerance: 0.0,
-            max_iterations: 50,
-            ..Default::default()
-        })
+        Box::new(
+            Accelerated::new()
+                .with_tolerance(0.0)
+                .with_max_iterations(50),
+        )
     }),
 ];
 

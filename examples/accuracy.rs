@@ -32,40 +32,40 @@ use nist::{lre, Dataset};
 /// The solvers measured, with the label they carry in the output.
 fn solvers() -> Vec<(&'static str, Box<dyn Solver>)> {
     vec![
-        ("qr", Box::new(Qr::default())),
+        ("qr", Box::new(Qr::new())),
         ("qr-refined", Box::new(Qr::refined())),
-        ("cholesky", Box::new(Cholesky::default())),
-        ("svd", Box::new(Svd::default())),
+        ("cholesky", Box::new(Cholesky::new())),
+        ("svd", Box::new(Svd::new())),
         ("ridge(0)", Box::new(Ridge::new(0.0))),
         // Gradient methods run to a tight tolerance and report `NotConverged`
         // (as their outcome) where they cannot reach it.
         (
             "gradient",
-            Box::new(GradientDescent {
-                tolerance: 1e-13,
-                max_iterations: 200_000,
-                fail_if_not_converged: true,
-                ..Default::default()
-            }),
+            Box::new(
+                GradientDescent::new()
+                    .with_tolerance(1e-13)
+                    .with_max_iterations(200_000)
+                    .with_fail_if_not_converged(true),
+            ),
         ),
         (
             "accelerated",
-            Box::new(Accelerated {
-                tolerance: 1e-13,
-                max_iterations: 200_000,
-                fail_if_not_converged: true,
-                ..Default::default()
-            }),
+            Box::new(
+                Accelerated::new()
+                    .with_tolerance(1e-13)
+                    .with_max_iterations(200_000)
+                    .with_fail_if_not_converged(true),
+            ),
         ),
         (
             "stochastic",
-            Box::new(Stochastic {
-                tolerance: 1e-10,
-                epochs: 200,
-                seed: 1,
-                fail_if_not_converged: true,
-                ..Default::default()
-            }),
+            Box::new(
+                Stochastic::new()
+                    .with_tolerance(1e-10)
+                    .with_max_iterations(200)
+                    .with_seed(1)
+                    .with_fail_if_not_converged(true),
+            ),
         ),
     ]
 }
@@ -122,7 +122,7 @@ fn measure(label: &'static str, solver: &dyn Solver, d: &Dataset) -> Row {
         outcome: String::new(),
     };
     let problem = match Problem::builder(d.x.view(), d.y.view())
-        .intercept(d.intercept)
+        .with_intercept(d.intercept)
         .build()
     {
         Ok(p) => p,

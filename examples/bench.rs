@@ -128,16 +128,13 @@ fn measure(f: &mut dyn FnMut() -> f64) -> Sample {
 /// Solvers by name. Each entry also names the floor its ratio refers to.
 type Maker = fn() -> Box<dyn Solver>;
 const SOLVERS: &[(&str, Floor, Maker)] = &[
-    ("qr", Floor::Gram, || Box::new(Qr::default())),
-    ("cholesky", Floor::Gram, || Box::new(Cholesky::default())),
-    ("svd", Floor::Gram, || Box::new(Svd::default())),
+    ("qr", Floor::Gram, || Box::new(Qr::new())),
+    ("cholesky", Floor::Gram, || Box::new(Cholesky::new())),
+    ("svd", Floor::Gram, || Box::new(Svd::new())),
     ("qr-refined", Floor::Gram, || Box::new(Qr::refined())),
     ("ridge", Floor::Gram, || Box::new(Ridge::new(1.0))),
     ("accelerated", Floor::Stream, || {
-        Box::new(Accelerated {
-            tolerance: 1e-8,
-            ..Default::default()
-        })
+        Box::new(Accelerated::new().with_tolerance(1e-8))
     }),
 ];
 
@@ -404,7 +401,7 @@ fn run(o: &Options) {
     };
     let build = || {
         Problem::builder(x.view(), y.view())
-            .intercept(o.intercept)
+            .with_intercept(o.intercept)
             .build()
     };
     let problem = match build() {
@@ -480,11 +477,11 @@ fn run(o: &Options) {
     // One full-gradient iteration: a fit of ten iterations at a fixed step
     // minus a fit of none (the set-up passes), divided by ten.
     if o.solvers.iter().any(|s| s == GRADIENT_STEP) {
-        let fixed = |iterations| GradientDescent {
-            step: Some(0.1),
-            max_iterations: iterations,
-            history_stride: 0,
-            ..GradientDescent::default()
+        let fixed = |iterations| {
+            GradientDescent::new()
+                .with_step(0.1)
+                .with_max_iterations(iterations)
+                .with_history_stride(0)
         };
         let (none, ten) = (fixed(0), fixed(10));
         let t0 = time(r, &mut || {

@@ -96,32 +96,25 @@ fn main() {
         .map(|curve| curve.best_penalty)
         .unwrap_or(0.0);
     let solvers: Vec<Box<dyn Solver>> = vec![
-        Box::new(Qr::default()),
+        Box::new(Qr::new()),
         Box::new(Qr::refined()),
-        Box::new(Cholesky::default()),
-        Box::new(Svd::default()),
+        Box::new(Cholesky::new()),
+        Box::new(Svd::new()),
         Box::new(Ridge::new(penalty)),
-        Box::new(GradientDescent {
-            tolerance: 1e-10,
-            max_iterations: 20_000,
-            ..Default::default()
-        }),
-        Box::new(Accelerated {
-            tolerance: 1e-10,
-            ..Default::default()
-        }),
-        Box::new(Stochastic {
-            epochs: 40,
-            seed: 7,
-            ..Default::default()
-        }),
+        Box::new(
+            GradientDescent::new()
+                .with_tolerance(1e-10)
+                .with_max_iterations(20_000),
+        ),
+        Box::new(Accelerated::new().with_tolerance(1e-10)),
+        Box::new(Stochastic::new().with_max_iterations(40).with_seed(7)),
     ];
 
     println!("Frostgate depot: daily electricity use (kWh) against five operating drivers");
     println!(
         "{} days, {} predictors, intercept fitted by centering\n",
         problem.rows(),
-        problem.cols()
+        problem.columns()
     );
 
     let mut fits: Vec<(String, Fit, f64)> = Vec::new();

@@ -139,28 +139,22 @@ fn main() {
             "  {:<22} {:>9}{:>9}{:>9}{:>9}   {:>8} {:>8}  last rel. gradient",
             "method", "1e-2", "1e-4", "1e-6", "1e-8", "passes", "restarts"
         );
-        let gd = GradientDescent {
-            tolerance: 1e-8,
-            max_iterations: cap,
-            history_stride: 0,
-            ..GradientDescent::default()
-        };
+        let gd = GradientDescent::new()
+            .with_tolerance(1e-8)
+            .with_max_iterations(cap)
+            .with_history_stride(0);
         show("gradient descent", watch(|o| gd.fit_observed(&problem, o)));
-        let acc = Accelerated {
-            tolerance: 1e-8,
-            max_iterations: cap,
-            history_stride: 0,
-            ..Accelerated::default()
-        };
+        let acc = Accelerated::new()
+            .with_tolerance(1e-8)
+            .with_max_iterations(cap)
+            .with_history_stride(0);
         show("accelerated", watch(|o| acc.fit_observed(&problem, o)));
         for batch in [32, 256] {
-            let sgd = Stochastic {
-                tolerance: 1e-8,
-                epochs: 300,
-                batch_size: batch,
-                history_stride: 0,
-                ..Stochastic::default()
-            };
+            let sgd = Stochastic::new()
+                .with_tolerance(1e-8)
+                .with_max_iterations(300)
+                .with_batch_size(batch)
+                .with_history_stride(0);
             show(
                 &format!("stochastic (batch {batch})"),
                 watch(|o| sgd.fit_observed(&problem, o)),

@@ -32,9 +32,9 @@ mod design;
 type Maker = fn() -> Box<dyn Solver>;
 /// The solvers by name; append a line to chart another one.
 const SOLVERS: &[(&str, Maker)] = &[
-    ("qr", || Box::new(Qr::default())),
-    ("cholesky", || Box::new(Cholesky::default())),
-    ("svd", || Box::new(Svd::default())),
+    ("qr", || Box::new(Qr::new())),
+    ("cholesky", || Box::new(Cholesky::new())),
+    ("svd", || Box::new(Svd::new())),
 ];
 
 const ROWS_SWEEP: &[usize] = &[10_000, 20_000, 50_000, 100_000, 200_000, 500_000, 1_000_000];
@@ -101,7 +101,7 @@ fn slope(points: &[(f64, f64)]) -> f64 {
     let x = Array2::from_shape_fn((points.len(), 1), |(i, _)| points[i].0.ln());
     let y = Array1::from_iter(points.iter().map(|p| p.1.ln()));
     Problem::new(x.view(), y.view())
-        .and_then(|problem| Qr::default().fit(&problem))
+        .and_then(|problem| Qr::new().fit(&problem))
         .map_or(f64::NAN, |fit| fit.model.coefficients()[0])
 }
 

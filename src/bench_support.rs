@@ -49,7 +49,7 @@ pub fn stream_floor(problem: &Problem<'_>) -> f64 {
 pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
     let r = crate::linalg::qr::tall_skinny_r(problem, &scaling, true);
-    let p = problem.cols();
+    let p = problem.columns();
     r[(p, p)].abs()
 }
 
@@ -64,7 +64,7 @@ pub fn residual_pass(problem: &Problem<'_>, beta: &[f64]) -> f64 {
 pub fn fill_pass(problem: &Problem<'_>) -> f64 {
     use rayon::prelude::*;
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-    let k = problem.cols() + 1;
+    let k = problem.columns() + 1;
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, GROUPS);
     groups

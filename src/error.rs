@@ -226,12 +226,6 @@ pub enum Error {
         /// Bytes it would need.
         bytes: u128,
     },
-    /// Inference was asked of a fit that does not support it.
-    #[error("inference is not available: {reason}")]
-    InferenceUnavailable {
-        /// Why not.
-        reason: &'static str,
-    },
     /// Inference (standard errors, tests, intervals) was refused for a fit;
     /// the refusal says why and carries its numbers.
     #[error("inference refused: {refusal}")]
@@ -270,8 +264,8 @@ pub enum Error {
     NoFiniteScore {
         /// Number of penalties scored.
         penalties: usize,
-        /// The criterion ("leave-one-out" or "generalized cross-validation").
-        criterion: &'static str,
+        /// The criterion that was scored.
+        criterion: crate::ridge::Criterion,
     },
 }
 

@@ -15,7 +15,7 @@
 //! let x = array![[1.0, 0.2], [2.0, 0.1], [3.0, 0.4], [4.0, 0.3], [5.0, 0.5]];
 //! let y = array![2.9, 4.6, 7.3, 8.9, 11.2];
 //! let problem = Problem::new(x.view(), y.view())?;
-//! let fit = Qr::default().fit(&problem)?;
+//! let fit = Qr::new().fit(&problem)?;
 //! println!("slopes {:?}, intercept {}", fit.model.coefficients(), fit.model.intercept());
 //! // Closed forms measure the rank and condition; gradient solvers report None.
 //! println!("rank {:?}, condition {:.1?}", fit.report.rank, fit.report.condition);
@@ -115,15 +115,24 @@ mod serde_float;
 pub mod solver;
 mod solvers;
 
+/// The array crate of the public API, re-exported so that a program
+/// builds its arrays with exactly the version the crate was compiled
+/// against (`use leastline::ndarray::array;`).
+pub use ndarray;
+
 pub use error::{Error, Input, Result};
 pub use gradient::{Accelerated, Control, GradientDescent, Progress, Stochastic};
-pub use inference::{CovarianceKind, Inference, InferenceOptions};
+pub use inference::{
+    Collinearity, CovarianceKind, Diagnostics, Estimate, GoodnessOfFit, Inference,
+    InferenceOptions, InferenceRefusal, OverallTest, Predictions,
+};
 pub use model::LinearModel;
 pub use problem::{Problem, ProblemBuilder};
-pub use ridge::{CrossValidation, KFold, PenaltyCurve, Ridge, RidgeMethod, RidgePath};
+pub use ridge::{
+    Criterion, HeldOutError, PenaltyCurve, Ridge, RidgeFactorization, RidgePath, RowFolds,
+};
 pub use solver::{Fit, FitReport, IterationReport, Solver};
-pub use solvers::Refinement;
-pub use solvers::{Cholesky, Qr, Svd};
+pub use solvers::{Cholesky, Qr, Refinement, Svd};
 
 /// The README's code blocks, run as doctests.
 #[cfg(doctest)]

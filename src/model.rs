@@ -89,7 +89,7 @@ impl LinearModel {
     }
 
     /// Number of columns the model expects.
-    pub fn cols(&self) -> usize {
+    pub fn columns(&self) -> usize {
         self.coefficients.len()
     }
 
@@ -101,9 +101,9 @@ impl LinearModel {
     /// [`Error::OverflowAt`] (row 0) when the prediction exceeds the range
     /// of `f64`.
     pub fn predict_row(&self, row: ArrayView1<'_, f64>) -> Result<f64> {
-        if row.len() != self.cols() {
+        if row.len() != self.columns() {
             return Err(Error::ColumnCountMismatch {
-                expected: self.cols(),
+                expected: self.columns(),
                 found: row.len(),
             });
         }
@@ -146,9 +146,9 @@ impl LinearModel {
     /// and column of the first NaN or infinity; [`Error::OverflowAt`]
     /// naming the first row whose prediction exceeds the range of `f64`.
     pub fn predict(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>> {
-        if x.ncols() != self.cols() {
+        if x.ncols() != self.columns() {
             return Err(Error::ColumnCountMismatch {
-                expected: self.cols(),
+                expected: self.columns(),
                 found: x.ncols(),
             });
         }

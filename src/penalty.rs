@@ -79,7 +79,7 @@ pub(crate) fn column_penalties(
 ) -> Vec<f64> {
     let ws = exponent(problem.stats.weight_scale);
     let total = problem.stats.total_weight;
-    (0..problem.cols())
+    (0..problem.columns())
         .map(|j| {
             if scaling.constant[j] {
                 return 0.0;
@@ -116,7 +116,7 @@ impl PenaltyMap {
     /// (`sq_norms = Some(|Z_j|^2)`): `f_j = sqrt(n_min / |Z_j|^2)`,
     /// `u = n_min / W`, with `n_min` the smallest non-zero squared norm.
     pub fn new(problem: &Problem<'_>, scaling: &Scaling, sq_norms: Option<&[f64]>) -> Self {
-        let p = problem.cols();
+        let p = problem.columns();
         let live = |j: usize| -> bool {
             !scaling.constant[j] && sq_norms.is_none_or(|n| n[j] > 0.0 && n[j].is_finite())
         };
@@ -275,7 +275,7 @@ mod tests {
             let (n, p) = (40, 5);
             let (x, y, w) = random_problem(seed, n, p);
             let problem = Problem::builder(x.view(), y.view())
-                .weights(w.view())
+                .with_weights(w.view())
                 .build()
                 .expect("valid problem");
             let scaling = Scaling::new(&problem, problem.default_rank_tolerance());

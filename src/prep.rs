@@ -39,7 +39,7 @@ impl Scaling {
     /// an intercept it carries no information, and it is zeroed.
     pub fn new(problem: &Problem<'_>, tolerance: f64) -> Self {
         let st = &problem.stats;
-        let p = problem.cols();
+        let p = problem.columns();
         let mut scale = Vec::with_capacity(p);
         let mut inv_scale = Vec::with_capacity(p);
         let mut constant = Vec::with_capacity(p);
@@ -321,7 +321,7 @@ mod tests {
         let mut reference: Option<Mat<f64>> = None;
         for v in views {
             let problem = Problem::builder(v, y.view())
-                .weights(w.view())
+                .with_weights(w.view())
                 .build()
                 .expect("valid");
             let scaling = Scaling::new(&problem, 1e-12);

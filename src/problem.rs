@@ -32,9 +32,9 @@ pub(crate) const STATS_CHUNK: usize = 4096;
 /// let x = array![[1.0, 0.5], [2.0, 0.1], [3.0, 0.7], [4.0, 0.2]];
 /// let y = array![3.1, 4.9, 7.2, 8.8];
 /// let w = array![1.0, 1.0, 2.0, 0.5];
-/// let problem = Problem::builder(x.view(), y.view()).weights(w.view()).build()?;
+/// let problem = Problem::builder(x.view(), y.view()).with_weights(w.view()).build()?;
 /// assert_eq!(problem.rows(), 4);
-/// assert_eq!(problem.cols(), 2);
+/// assert_eq!(problem.columns(), 2);
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone)]
@@ -81,13 +81,13 @@ pub(crate) struct Stats {
 impl<'a> ProblemBuilder<'a> {
     /// Observation weights, one per row, each finite and `>= 0`. A weight of
     /// zero removes the row from the fit; a weight of 2 counts the row twice.
-    pub fn weights(mut self, weights: ArrayView1<'a, f64>) -> Self {
+    pub fn with_weights(mut self, weights: ArrayView1<'a, f64>) -> Self {
         self.weights = Some(weights);
         self
     }
 
     /// Whether to fit an intercept (default `true`).
-    pub fn intercept(mut self, intercept: bool) -> Self {
+    pub fn with_intercept(mut self, intercept: bool) -> Self {
         self.intercept = intercept;
         self
     }
@@ -192,7 +192,7 @@ impl<'a> Problem<'a> {
     }
 
     /// Number of columns `p` (not counting the intercept).
-    pub fn cols(&self) -> usize {
+    pub fn columns(&self) -> usize {
         self.design.ncols()
     }
 
@@ -203,7 +203,7 @@ impl<'a> Problem<'a> {
 
     /// Number of parameters: columns plus one for the intercept.
     pub fn parameters(&self) -> usize {
-        self.cols() + usize::from(self.intercept)
+        self.columns() + usize::from(self.intercept)
     }
 
     /// Sum of the weights (`n` when unweighted).
@@ -256,7 +256,7 @@ impl<'a> Problem<'a> {
 
     /// The default relative rank tolerance: `max(usable rows, columns) * eps`.
     pub fn default_rank_tolerance(&self) -> f64 {
-        self.stats.usable_rows.max(self.cols()).max(1) as f64 * f64::EPSILON
+        self.stats.usable_rows.max(self.columns()).max(1) as f64 * f64::EPSILON
     }
 }
 

@@ -20,7 +20,7 @@ use crate::scaled::{exponent, ldexp, pow2_scale};
 /// let x = array![[1.0, 2.0], [2.0, 1.0], [3.0, 5.0], [4.0, 3.0], [5.0, 4.0]];
 /// let y = array![5.0, 4.0, 11.0, 9.0, 11.0];
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let solvers: Vec<Box<dyn Solver>> = vec![Box::new(Qr::default()), Box::new(Cholesky::default()), Box::new(Svd::default())];
+/// let solvers: Vec<Box<dyn Solver>> = vec![Box::new(Qr::new()), Box::new(Cholesky::new()), Box::new(Svd::new())];
 /// for solver in &solvers {
 ///     let fit = solver.fit(&problem)?;
 ///     println!("{}: {:?}", solver.name(), fit.model.coefficients());
@@ -88,6 +88,12 @@ pub struct FitReport {
     pub usable_rows: usize,
     /// The L2 penalty applied (0 for unpenalised solvers).
     pub penalty: f64,
+    /// The factorisation a closed-form fit used: `"qr"`, `"cholesky"`,
+    /// `"svd"`, or for [`crate::Ridge`] the one its
+    /// [`crate::RidgeFactorization`] chose (`"cholesky"`, `"qr"`, `"svd"`,
+    /// `"dual"`); `None` for the gradient solvers, which factor nothing.
+    #[cfg_attr(feature = "serde", serde(default))]
+    pub factorization: Option<String>,
     /// Iterative solvers: how the iteration went; `None` for closed forms.
     pub iterations: Option<IterationReport>,
     /// The [`Problem::fingerprint`] of the problem the fit was computed
@@ -197,6 +203,11 @@ pub(crate) fn finish_with_rss(
         }
         other => other,
     };
+    // "ridge-<factorisation>" names the ridge solver and its route.
+    let (solver, factorization) = match solver.strip_prefix("ridge-") {
+        Some(route) => ("ridge", route),
+        None => (solver, solver.strip_suffix("-refined").unwrap_or(solver)),
+    };
     let residual_df = rank.map(|rank| {
         problem
             .usable_rows()
@@ -207,12 +218,13 @@ pub(crate) fn finish_with_rss(
         report: FitReport {
             solver: solver.to_string(),
             rank,
-            columns: problem.cols(),
+            columns: problem.columns(),
             condition,
             residual_sum_of_squares: rss,
             residual_df,
             usable_rows: problem.usable_rows(),
             penalty,
+            factorization: Some(factorization.to_string()),
             iterations: None,
             fingerprint: problem.fingerprint(),
         },

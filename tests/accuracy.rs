@@ -41,7 +41,7 @@ fn min_lre(computed: &[f64], reference: &[f64]) -> f64 {
 
 fn fit(solver: &dyn Solver, d: &nist::Dataset) -> Result<Fit, Error> {
     let problem = Problem::builder(d.x.view(), d.y.view())
-        .intercept(d.intercept)
+        .with_intercept(d.intercept)
         .build()?;
     solver.fit(&problem)
 }
@@ -92,7 +92,7 @@ fn floors_cover_all_eleven_datasets() {
 #[test]
 fn qr_meets_the_floors() {
     for (name, floor) in FLOORS {
-        let digits = certified_digits(&Qr::default(), name);
+        let digits = certified_digits(&Qr::new(), name);
         assert!(digits >= floor, "{name}: QR {digits:.2} digits < {floor}");
     }
 }
@@ -100,7 +100,7 @@ fn qr_meets_the_floors() {
 #[test]
 fn svd_meets_the_same_floors() {
     for (name, floor) in FLOORS {
-        let digits = certified_digits(&Svd::default(), name);
+        let digits = certified_digits(&Svd::new(), name);
         assert!(digits >= floor, "{name}: SVD {digits:.2} digits < {floor}");
     }
 }
@@ -238,7 +238,7 @@ fn filip_certified_digits_are_out_of_reach_of_f64_data() {
 fn refinement_improves_on_plain_qr_where_qr_loses_digits() {
     // Wampler4 and Wampler5: plain QR keeps 8.8 and 6.9 digits, refinement 15.
     for name in ["Wampler4", "Wampler5", "Filip"] {
-        let plain = certified_digits(&Qr::default(), name);
+        let plain = certified_digits(&Qr::new(), name);
         let refined = certified_digits(&Qr::refined(), name);
         assert!(refined > plain, "{name}: {refined:.2} <= {plain:.2}");
     }
@@ -264,40 +264,22 @@ fn refinement_settings_are_validated_and_honoured() {
     let d = nist::load("Longley");
     let problem = Problem::new(d.x.view(), d.y.view()).expect("valid");
     for bad in [f64::NAN, -1.0, f64::INFINITY] {
-        let solver = Qr {
-            refinement: Some(Refinement {
-                tolerance: bad,
-                ..Refinement::default()
-            }),
-            ..Qr::default()
-        };
+        let solver = Qr::new().with_refinement(Refinement::new().with_tolerance(bad));
         assert!(matches!(
             solver.fit(&problem),
             Err(Error::InvalidParameter { .. })
         ));
     }
     // No steps allowed: the plain solution, reported as not converged.
-    let none = Qr {
-        refinement: Some(Refinement {
-            max_steps: 0,
-            ..Refinement::default()
-        }),
-        ..Qr::default()
-    };
+    let none = Qr::new().with_refinement(Refinement::new().with_max_iterations(0));
     let f0 = none.fit(&problem).expect("fits");
-    let plain = Qr::default().fit(&problem).expect("fits");
+    let plain = Qr::new().fit(&problem).expect("fits");
     let it = f0.report.iterations.as_ref().expect("report");
     assert_eq!(it.iterations, 0);
     assert!(!it.converged);
     assert_eq!(f0.model.coefficients(), plain.model.coefficients());
     // One step at most.
-    let one = Qr {
-        refinement: Some(Refinement {
-            max_steps: 1,
-            ..Refinement::default()
-        }),
-        ..Qr::default()
-    };
+    let one = Qr::new().with_refinement(Refinement::new().with_max_iterations(1));
     let f1 = one.fit(&problem).expect("fits");
     assert_eq!(f1.report.iterations.as_ref().map(|i| i.iterations), Some(1));
     // Plain QR reports no iterations.
@@ -323,7 +305,7 @@ fn refinement_with_weights_matches_exact_repeated_rows() {
     let best = exact::least_squares(xr.view(), yr.view(), true);
     let w = ndarray::Array1::from(weights);
     let problem = Problem::builder(d.x.view(), d.y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .expect("valid");
     let f = Qr::refined().fit(&problem).expect("fits");
@@ -347,7 +329,7 @@ fn refinement_on_a_tall_ill_conditioned_design() {
             .map(|&v| (3.0 * v).sin() + 0.01 * rng.random_range(-1.0..1.0)),
     );
     let problem = Problem::new(x.view(), y.view()).expect("valid");
-    let plain = Qr::default().fit(&problem).expect("fits");
+    let plain = Qr::new().fit(&problem).expect("fits");
     let condition = plain.report.condition.expect("QR measures its condition");
     assert!(
         condition > 1e8,
@@ -373,7 +355,7 @@ fn refinement_on_a_tall_ill_conditioned_design() {
 #[test]
 fn cholesky_refuses_filip_and_points_elsewhere() {
     let d = nist::load("Filip");
-    match fit(&Cholesky::default(), &d) {
+    match fit(&Cholesky::new(), &d) {
         Err(Error::IllConditioned {
             method,
             expected_digits,
@@ -399,7 +381,7 @@ fn cholesky_refuses_filip_and_points_elsewhere() {
 
 #[test]
 fn cholesky_fits_norris() {
-    let digits = certified_digits(&Cholesky::default(), "Norris");
+    let digits = certified_digits(&Cholesky::new(), "Norris");
     assert!(digits >= 12.0, "{digits:.2}");
 }
 
@@ -407,14 +389,11 @@ fn cholesky_fits_norris() {
 fn cholesky_honours_min_digits() {
     let d = nist::load("Longley");
     // Longley fits at the default threshold ...
-    let f = fit(&Cholesky::default(), &d).expect("Longley fits at 4 digits");
+    let f = fit(&Cholesky::new(), &d).expect("Longley fits at 4 digits");
     let c = f.report.condition.expect("Cholesky measures its condition");
     let expected = -(f64::EPSILON * c * c).log10();
     // ... and is refused when the caller asks for more than it expects.
-    let strict = Cholesky {
-        min_digits: expected + 0.5,
-        ..Cholesky::default()
-    };
+    let strict = Cholesky::new().with_min_digits(expected + 0.5);
     match fit(&strict, &d) {
         Err(Error::IllConditioned {
             expected_digits,
@@ -426,15 +405,9 @@ fn cholesky_honours_min_digits() {
         }
         other => panic!("expected IllConditioned, got {other:?}"),
     }
-    let lenient = Cholesky {
-        min_digits: expected - 0.5,
-        ..Cholesky::default()
-    };
+    let lenient = Cholesky::new().with_min_digits(expected - 0.5);
     assert!(fit(&lenient, &d).is_ok());
-    let nan = Cholesky {
-        min_digits: f64::NAN,
-        ..Cholesky::default()
-    };
+    let nan = Cholesky::new().with_min_digits(f64::NAN);
     assert!(matches!(fit(&nan, &d), Err(Error::InvalidParameter { .. })));
 }
 
@@ -450,7 +423,7 @@ fn cholesky_honours_min_digits() {
 fn cholesky_digit_estimate_is_within_three_digits_of_delivery() {
     for name in nist::ALL {
         let d = nist::load(name);
-        match fit(&Cholesky::default(), &d) {
+        match fit(&Cholesky::new(), &d) {
             Ok(f) => {
                 let c = f.report.condition.expect("Cholesky measures its condition");
                 let expected = -(f64::EPSILON * c * c).log10();
@@ -494,7 +467,7 @@ fn refinement_edge_cases() {
     let kept_x = ndarray::array![[1.0], [2.0], [3.0], [4.0]];
     let kept_y = ndarray::array![2.0, 4.1, 5.9, 8.2];
     let weighted = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .expect("valid");
     let a = Qr::refined().fit(&weighted).expect("fits");

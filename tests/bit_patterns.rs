@@ -20,7 +20,7 @@ mod common;
 use common::p2;
 
 use leastline::inference::{CovarianceKind, Inference, InferenceOptions};
-use leastline::ridge::{Criterion, KFold, Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Criterion, Ridge, RidgeFactorization, RidgePath, RowFolds};
 use leastline::{
     Accelerated, Cholesky, Fit, GradientDescent, Problem, Qr, Refinement, Solver, Stochastic, Svd,
 };
@@ -101,52 +101,25 @@ fn case() -> impl Strategy<Value = Case> {
 
 fn solvers() -> Vec<Box<dyn Solver>> {
     vec![
-        Box::new(Qr::default()),
+        Box::new(Qr::new()),
         Box::new(Qr::refined()),
-        Box::new(Qr {
-            refinement: Some(Refinement {
-                max_steps: 0,
-                ..Refinement::default()
-            }),
-            ..Qr::default()
-        }),
-        Box::new(Cholesky::default()),
-        Box::new(Svd::default()),
-        Box::new(Svd {
-            relative_cutoff: Some(1e-3),
-        }),
+        Box::new(Qr::new().with_refinement(Refinement::new().with_max_iterations(0))),
+        Box::new(Cholesky::new()),
+        Box::new(Svd::new()),
+        Box::new(Svd::new().with_rank_tolerance(1e-3)),
         Box::new(Ridge::new(0.0)),
         Box::new(Ridge::new(1.0)),
-        Box::new(Ridge {
-            method: RidgeMethod::Dual,
-            ..Ridge::new(0.5)
-        }),
-        Box::new(Ridge {
-            method: RidgeMethod::AugmentedQr,
-            standardize: true,
-            ..Ridge::new(1e-9)
-        }),
-        Box::new(Ridge {
-            method: RidgeMethod::Cholesky,
-            ..Ridge::new(1e3)
-        }),
-        Box::new(Ridge {
-            method: RidgeMethod::Svd,
-            ..Ridge::new(1e-3)
-        }),
-        Box::new(GradientDescent {
-            max_iterations: 50,
-            ..Default::default()
-        }),
-        Box::new(Accelerated {
-            max_iterations: 50,
-            penalty: 0.5,
-            ..Default::default()
-        }),
-        Box::new(Stochastic {
-            epochs: 3,
-            ..Default::default()
-        }),
+        Box::new(Ridge::new(0.5).with_factorization(RidgeFactorization::Dual)),
+        Box::new(
+            Ridge::new(1e-9)
+                .with_factorization(RidgeFactorization::AugmentedQr)
+                .with_standardize(true),
+        ),
+        Box::new(Ridge::new(1e3).with_factorization(RidgeFactorization::Cholesky)),
+        Box::new(Ridge::new(1e-3).with_factorization(RidgeFactorization::Svd)),
+        Box::new(GradientDescent::new().with_max_iterations(50)),
+        Box::new(Accelerated::new().with_max_iterations(50).with_penalty(0.5)),
+        Box::new(Stochastic::new().with_max_iterations(3)),
     ]
 }
 
@@ -267,9 +240,9 @@ proptest! {
 
     #[test]
     fn random_bit_patterns_give_results_or_typed_errors(case in case()) {
-        let mut builder = Problem::builder(case.x.view(), case.y.view()).intercept(case.intercept);
+        let mut builder = Problem::builder(case.x.view(), case.y.view()).with_intercept(case.intercept);
         if let Some(w) = &case.w {
-            builder = builder.weights(w.view());
+            builder = builder.with_weights(w.view());
         }
         let Ok(problem) = builder.build() else { return Ok(()) };
         for solver in solvers() {
@@ -286,7 +259,7 @@ proptest! {
                 prop_assert!(loss.is_finite());
             }
             for kind in [CovarianceKind::Classical, CovarianceKind::Hc3] {
-                let options = InferenceOptions::default().covariance(kind);
+                let options = InferenceOptions::new().with_covariance(kind);
                 if let Ok(inf) = Inference::with_options(&problem, &fit, options) {
                     check_inference(&name, &inf, &case, &problem)?;
                 }
@@ -310,7 +283,7 @@ proptest! {
                 check_fit("path", &fit)?;
             }
         }
-        if let Ok(cv) = KFold::new(2, 1).cross_validate(&Qr::default(), &problem) {
+        if let Ok(cv) = RowFolds::new().with_folds(2).with_seed(1).held_out_error(&Qr::new(), &problem) {
             prop_assert!(finite(cv.fold_errors.iter().copied()));
             prop_assert!(finite([cv.mean_error, cv.std_dev, cv.std_error]));
             prop_assert!(round_trips(&cv));
@@ -372,16 +345,16 @@ proptest! {
     #[test]
     fn exact_rescaling_changes_no_statistic(case in exact_case(), (kx, ky, kw) in exponents()) {
         let problem = Problem::builder(case.x.view(), case.y.view())
-            .weights(case.w.view())
+            .with_weights(case.w.view())
             .build()
             .unwrap();
-        let Ok(fit) = Qr::default().fit(&problem) else { return Ok(()) };
+        let Ok(fit) = Qr::new().fit(&problem) else { return Ok(()) };
         let Ok(inf) = fit.inference(&problem) else { return Ok(()) };
         let xs = case.x.mapv(|v| v * p2(kx));
         let ys = case.y.mapv(|v| v * p2(ky));
         let ws = case.w.mapv(|v| v * p2(kw));
-        let scaled = Problem::builder(xs.view(), ys.view()).weights(ws.view()).build().unwrap();
-        for solver in [&Qr::default() as &dyn Solver, &Svd::default(), &Qr::refined()] {
+        let scaled = Problem::builder(xs.view(), ys.view()).with_weights(ws.view()).build().unwrap();
+        for solver in [&Qr::new() as &dyn Solver, &Svd::new(), &Qr::refined()] {
             let reference = solver.fit(&problem).unwrap();
             let other = solver.fit(&scaled).unwrap();
             for (a, b) in other.model.coefficients().iter().zip(reference.model.coefficients()) {
@@ -394,7 +367,7 @@ proptest! {
                 prop_assert!((a - b * p2(ky)).abs() <= 1e-12 * top * p2(ky));
             }
         }
-        let fit_s = Qr::default().fit(&scaled).unwrap();
+        let fit_s = Qr::new().fit(&scaled).unwrap();
         let inf_s = fit_s.inference(&scaled).unwrap();
         for (a, b) in inf_s.estimates().zip(inf.estimates()) {
             prop_assert!(close(a.t, b.t, 1e-9), "t {} vs {}", a.t, b.t);

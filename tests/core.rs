@@ -19,9 +19,9 @@ fn spread(v: ndarray::ArrayView1<'_, f64>) -> f64 {
 
 fn solvers() -> Vec<Box<dyn Solver>> {
     vec![
-        Box::new(Qr::default()),
-        Box::new(Cholesky::default()),
-        Box::new(Svd::default()),
+        Box::new(Qr::new()),
+        Box::new(Cholesky::new()),
+        Box::new(Svd::new()),
     ]
 }
 
@@ -46,8 +46,8 @@ proptest! {
         let n = p + 1 + extra;
         let k = known(seed, n, p, intercept);
         let w = gen::weights(&mut gen::rng(seed ^ 0xabc), n);
-        let mut b = Problem::builder(k.x.view(), k.y.view()).intercept(intercept);
-        if weighted { b = b.weights(w.view()); }
+        let mut b = Problem::builder(k.x.view(), k.y.view()).with_intercept(intercept);
+        if weighted { b = b.with_weights(w.view()); }
         let problem = b.build().unwrap();
         for solver in solvers() {
             let fit = solver.fit(&problem).unwrap();
@@ -77,7 +77,7 @@ proptest! {
         let y = gen::normal_vector(&mut r, n);
         let w = gen::weights(&mut r, n);
         let mut b = Problem::builder(x.view(), y.view());
-        if weighted { b = b.weights(w.view()); }
+        if weighted { b = b.with_weights(w.view()); }
         let problem = b.build().unwrap();
         let fits: Vec<_> = solvers().iter().map(|s| s.fit(&problem).unwrap()).collect();
         let cond = fits[0].report.condition.unwrap();
@@ -98,7 +98,7 @@ proptest! {
         let x = gen::normal_matrix(&mut r, n, p);
         let y = gen::normal_vector(&mut r, n);
         let w = gen::weights(&mut r, n);
-        let problem = Problem::builder(x.view(), y.view()).weights(w.view()).intercept(intercept).build().unwrap();
+        let problem = Problem::builder(x.view(), y.view()).with_weights(w.view()).with_intercept(intercept).build().unwrap();
         for solver in solvers() {
             let fit = solver.fit(&problem).unwrap();
             let res = &y - &fit.model.predict(x.view()).unwrap();
@@ -129,8 +129,8 @@ proptest! {
         let sw = w.mapv(f64::sqrt);
         let xs = &x * &sw.view().insert_axis(Axis(1));
         let ys = &y * &sw;
-        let weighted = Problem::builder(x.view(), y.view()).weights(w.view()).intercept(false).build().unwrap();
-        let scaled = Problem::builder(xs.view(), ys.view()).intercept(false).build().unwrap();
+        let weighted = Problem::builder(x.view(), y.view()).with_weights(w.view()).with_intercept(false).build().unwrap();
+        let scaled = Problem::builder(xs.view(), ys.view()).with_intercept(false).build().unwrap();
         for solver in solvers() {
             let a = solver.fit(&weighted).unwrap();
             let b = solver.fit(&scaled).unwrap();
@@ -156,7 +156,7 @@ fn integer_weights_equal_duplication_and_zero_weight_equals_dropping() {
     let xd = x.select(Axis(0), &rows);
     let yd = y.select(Axis(0), &rows);
     let weighted = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
     let expanded = Problem::new(xd.view(), yd.view()).unwrap();
@@ -184,10 +184,10 @@ fn integer_weights_equal_duplication_and_zero_weight_equals_dropping() {
 
 fn rank_deficient_case(x: &Array2<f64>, y: &Array1<f64>, intercept: bool, expected: &[usize]) {
     let problem = Problem::builder(x.view(), y.view())
-        .intercept(intercept)
+        .with_intercept(intercept)
         .build()
         .unwrap();
-    for solver in [&Qr::default() as &dyn Solver, &Cholesky::default()] {
+    for solver in [&Qr::new() as &dyn Solver, &Cholesky::new()] {
         match solver.fit(&problem) {
             Err(Error::RankDeficient {
                 dependent,
@@ -221,10 +221,10 @@ fn duplicated_and_constant_columns_are_named() {
     rank_deficient_case(&xc, &y, true, &[2]);
     // Without an intercept a constant column is an ordinary regressor.
     let problem = Problem::builder(xc.view(), y.view())
-        .intercept(false)
+        .with_intercept(false)
         .build()
         .unwrap();
-    assert!(Qr::default().fit(&problem).is_ok());
+    assert!(Qr::new().fit(&problem).is_ok());
     // Column 4 = column 0 + 2 * column 1 (a combination, not a copy).
     let mut xs = gen::normal_matrix(&mut r, n, 5);
     let comb = &xs.column(0) + &(&xs.column(1) * 2.0);
@@ -246,7 +246,7 @@ fn svd_gives_the_minimum_norm_solution() {
     x.column_mut(3).assign(&(&c1 * 0.5));
     let y = gen::normal_vector(&mut r, n);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Svd::default().fit(&problem).unwrap();
+    let fit = Svd::new().fit(&problem).unwrap();
     assert_eq!(fit.report.rank, Some(3));
     let means = x.mean_axis(Axis(0)).unwrap();
     let ym = y.mean().unwrap();
@@ -267,7 +267,7 @@ fn svd_gives_the_minimum_norm_solution() {
     let mut xk = x.clone();
     xk.column_mut(4).fill(-2.5);
     let problem = Problem::new(xk.view(), y.view()).unwrap();
-    let fit = Svd::default().fit(&problem).unwrap();
+    let fit = Svd::new().fit(&problem).unwrap();
     assert_eq!(fit.model.coefficients()[4], 0.0);
     assert_eq!(fit.report.rank, Some(3));
 }
@@ -287,7 +287,7 @@ fn every_validation_error_names_what_and_where() {
     );
     assert_eq!(
         Problem::builder(x.view(), y.view())
-            .weights(short.view())
+            .with_weights(short.view())
             .build()
             .unwrap_err(),
         Error::LengthMismatch {
@@ -305,7 +305,7 @@ fn every_validation_error_names_what_and_where() {
     let no_cols = Array2::<f64>::zeros((4, 0));
     assert_eq!(
         Problem::builder(no_cols.view(), y.view())
-            .intercept(false)
+            .with_intercept(false)
             .build()
             .unwrap_err(),
         Error::NothingToFit
@@ -346,7 +346,7 @@ fn every_validation_error_names_what_and_where() {
     let w = array![1.0, -0.5, 1.0, 1.0];
     assert_eq!(
         Problem::builder(x.view(), y.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .unwrap_err(),
         Error::InvalidWeight {
@@ -357,7 +357,7 @@ fn every_validation_error_names_what_and_where() {
     let w = array![1.0, 1.0, f64::NAN, 1.0];
     assert!(matches!(
         Problem::builder(x.view(), y.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .unwrap_err(),
         Error::InvalidWeight { row: 2, .. }
@@ -365,7 +365,7 @@ fn every_validation_error_names_what_and_where() {
     let w = array![0.0, 0.0, 0.0, 0.0];
     assert_eq!(
         Problem::builder(x.view(), y.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .unwrap_err(),
         Error::AllWeightsZero { rows: 4 }
@@ -373,7 +373,7 @@ fn every_validation_error_names_what_and_where() {
     // Two usable rows cannot determine three parameters.
     let w = array![1.0, 0.0, 0.0, 1.0];
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
     for solver in solvers() {
@@ -390,42 +390,37 @@ fn every_validation_error_names_what_and_where() {
     // Bad settings are errors at fit time.
     let problem = Problem::new(x.view(), y.view()).unwrap();
     assert!(matches!(
-        Qr {
-            rank_tolerance: Some(-1.0),
-            ..Default::default()
-        }
-        .fit(&problem)
-        .unwrap_err(),
+        Qr::new()
+            .with_rank_tolerance(-1.0)
+            .fit(&problem)
+            .unwrap_err(),
         Error::InvalidParameter {
             name: "rank_tolerance",
             ..
         }
     ));
     assert!(matches!(
-        Svd {
-            relative_cutoff: Some(f64::NAN)
-        }
-        .fit(&problem)
-        .unwrap_err(),
+        Svd::new()
+            .with_rank_tolerance(f64::NAN)
+            .fit(&problem)
+            .unwrap_err(),
         Error::InvalidParameter {
-            name: "relative_cutoff",
+            name: "rank_tolerance",
             ..
         }
     ));
     assert!(matches!(
-        Cholesky {
-            min_digits: f64::INFINITY,
-            ..Default::default()
-        }
-        .fit(&problem)
-        .unwrap_err(),
+        Cholesky::new()
+            .with_min_digits(f64::INFINITY)
+            .fit(&problem)
+            .unwrap_err(),
         Error::InvalidParameter {
             name: "min_digits",
             ..
         }
     ));
     // Prediction checks its input too.
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     assert_eq!(
         fit.model
             .predict(array![[1.0, 2.0, 3.0]].view())
@@ -524,7 +519,7 @@ fn large_offsets_keep_the_residual_sum_of_squares() {
     let x = gen::normal_matrix(&mut r, 200, 3);
     let y = gen::normal_vector(&mut r, 200);
     let shifted = x.mapv(|v| v + 1e7);
-    let base = Qr::default()
+    let base = Qr::new()
         .fit(&Problem::new(x.view(), y.view()).unwrap())
         .unwrap();
     for solver in solvers() {

@@ -132,12 +132,12 @@ fn check(case: &Case) -> Result<(), TestCaseError> {
     let c = 32.0;
     let tol = c * cond * f64::EPSILON * (1.0 + cond * resid / (norm_a * b_norm));
     let problem = Problem::builder(case.x.view(), case.y.view())
-        .intercept(case.intercept)
+        .with_intercept(case.intercept)
         .build()
         .map_err(|e| TestCaseError::fail(e.to_string()))?;
     let solvers: [(&str, Box<dyn Solver>); 3] = [
-        ("qr", Box::new(Qr::default())),
-        ("svd", Box::new(Svd::default())),
+        ("qr", Box::new(Qr::new())),
+        ("svd", Box::new(Svd::new())),
         ("refined qr", Box::new(Qr::refined())),
     ];
     for (name, solver) in solvers {

@@ -13,7 +13,7 @@
 mod common;
 
 use common::p2;
-use leastline::ridge::{KFold, Ridge, RidgeMethod};
+use leastline::ridge::{Ridge, RidgeFactorization, RowFolds};
 use leastline::{
     Accelerated, Cholesky, Error, GradientDescent, Input, Problem, Qr, Solver, Stochastic, Svd,
 };
@@ -36,33 +36,24 @@ fn base() -> (Array2<f64>, Array1<f64>) {
 
 fn closed_forms() -> Vec<Box<dyn Solver>> {
     vec![
-        Box::new(Qr::default()),
+        Box::new(Qr::new()),
         Box::new(Qr::refined()),
-        Box::new(Cholesky::default()),
-        Box::new(Svd::default()),
+        Box::new(Cholesky::new()),
+        Box::new(Svd::new()),
         Box::new(Ridge::new(0.0)),
-        Box::new(Ridge {
-            method: RidgeMethod::Svd,
-            ..Ridge::new(0.0)
-        }),
+        Box::new(Ridge::new(0.0).with_factorization(RidgeFactorization::Svd)),
     ]
 }
 
 fn all_solvers() -> Vec<Box<dyn Solver>> {
     let mut s = closed_forms();
-    s.push(Box::new(GradientDescent {
-        tolerance: 1e-12,
-        max_iterations: 5000,
-        ..Default::default()
-    }));
-    s.push(Box::new(Accelerated {
-        tolerance: 1e-12,
-        ..Default::default()
-    }));
-    s.push(Box::new(Stochastic {
-        epochs: 20,
-        ..Default::default()
-    }));
+    s.push(Box::new(
+        GradientDescent::new()
+            .with_tolerance(1e-12)
+            .with_max_iterations(5000),
+    ));
+    s.push(Box::new(Accelerated::new().with_tolerance(1e-12)));
+    s.push(Box::new(Stochastic::new().with_max_iterations(20)));
     s
 }
 
@@ -147,7 +138,7 @@ fn sums_of_squares_beyond_the_range_are_typed_errors() {
         }
     }
     // The model's own measures stay finite: R² is scale-free.
-    let fit = Qr::default()
+    let fit = Qr::new()
         .fit(&Problem::new(x.view(), y.view()).unwrap())
         .unwrap();
     let r2 = fit.model.r_squared(x.view(), y.view()).unwrap();
@@ -198,7 +189,7 @@ fn weights_too_small_to_scale_are_refused() {
     let mut w = Array1::from_elem(24, p2(33));
     w[3] = p2(-1074);
     match Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
     {
         Err(Error::WeightRange { row: 3, .. }) => {}
@@ -207,7 +198,7 @@ fn weights_too_small_to_scale_are_refused() {
     // A weight ratio of 2^1000 is representable and used.
     w[3] = p2(-967);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
     assert_eq!(problem.usable_rows(), 24);
@@ -223,28 +214,24 @@ fn ridge_with_tiny_or_huge_weights_is_exact() {
     for (kw, lambda) in [(-1000, 0.75), (-1074, 3.0), (1000, 0.5)] {
         let w = Array1::from_elem(24, p2(kw));
         let weighted = Problem::builder(x.view(), y.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .unwrap();
         for method in [
-            RidgeMethod::Auto,
-            RidgeMethod::Cholesky,
-            RidgeMethod::AugmentedQr,
-            RidgeMethod::Svd,
-            RidgeMethod::Dual,
+            RidgeFactorization::ByShape,
+            RidgeFactorization::Cholesky,
+            RidgeFactorization::AugmentedQr,
+            RidgeFactorization::Svd,
+            RidgeFactorization::Dual,
         ] {
-            let a = Ridge {
-                method,
-                ..Ridge::new(lambda)
-            }
-            .fit(&unit)
-            .unwrap();
-            let b = Ridge {
-                method,
-                ..Ridge::new(lambda * p2(kw))
-            }
-            .fit(&weighted)
-            .unwrap();
+            let a = Ridge::new(lambda)
+                .with_factorization(method)
+                .fit(&unit)
+                .unwrap();
+            let b = Ridge::new(lambda * p2(kw))
+                .with_factorization(method)
+                .fit(&weighted)
+                .unwrap();
             for j in 0..2 {
                 let (u, v) = (a.model.coefficients()[j], b.model.coefficients()[j]);
                 assert!(close(v, u, 1e-12), "{method:?} 2^{kw}: {v:e} vs {u:e}");
@@ -263,7 +250,7 @@ fn ridge_with_tiny_or_huge_weights_is_exact() {
 fn inference_does_not_depend_on_the_units() {
     let (x, y) = base();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let reference = Qr::default()
+    let reference = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)
@@ -280,10 +267,10 @@ fn inference_does_not_depend_on_the_units() {
         let ys = y.mapv(|v| v * p2(ky));
         let w = Array1::from_elem(24, p2(kw));
         let scaled = Problem::builder(xs.view(), ys.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .unwrap();
-        let fit = Qr::default().fit(&scaled).unwrap();
+        let fit = Qr::new().fit(&scaled).unwrap();
         let inf = fit
             .inference(&scaled)
             .unwrap_or_else(|e| panic!("2^{kx}, 2^{ky}, 2^{kw}: {e}"));
@@ -344,16 +331,16 @@ fn inference_does_not_depend_on_the_units() {
 fn model_measures_and_fold_errors_do_not_overflow() {
     let (x, y) = base();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let cv = KFold::new(3, 11);
-    let reference = cv.cross_validate(&Qr::default(), &problem).unwrap();
+    let cv = RowFolds::new().with_folds(3).with_seed(11);
+    let reference = cv.held_out_error(&Qr::new(), &problem).unwrap();
     // Weights near 1e308: their sum (and each weighted square) overflows;
     // the scores must not change.
     let w = Array1::from_elem(24, p2(1023));
     let heavy = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
-    let scores = cv.cross_validate(&Qr::default(), &heavy).unwrap();
+    let scores = cv.held_out_error(&Qr::new(), &heavy).unwrap();
     for (a, b) in scores.fold_errors.iter().zip(&reference.fold_errors) {
         assert!(close(*a, *b, 1e-12), "{a:e} vs {b:e}");
     }
@@ -361,13 +348,13 @@ fn model_measures_and_fold_errors_do_not_overflow() {
     // Targets near 1e150: fold errors near 1e300, still representable.
     let ys = y.mapv(|v| v * p2(498));
     let tall = Problem::new(x.view(), ys.view()).unwrap();
-    let scores = cv.cross_validate(&Qr::default(), &tall).unwrap();
+    let scores = cv.held_out_error(&Qr::new(), &tall).unwrap();
     for (a, b) in scores.fold_errors.iter().zip(&reference.fold_errors) {
         assert!(close(*a, *b * p2(996), 1e-10), "{a:e} vs {b:e}");
     }
     assert!(scores.std_dev.is_finite() && scores.std_error.is_finite());
     // R² of targets near 1e300 (their squares overflow).
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let r2 = fit.model.r_squared(x.view(), y.view()).unwrap();
     let ys = y.mapv(|v| v * p2(1000));
     let big = leastline::LinearModel::new(

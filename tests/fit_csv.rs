@@ -81,12 +81,12 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
     let file = scratch.write("vineyard.csv", &records.csv);
     let (x, y, w) = arrays(&records);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .expect("valid problem");
     let no_intercept = Problem::builder(x.view(), y.view())
-        .weights(w.view())
-        .intercept(false)
+        .with_weights(w.view())
+        .with_intercept(false)
         .build()
         .expect("valid problem");
     let common = [
@@ -102,26 +102,18 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
         "--block-rows",
         "7",
     ];
-    let gradient = GradientDescent {
-        tolerance: 1e-11,
-        max_iterations: 40_000,
-        ..GradientDescent::default()
-    };
-    let accelerated = Accelerated {
-        tolerance: 1e-11,
-        max_iterations: 40_000,
-        ..Accelerated::default()
-    };
-    let stochastic = Stochastic {
-        seed: 7,
-        epochs: 30,
-        ..Stochastic::default()
-    };
+    let gradient = GradientDescent::new()
+        .with_tolerance(1e-11)
+        .with_max_iterations(40_000);
+    let accelerated = Accelerated::new()
+        .with_tolerance(1e-11)
+        .with_max_iterations(40_000);
+    let stochastic = Stochastic::new().with_seed(7).with_max_iterations(30);
     let cases: Vec<(&str, Vec<&str>, Fit)> = vec![
         (
             "qr",
             vec!["--solver", "qr"],
-            Qr::default().fit(&problem).unwrap(),
+            Qr::new().fit(&problem).unwrap(),
         ),
         (
             "qr-refined",
@@ -131,12 +123,12 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
         (
             "cholesky",
             vec!["--solver", "cholesky"],
-            Cholesky::default().fit(&problem).unwrap(),
+            Cholesky::new().fit(&problem).unwrap(),
         ),
         (
             "svd",
             vec!["--solver", "svd"],
-            Svd::default().fit(&problem).unwrap(),
+            Svd::new().fit(&problem).unwrap(),
         ),
         (
             "ridge 2.5",
@@ -146,12 +138,10 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
         (
             "ridge 40 standardized",
             vec!["--solver", "ridge", "--penalty", "40", "--standardize"],
-            Ridge {
-                standardize: true,
-                ..Ridge::new(40.0)
-            }
-            .fit(&problem)
-            .unwrap(),
+            Ridge::new(40.0)
+                .with_standardize(true)
+                .fit(&problem)
+                .unwrap(),
         ),
         (
             "gradient",
@@ -199,13 +189,11 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
                 "--tolerance",
                 "1e-11",
             ],
-            GradientDescent {
-                penalty: 3.0,
-                tolerance: 1e-11,
-                ..GradientDescent::default()
-            }
-            .fit(&problem)
-            .unwrap(),
+            GradientDescent::new()
+                .with_penalty(3.0)
+                .with_tolerance(1e-11)
+                .fit(&problem)
+                .unwrap(),
         ),
     ];
     for (case, extra, fit) in &cases {
@@ -223,7 +211,7 @@ fn every_solver_fits_the_file_as_the_library_fits_the_arrays() {
     let json = run_json(&args);
     assert_matches(
         &json,
-        &Qr::default().fit(&no_intercept).unwrap(),
+        &Qr::new().fit(&no_intercept).unwrap(),
         false,
         12.0,
         "no intercept",
@@ -261,10 +249,10 @@ fn the_report_carries_the_inference_of_the_fit() {
     let file = scratch.write("v.csv", &records.csv);
     let (x, y, w) = arrays(&records);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
-    let inference = Qr::default()
+    let inference = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)
@@ -758,14 +746,14 @@ fn predictions_with_intervals_from_the_fit_and_from_the_saved_model() {
     // The library's own predictions of the same rows.
     let (x, y, w) = arrays(&records);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let inference = leastline::Inference::with_options(
         &problem,
         &fit,
-        leastline::InferenceOptions::default().level(0.9),
+        leastline::InferenceOptions::new().with_level(0.9),
     )
     .unwrap();
     let new_x = Array2::from_shape_fn((25, 4), |(i, j)| fresh.x[i][j]);
@@ -980,10 +968,10 @@ fn the_comparison_runs_every_solver_side_by_side() {
     assert_eq!(json["reference"], "qr-refined");
     let (x, y, w) = arrays(&records);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
-    let qr = Qr::default().fit(&problem).unwrap();
+    let qr = Qr::new().fit(&problem).unwrap();
     assert_matches(
         &serde_json::json!({
             "coefficients": solvers[0]["coefficients"],

@@ -38,9 +38,9 @@ struct Case {
 
 impl Case {
     fn problem(&self) -> Problem<'_> {
-        let mut b = Problem::builder(self.x.view(), self.y.view()).intercept(self.intercept);
+        let mut b = Problem::builder(self.x.view(), self.y.view()).with_intercept(self.intercept);
         if let Some(w) = &self.w {
-            b = b.weights(w.view());
+            b = b.with_weights(w.view());
         }
         b.build().expect("valid generated problem")
     }
@@ -193,35 +193,29 @@ fn iterations(fit: &Fit) -> &leastline::IterationReport {
 }
 
 fn gd(tolerance: f64, penalty: f64) -> GradientDescent {
-    GradientDescent {
-        tolerance,
-        penalty,
-        max_iterations: 100_000,
-        history_stride: 0,
-        ..GradientDescent::default()
-    }
+    GradientDescent::new()
+        .with_tolerance(tolerance)
+        .with_penalty(penalty)
+        .with_max_iterations(100_000)
+        .with_history_stride(0)
 }
 
 fn acc(tolerance: f64, penalty: f64) -> Accelerated {
-    Accelerated {
-        tolerance,
-        penalty,
-        max_iterations: 100_000,
-        history_stride: 0,
-        ..Accelerated::default()
-    }
+    Accelerated::new()
+        .with_tolerance(tolerance)
+        .with_penalty(penalty)
+        .with_max_iterations(100_000)
+        .with_history_stride(0)
 }
 
 fn sgd(seed: u64, penalty: f64) -> Stochastic {
-    Stochastic {
-        seed,
-        penalty,
-        epochs: 400,
-        batch_size: 16,
-        tolerance: 1e-9,
-        history_stride: 0,
-        ..Stochastic::default()
-    }
+    Stochastic::new()
+        .with_seed(seed)
+        .with_penalty(penalty)
+        .with_max_iterations(400)
+        .with_batch_size(16)
+        .with_tolerance(1e-9)
+        .with_history_stride(0)
 }
 
 /// Proptest settings: the seed from `PROPTEST_RNG_SEED` (CI fixes it), 32
@@ -248,7 +242,7 @@ proptest! {
     ) {
         let case = generate(n, p, seed, weighted, intercept, 0.3);
         let problem = case.problem();
-        let qr = Qr::default().fit(&problem).expect("qr");
+        let qr = Qr::new().fit(&problem).expect("qr");
         let (b, b0) = reference(&case, 0.0);
         prop_assert!(error(&case, &qr.model, &b, b0) < 1e-9, "references disagree");
         let lambda = penalty_for(&case, fraction);
@@ -310,20 +304,20 @@ fn nist_certified_values_to_eight_digits() {
     for name in ["Norris", "Pontius", "NoInt1", "NoInt2", "Longley"] {
         let d = nist::load(name);
         let problem = Problem::builder(d.x.view(), d.y.view())
-            .intercept(d.intercept)
+            .with_intercept(d.intercept)
             .build()
             .expect("nist problem");
         let solvers: [Box<dyn Solver>; 2] = [
-            Box::new(GradientDescent {
-                tolerance: 1e-13,
-                max_iterations: 1_000_000,
-                ..GradientDescent::default()
-            }),
-            Box::new(Accelerated {
-                tolerance: 1e-13,
-                max_iterations: 1_000_000,
-                ..Accelerated::default()
-            }),
+            Box::new(
+                GradientDescent::new()
+                    .with_tolerance(1e-13)
+                    .with_max_iterations(1_000_000),
+            ),
+            Box::new(
+                Accelerated::new()
+                    .with_tolerance(1e-13)
+                    .with_max_iterations(1_000_000),
+            ),
         ];
         for solver in &solvers {
             let fit = solver.fit(&problem).expect("fit");
@@ -374,16 +368,11 @@ fn results_do_not_depend_on_the_thread_count() {
             .build()
             .expect("pool");
         pool.install(|| {
-            let s = Stochastic {
-                batch_size: 3000,
-                epochs: 5,
-                seed: 9,
-                ..Stochastic::default()
-            };
-            let g = GradientDescent {
-                max_iterations: 20,
-                ..GradientDescent::default()
-            };
+            let s = Stochastic::new()
+                .with_batch_size(3000)
+                .with_max_iterations(5)
+                .with_seed(9);
+            let g = GradientDescent::new().with_max_iterations(20);
             (
                 s.fit(&problem).expect("sgd").model,
                 g.fit(&problem).expect("gd").model,
@@ -401,26 +390,16 @@ fn step_above_the_stability_limit_is_a_divergence_error() {
     let problem = case.problem();
     // The default step is 1 / L with L estimated from below, so ten times
     // it is at least 10 / L: five times the stability limit 2 / L.
-    let default_step = iterations(&GradientDescent::default().fit(&problem).expect("fit")).step;
+    let default_step = iterations(&GradientDescent::new().fit(&problem).expect("fit")).step;
     let step = 10.0 * default_step;
     let results = [
-        GradientDescent {
-            step: Some(step),
-            ..GradientDescent::default()
-        }
-        .fit(&problem),
-        Accelerated {
-            step: Some(step),
-            ..Accelerated::default()
-        }
-        .fit(&problem),
-        Stochastic {
-            step: Some(step),
-            batch_size: 200,
-            decay: 0.0,
-            ..Stochastic::default()
-        }
-        .fit(&problem),
+        GradientDescent::new().with_step(step).fit(&problem),
+        Accelerated::new().with_step(step).fit(&problem),
+        Stochastic::new()
+            .with_step(step)
+            .with_batch_size(200)
+            .with_decay(0.0)
+            .fit(&problem),
     ];
     for result in results {
         match result {
@@ -498,24 +477,18 @@ fn observer_stop_ends_the_fit_there_and_says_so() {
         }
     };
     let fits = [
-        GradientDescent {
-            tolerance: 0.0,
-            fail_if_not_converged: true,
-            ..GradientDescent::default()
-        }
-        .fit_observed(&problem, &mut stop_at_k),
-        Accelerated {
-            tolerance: 0.0,
-            fail_if_not_converged: true,
-            ..Accelerated::default()
-        }
-        .fit_observed(&problem, &mut stop_at_k),
-        Stochastic {
-            tolerance: 0.0,
-            fail_if_not_converged: true,
-            ..Stochastic::default()
-        }
-        .fit_observed(&problem, &mut stop_at_k),
+        GradientDescent::new()
+            .with_tolerance(0.0)
+            .with_fail_if_not_converged(true)
+            .fit_observed(&problem, &mut stop_at_k),
+        Accelerated::new()
+            .with_tolerance(0.0)
+            .with_fail_if_not_converged(true)
+            .fit_observed(&problem, &mut stop_at_k),
+        Stochastic::new()
+            .with_tolerance(0.0)
+            .with_fail_if_not_converged(true)
+            .fit_observed(&problem, &mut stop_at_k),
     ];
     for fit in fits {
         // A stop asked for is not a convergence failure, even with the option.
@@ -528,15 +501,13 @@ fn observer_stop_ends_the_fit_there_and_says_so() {
     }
     // Gradient descent's coefficients after the stop are those of a run
     // limited to k iterations.
-    let stopped = GradientDescent::default()
+    let stopped = GradientDescent::new()
         .fit_observed(&problem, &mut stop_at_k)
         .expect("fit");
-    let limited = GradientDescent {
-        max_iterations: k,
-        ..GradientDescent::default()
-    }
-    .fit(&problem)
-    .expect("fit");
+    let limited = GradientDescent::new()
+        .with_max_iterations(k)
+        .fit(&problem)
+        .expect("fit");
     assert_eq!(stopped.model, limited.model);
     assert!(!iterations(&limited).stopped_by_observer);
 }
@@ -545,20 +516,15 @@ fn observer_stop_ends_the_fit_there_and_says_so() {
 fn iteration_limit_is_visible_and_optionally_an_error() {
     let case = generate(100, 4, 31, false, true, 0.5);
     let problem = case.problem();
-    let solver = GradientDescent {
-        tolerance: 1e-14,
-        max_iterations: 2,
-        ..GradientDescent::default()
-    };
+    let solver = GradientDescent::new()
+        .with_tolerance(1e-14)
+        .with_max_iterations(2);
     let fit = solver.fit(&problem).expect("fit");
     let report = iterations(&fit);
     assert!(!report.converged && !report.stopped_by_observer);
     assert_eq!(report.iterations, 2);
     assert!(report.gradient_norm > 1e-14);
-    let strict = GradientDescent {
-        fail_if_not_converged: true,
-        ..solver
-    };
+    let strict = solver.with_fail_if_not_converged(true);
     match strict.fit(&problem) {
         Err(Error::NotConverged {
             iterations,
@@ -571,22 +537,18 @@ fn iteration_limit_is_visible_and_optionally_an_error() {
         }
         other => panic!("expected NotConverged, got {other:?}"),
     }
-    let sgd = Stochastic {
-        epochs: 1,
-        tolerance: 1e-14,
-        fail_if_not_converged: true,
-        ..Stochastic::default()
-    };
+    let sgd = Stochastic::new()
+        .with_max_iterations(1)
+        .with_tolerance(1e-14)
+        .with_fail_if_not_converged(true);
     assert!(matches!(
         sgd.fit(&problem),
         Err(Error::NotConverged { iterations: 1, .. })
     ));
-    let acc = Accelerated {
-        max_iterations: 1,
-        tolerance: 1e-14,
-        fail_if_not_converged: true,
-        ..Accelerated::default()
-    };
+    let acc = Accelerated::new()
+        .with_max_iterations(1)
+        .with_tolerance(1e-14)
+        .with_fail_if_not_converged(true);
     assert!(matches!(
         acc.fit(&problem),
         Err(Error::NotConverged { iterations: 1, .. })
@@ -597,24 +559,14 @@ fn iteration_limit_is_visible_and_optionally_an_error() {
 fn warm_start_at_the_optimum_converges_at_once() {
     let case = generate(300, 4, 77, true, true, 0.3);
     let problem = case.problem();
-    let qr = Qr::default().fit(&problem).expect("qr");
-    let start = Some(qr.model.clone());
+    let qr = Qr::new().fit(&problem).expect("qr");
+    let start = qr.model.clone();
     let fits = [
-        GradientDescent {
-            start: start.clone(),
-            ..GradientDescent::default()
-        }
-        .fit(&problem),
-        Accelerated {
-            start: start.clone(),
-            ..Accelerated::default()
-        }
-        .fit(&problem),
-        Stochastic {
-            start,
-            ..Stochastic::default()
-        }
-        .fit(&problem),
+        GradientDescent::new()
+            .with_start(start.clone())
+            .fit(&problem),
+        Accelerated::new().with_start(start.clone()).fit(&problem),
+        Stochastic::new().with_start(start).fit(&problem),
     ];
     for fit in fits {
         let fit = fit.expect("fit");
@@ -628,13 +580,7 @@ fn warm_start_at_the_optimum_converges_at_once() {
     let far = LinearModel::new(Array1::from(vec![5.0, -5.0, 1.0, 2.0]), 0.0).expect("finite");
     let fit = gd(1e-11, 0.0)
         .fit(&problem)
-        .and_then(|_| {
-            GradientDescent {
-                start: Some(far),
-                ..gd(1e-11, 0.0)
-            }
-            .fit(&problem)
-        })
+        .and_then(|_| gd(1e-11, 0.0).with_start(far).fit(&problem))
         .expect("fit");
     let (b, b0) = reference(&case, 0.0);
     assert!(error(&case, &fit.model, &b, b0) < 1e-8);
@@ -653,7 +599,7 @@ fn final_loss_and_residual_sum_of_squares_match_their_definitions() {
         .expect("loss");
     let report = iterations(&fit);
     assert!((report.final_loss - direct).abs() <= 1e-12 * direct);
-    let qr = Qr::default().fit(&problem).expect("qr");
+    let qr = Qr::new().fit(&problem).expect("qr");
     let rel = (fit.report.residual_sum_of_squares - qr.report.residual_sum_of_squares).abs()
         / qr.report.residual_sum_of_squares;
     assert!(rel < 1e-10, "rss relative difference {rel:e}");
@@ -688,7 +634,7 @@ fn zero_weight_rows_are_the_same_as_dropped_rows() {
     let w2 = w.select(ndarray::Axis(0), &keep);
     let full = case.problem();
     let dropped = Problem::builder(x2.view(), y2.view())
-        .weights(w2.view())
+        .with_weights(w2.view())
         .build()
         .expect("problem");
     let a = acc(1e-12, 0.0).fit(&full).expect("fit");
@@ -715,7 +661,7 @@ fn memory_layout_does_not_change_the_optimum() {
     let w = case.w.as_ref().expect("weights");
     for view in [fortran.view(), strided] {
         let problem = Problem::builder(view, case.y.view())
-            .weights(w.view())
+            .with_weights(w.view())
             .build()
             .expect("problem");
         for fit in [
@@ -733,32 +679,24 @@ fn memory_layout_does_not_change_the_optimum() {
 fn history_is_thinned_as_asked() {
     let case = generate(100, 3, 71, false, true, 0.3);
     let problem = case.problem();
-    let solver = GradientDescent {
-        max_iterations: 10,
-        tolerance: 0.0,
-        history_stride: 4,
-        ..GradientDescent::default()
-    };
+    let solver = GradientDescent::new()
+        .with_max_iterations(10)
+        .with_tolerance(0.0)
+        .with_history_stride(4);
     let fit = solver.fit(&problem).expect("fit");
     let report = iterations(&fit);
     // Iterations 0, 4, 8 and the last one, 10.
     assert_eq!(report.loss_history.len(), 4);
     assert_eq!(report.loss_history.last(), Some(&report.final_loss));
-    let every = GradientDescent {
-        history_stride: 1,
-        ..solver.clone()
-    }
-    .fit(&problem)
-    .expect("fit");
+    let every = solver
+        .clone()
+        .with_history_stride(1)
+        .fit(&problem)
+        .expect("fit");
     let all = &iterations(&every).loss_history;
     assert_eq!(all.len(), 11);
     assert_eq!(report.loss_history, vec![all[0], all[4], all[8], all[10]]);
-    let none = GradientDescent {
-        history_stride: 0,
-        ..solver
-    }
-    .fit(&problem)
-    .expect("fit");
+    let none = solver.with_history_stride(0).fit(&problem).expect("fit");
     assert!(iterations(&none).loss_history.is_empty());
 }
 
@@ -771,49 +709,21 @@ fn invalid_settings_are_typed_errors() {
         other => panic!("expected InvalidParameter({name}), got {other:?}"),
     };
     bad(
-        GradientDescent {
-            tolerance: -1.0,
-            ..GradientDescent::default()
-        }
-        .fit(&problem),
+        GradientDescent::new().with_tolerance(-1.0).fit(&problem),
         "tolerance",
     );
+    bad(Accelerated::new().with_step(0.0).fit(&problem), "step");
     bad(
-        Accelerated {
-            step: Some(0.0),
-            ..Accelerated::default()
-        }
-        .fit(&problem),
-        "step",
-    );
-    bad(
-        GradientDescent {
-            penalty: f64::NAN,
-            ..GradientDescent::default()
-        }
-        .fit(&problem),
+        GradientDescent::new().with_penalty(f64::NAN).fit(&problem),
         "penalty",
     );
     bad(
-        Stochastic {
-            batch_size: 0,
-            ..Stochastic::default()
-        }
-        .fit(&problem),
+        Stochastic::new().with_batch_size(0).fit(&problem),
         "batch_size",
     );
-    bad(
-        Stochastic {
-            decay: -0.1,
-            ..Stochastic::default()
-        }
-        .fit(&problem),
-        "decay",
-    );
-    let wrong = GradientDescent {
-        start: Some(LinearModel::new(Array1::zeros(3), 0.0).expect("finite")),
-        ..GradientDescent::default()
-    };
+    bad(Stochastic::new().with_decay(-0.1).fit(&problem), "decay");
+    let wrong =
+        GradientDescent::new().with_start(LinearModel::new(Array1::zeros(3), 0.0).expect("finite"));
     assert!(matches!(
         wrong.fit(&problem),
         Err(Error::ColumnCountMismatch {
@@ -839,9 +749,9 @@ fn intercept_only_constant_columns_and_constant_target() {
     let y = Array1::from(vec![1.0, 2.0, 3.0, 4.0, 10.0]);
     let problem = Problem::new(x.view(), y.view()).expect("problem");
     for solver in [
-        Box::new(GradientDescent::default()) as Box<dyn Solver>,
-        Box::new(Accelerated::default()),
-        Box::new(Stochastic::default()),
+        Box::new(GradientDescent::new()) as Box<dyn Solver>,
+        Box::new(Accelerated::new()),
+        Box::new(Stochastic::new()),
     ] {
         let fit = solver.fit(&problem).expect("fit");
         assert_eq!(fit.model.intercept(), 4.0);
@@ -856,14 +766,14 @@ fn intercept_only_constant_columns_and_constant_target() {
     assert_eq!(fit.model.coefficients()[1], 0.0);
     assert_eq!(fit.report.rank, None);
     let x1 = x.slice(s![.., ..1]);
-    let reference = Qr::default()
+    let reference = Qr::new()
         .fit(&Problem::new(x1, y.view()).expect("problem"))
         .expect("qr");
     assert!((fit.model.coefficients()[0] - reference.model.coefficients()[0]).abs() < 1e-10);
     // A constant target: zero slopes, converged at the start.
     let y = Array1::from_elem(5, 3.5);
     let problem = Problem::new(x.view(), y.view()).expect("problem");
-    let fit = Accelerated::default().fit(&problem).expect("fit");
+    let fit = Accelerated::new().fit(&problem).expect("fit");
     assert_eq!(fit.model.coefficients()[0], 0.0);
     assert_eq!(fit.model.intercept(), 3.5);
     assert_eq!(iterations(&fit).iterations, 0);

@@ -25,10 +25,10 @@ const MIN_LRE: f64 = 9.0;
 fn nist_lres(name: &str) -> (Vec<f64>, f64, f64, f64) {
     let d = nist::load(name);
     let problem = Problem::builder(d.x.view(), d.y.view())
-        .intercept(d.intercept)
+        .with_intercept(d.intercept)
         .build()
         .unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let inf = Inference::new(&problem, &fit).unwrap();
     // NIST lists B0 (the intercept) first; our covariance puts it last.
     let ours: Vec<f64> = inf
@@ -84,10 +84,10 @@ fn nist_noint1_certified_inference() {
     check_nist("NoInt1");
     let d = nist::load("NoInt1");
     let problem = Problem::builder(d.x.view(), d.y.view())
-        .intercept(false)
+        .with_intercept(false)
         .build()
         .unwrap();
-    let inf = Qr::default()
+    let inf = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)
@@ -121,7 +121,7 @@ fn nist_longley_certified_inference() {
 fn inference_does_not_depend_on_the_solver() {
     let d = nist::load("Longley");
     let problem = Problem::new(d.x.view(), d.y.view()).unwrap();
-    let svd = Svd::default().fit(&problem).unwrap();
+    let svd = Svd::new().fit(&problem).unwrap();
     let inf = Inference::new(&problem, &svd).unwrap();
     for (e, (_, sd)) in inf.coefficients.iter().zip(d.certified.coefficients.iter()) {
         assert!(lre(e.std_error, *sd) >= MIN_LRE);
@@ -253,12 +253,12 @@ fn intervals_p_values_and_likelihood_follow_their_definitions() {
     let (x, y) = downtime();
     let w = array![1.0, 2.0, 0.5, 1.0, 1.5, 1.0, 0.0, 2.0, 1.0, 0.7, 1.0, 1.2];
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let inf =
-        Inference::with_options(&problem, &fit, InferenceOptions::default().level(0.9)).unwrap();
+        Inference::with_options(&problem, &fit, InferenceOptions::new().with_level(0.9)).unwrap();
     assert_eq!(inf.usable_rows, 11); // the zero weight does not count
     assert_eq!(inf.residual_df, 11 - 3);
     let t = student_t_quantile(0.95, 8.0).unwrap();
@@ -342,7 +342,7 @@ fn intervals_cover_at_about_the_nominal_level() {
             y[i] = truth(x[[i, 0]], x[[i, 1]]) + 1.5 * standard_normal(&mut rng);
         }
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         let inf = Inference::new(&problem, &fit).unwrap();
         let pred = inf.predict(x_new.view()).unwrap();
         for r in 0..2 {
@@ -357,7 +357,7 @@ fn intervals_cover_at_about_the_nominal_level() {
         let hc3 = Inference::with_options(
             &problem,
             &fit,
-            InferenceOptions::default().covariance(CovarianceKind::Hc3),
+            InferenceOptions::new().with_covariance(CovarianceKind::Hc3),
         )
         .unwrap();
         let s = &hc3.coefficients[0];
@@ -397,7 +397,7 @@ fn rank_deficient_fits_are_refused() {
     let x = array![[1.0, 2.0], [2.0, 4.0], [3.0, 6.0], [4.0, 8.0], [5.0, 10.0]];
     let y = array![1.0, 2.1, 2.9, 4.2, 5.0];
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Svd::default().fit(&problem).unwrap();
+    let fit = Svd::new().fit(&problem).unwrap();
     assert_eq!(fit.report.rank, Some(1));
     match Inference::new(&problem, &fit) {
         Err(Error::InferenceRefused {
@@ -415,7 +415,7 @@ fn rank_deficient_fits_are_refused() {
 fn penalised_fits_are_refused() {
     let (x, y) = downtime();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let mut fit = Qr::default().fit(&problem).unwrap();
+    let mut fit = Qr::new().fit(&problem).unwrap();
     fit.report.penalty = 0.25;
     let err = Inference::new(&problem, &fit).unwrap_err();
     assert_eq!(
@@ -432,7 +432,7 @@ fn no_residual_degrees_of_freedom_is_refused() {
     let x = array![[1.0], [2.0]];
     let y = array![3.0, 5.0];
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     assert_eq!(
         Inference::new(&problem, &fit).unwrap_err(),
         Error::InferenceRefused {
@@ -457,8 +457,8 @@ fn hc3_refuses_a_row_of_leverage_one() {
     ];
     let y = array![1.1, 1.9, 3.2, 3.9, 5.1, 9.0];
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
-    let hc3 = InferenceOptions::default().covariance(CovarianceKind::Hc3);
+    let fit = Qr::new().fit(&problem).unwrap();
+    let hc3 = InferenceOptions::new().with_covariance(CovarianceKind::Hc3);
     match Inference::with_options(&problem, &fit, hc3) {
         Err(Error::InferenceRefused {
             refusal: InferenceRefusal::LeverageOne { row: 5, .. },
@@ -466,7 +466,7 @@ fn hc3_refuses_a_row_of_leverage_one() {
         other => panic!("expected a leverage refusal, got {other:?}"),
     }
     // HC0 is defined, and the diagnostics mark the row as undefined.
-    let hc0 = InferenceOptions::default().covariance(CovarianceKind::Hc0);
+    let hc0 = InferenceOptions::new().with_covariance(CovarianceKind::Hc0);
     let inf = Inference::with_options(&problem, &fit, hc0).unwrap();
     let d = inf.diagnostics(&problem).unwrap();
     assert!((d.leverage[5] - 1.0).abs() < 1e-12);
@@ -479,10 +479,10 @@ fn hc3_refuses_a_row_of_leverage_one() {
 fn arguments_are_checked() {
     let (x, y) = downtime();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     for level in [0.0, 1.0, f64::NAN, -0.5] {
         assert!(matches!(
-            Inference::with_options(&problem, &fit, InferenceOptions::default().level(level)),
+            Inference::with_options(&problem, &fit, InferenceOptions::new().with_level(level)),
             Err(Error::InvalidParameter { name: "level", .. })
         ));
     }
@@ -535,7 +535,7 @@ fn arguments_are_checked() {
 fn summary_names_every_parameter_in_our_own_layout() {
     let (x, y) = downtime();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let inf = Qr::default()
+    let inf = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)
@@ -559,7 +559,7 @@ fn summary_names_every_parameter_in_our_own_layout() {
 fn inference_round_trips_through_json() {
     let (x, y) = downtime();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let inf = Qr::default()
+    let inf = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)

@@ -147,9 +147,9 @@ fn problem_of<'a>(
     w: &'a Option<Array1<f64>>,
     intercept: bool,
 ) -> Problem<'a> {
-    let mut b = Problem::builder(x.view(), y.view()).intercept(intercept);
+    let mut b = Problem::builder(x.view(), y.view()).with_intercept(intercept);
     if let Some(w) = w {
-        b = b.weights(w.view());
+        b = b.with_weights(w.view());
     }
     b.build().unwrap()
 }
@@ -177,7 +177,7 @@ proptest! {
 
         let wa = ws.map(Array1::from);
         let problem = problem_of(&x, &y, &wa, intercept);
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
 
         // Classical: sigma^2 (X~^T X~)^-1.
         let inf = Inference::new(&problem, &fit).unwrap();
@@ -189,7 +189,7 @@ proptest! {
         }
 
         for kind in [CovarianceKind::Hc0, CovarianceKind::Hc1, CovarianceKind::Hc2, CovarianceKind::Hc3] {
-            let inf = Inference::with_options(&problem, &fit, InferenceOptions::default().covariance(kind)).unwrap();
+            let inf = Inference::with_options(&problem, &fit, InferenceOptions::new().with_covariance(kind)).unwrap();
             assert_close_matrix(&inf.covariance, &b.sandwich(kind), 1e-9, kind.name());
             // The standard errors are the square roots of the diagonal.
             for (i, se) in inf.std_errors().iter().enumerate() {
@@ -223,7 +223,7 @@ proptest! {
 
         let wa = ws.map(Array1::from);
         let problem = problem_of(&x, &y, &wa, intercept);
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         let inf = Inference::new(&problem, &fit).unwrap();
         let diag = inf.diagnostics(&problem).unwrap();
         let s2 = full.sigma2();
@@ -283,11 +283,11 @@ proptest! {
         prop_assume!(b.leverage().iter().all(|&v| v < 1.0 - 1e-6));
         let wa = ws.map(Array1::from);
         let problem = problem_of(&x, &y, &wa, intercept);
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         let x_new = Array2::from_shape_vec((2, p), new[..2 * p].to_vec()).unwrap();
         let w_new = Array1::from(vec![1.0, w0]);
         for kind in [CovarianceKind::Classical, CovarianceKind::Hc3] {
-            let inf = Inference::with_options(&problem, &fit, InferenceOptions::default().covariance(kind)).unwrap();
+            let inf = Inference::with_options(&problem, &fit, InferenceOptions::new().with_covariance(kind)).unwrap();
             let cov = if kind == CovarianceKind::Classical { &b.inv * b.sigma2() } else { b.sandwich(kind) };
             let pred = inf.predict_weighted(x_new.view(), w_new.view()).unwrap();
             for r in 0..2 {
@@ -327,7 +327,7 @@ fn vifs_and_condition_number_match_auxiliary_regressions() {
     ];
     let y = ndarray::array![6.1, 7.4, 4.9, 8.8, 6.5, 10.2, 7.0, 9.1, 5.3, 7.7];
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let inf = Qr::default()
+    let inf = Qr::new()
         .fit(&problem)
         .unwrap()
         .inference(&problem)
@@ -398,7 +398,7 @@ fn blocked_passes_match_row_by_row_formulas() {
         .collect();
     let wa = Some(Array1::from(w.clone()));
     let problem = problem_of(&x, &y, &wa, true);
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let k = p + 1;
     // Row-by-row accumulation in centered coordinates: rows sqrt(w) (x - m, 1)
     // with the weighted means m, parameters (b, a) with a = b0 + m . b. This is
@@ -455,9 +455,12 @@ fn blocked_passes_match_row_by_row_formulas() {
             meat *= usable as f64 / (usable - k) as f64;
         }
         let theirs = to_caller(&inv * meat * &inv);
-        let ours =
-            Inference::with_options(&problem, &fit, InferenceOptions::default().covariance(kind))
-                .unwrap();
+        let ours = Inference::with_options(
+            &problem,
+            &fit,
+            InferenceOptions::new().with_covariance(kind),
+        )
+        .unwrap();
         assert_close_matrix(&ours.covariance, &theirs, 1e-9, kind.name());
     }
     let d = inf.diagnostics(&problem).unwrap();

@@ -37,15 +37,13 @@ fn correlated(n: usize) -> (Array2<f64>, Array1<f64>) {
 fn inference_refuses_a_converged_fit_far_from_the_solution() {
     let (x, y) = correlated(2000);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let exact_fit = Qr::default().fit(&problem).unwrap();
+    let exact_fit = Qr::new().fit(&problem).unwrap();
     let reference = exact_fit.inference(&problem).unwrap();
     assert!(reference.fit_distance <= MAX_FIT_DISTANCE);
-    let loose = Accelerated {
-        tolerance: 1e-3,
-        ..Accelerated::default()
-    }
-    .fit(&problem)
-    .unwrap();
+    let loose = Accelerated::new()
+        .with_tolerance(1e-3)
+        .fit(&problem)
+        .unwrap();
     assert!(loose.report.iterations.as_ref().unwrap().converged);
     // How far it is, measured outside the crate's inference: the largest
     // |b - b*| / se over the slopes.
@@ -82,7 +80,7 @@ fn fit_distance_is_the_mahalanobis_norm() {
         0.5 + x[(i, 0)] - 2.0 * x[(i, 1)] + x[(i, 2)] + (((i * 41) % 37) as f64 / 37.0 - 0.5)
     });
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let inf = fit.inference(&problem).unwrap();
     let cov = DMatrix::from_fn(4, 4, |i, j| inf.covariance[(i, j)]);
     let cov_chol = cov
@@ -136,7 +134,7 @@ fn fit_distance_is_the_mahalanobis_norm() {
 fn inference_refuses_a_fit_of_another_problem_of_the_same_shape() {
     let (x, y) = correlated(300);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     let mut y2 = y.clone();
     y2.as_slice_mut().unwrap().swap(10, 200);
     let other = Problem::new(x.view(), y2.view()).unwrap();
@@ -174,7 +172,7 @@ fn inference_keeps_the_refined_residual_sum_of_squares() {
     for name in ["Filip", "Wampler4", "Wampler5"] {
         let d = nist::load(name);
         let problem = Problem::builder(d.x.view(), d.y.view())
-            .intercept(d.intercept)
+            .with_intercept(d.intercept)
             .build()
             .unwrap();
         let fit = Qr::refined().fit(&problem).unwrap();

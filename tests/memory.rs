@@ -88,7 +88,7 @@ fn extra_memory_stays_within_the_documented_bounds() {
     let noise = common::gen::normal_vector(&mut rng, n);
     let y = Array1::from_shape_fn(n, |i| x[(i, 0)] - 0.5 * x[(i, 1)] + noise[i]);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr::default().fit(&problem).unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
     // Warm up faer's per-thread product workspace on every thread.
     let warm = || {
         let a = faer::Mat::<f64>::from_fn(300, 300, |i, j| (i + j) as f64);
@@ -106,7 +106,7 @@ fn extra_memory_stays_within_the_documented_bounds() {
         Inference::with_options(
             &problem,
             &fit,
-            InferenceOptions::default().covariance(CovarianceKind::Hc3),
+            InferenceOptions::new().with_covariance(CovarianceKind::Hc3),
         )
         .unwrap()
     });

@@ -8,8 +8,8 @@ mod common;
 
 use leastline::ridge::Criterion;
 use leastline::{
-    Accelerated, Cholesky, GradientDescent, KFold, Problem, Qr, Ridge, RidgeMethod, RidgePath,
-    Solver, Stochastic, Svd,
+    Accelerated, Cholesky, GradientDescent, Problem, Qr, Ridge, RidgeFactorization, RidgePath,
+    RowFolds, Solver, Stochastic, Svd,
 };
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
@@ -20,37 +20,22 @@ const AWKWARD: [f64; 12] = [
 
 fn solvers() -> Vec<Box<dyn Solver>> {
     vec![
-        Box::new(Qr::default()),
+        Box::new(Qr::new()),
         Box::new(Qr::refined()),
-        Box::new(Cholesky::default()),
-        Box::new(Svd::default()),
+        Box::new(Cholesky::new()),
+        Box::new(Svd::new()),
         Box::new(Ridge::new(0.0)),
         Box::new(Ridge::new(1.0)),
-        Box::new(Ridge {
-            method: RidgeMethod::Dual,
-            ..Ridge::new(0.5)
-        }),
-        Box::new(Ridge {
-            method: RidgeMethod::AugmentedQr,
-            standardize: true,
-            ..Ridge::new(2.0)
-        }),
-        Box::new(Ridge {
-            method: RidgeMethod::Svd,
-            ..Ridge::new(1e-3)
-        }),
-        Box::new(GradientDescent {
-            max_iterations: 50,
-            ..Default::default()
-        }),
-        Box::new(Accelerated {
-            max_iterations: 50,
-            ..Default::default()
-        }),
-        Box::new(Stochastic {
-            epochs: 3,
-            ..Default::default()
-        }),
+        Box::new(Ridge::new(0.5).with_factorization(RidgeFactorization::Dual)),
+        Box::new(
+            Ridge::new(2.0)
+                .with_factorization(RidgeFactorization::AugmentedQr)
+                .with_standardize(true),
+        ),
+        Box::new(Ridge::new(1e-3).with_factorization(RidgeFactorization::Svd)),
+        Box::new(GradientDescent::new().with_max_iterations(50)),
+        Box::new(Accelerated::new().with_max_iterations(50)),
+        Box::new(Stochastic::new().with_max_iterations(3)),
     ]
 }
 
@@ -69,9 +54,9 @@ proptest! {
         let x = Array2::from_shape_fn((n, p), |(i, j)| AWKWARD[picks[(i * 4 + j) % picks.len()]]);
         let y = Array1::from_shape_fn(n, |i| AWKWARD[picks[(i * 7 + 3) % picks.len()]]);
         let w = Array1::from_shape_fn(n, |i| [0.0, 1.0, 2.0, 1e-200][wpicks[i % wpicks.len()]]);
-        let mut builder = Problem::builder(x.view(), y.view()).intercept(intercept);
+        let mut builder = Problem::builder(x.view(), y.view()).with_intercept(intercept);
         if weighted {
-            builder = builder.weights(w.view());
+            builder = builder.with_weights(w.view());
         }
         let Ok(problem) = builder.build() else { return Ok(()) };
         for solver in solvers() {
@@ -93,6 +78,6 @@ proptest! {
             }
             let _ = path.fit(1.0);
         }
-        let _ = KFold::new(2, 1).cross_validate(&Qr::default(), &problem);
+        let _ = RowFolds::new().with_folds(2).with_seed(1).held_out_error(&Qr::new(), &problem);
     }
 }

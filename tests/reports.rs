@@ -8,7 +8,7 @@ mod common;
 use common::p2;
 
 use common::exact;
-use leastline::ridge::{Ridge, RidgeMethod};
+use leastline::ridge::{Ridge, RidgeFactorization};
 use leastline::{
     Accelerated, Error, GradientDescent, Problem, Qr, Refinement, Solver, Stochastic, Svd,
 };
@@ -95,15 +95,10 @@ fn refinement_converges_with_large_offsets_on_many_rows() {
 fn refinement_with_no_steps_reports_no_nan() {
     let (x, y) = base();
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let fit = Qr {
-        refinement: Some(Refinement {
-            max_steps: 0,
-            ..Refinement::default()
-        }),
-        ..Qr::default()
-    }
-    .fit(&problem)
-    .unwrap();
+    let fit = Qr::new()
+        .with_refinement(Refinement::new().with_max_iterations(0))
+        .fit(&problem)
+        .unwrap();
     let it = fit.report.iterations.as_ref().unwrap();
     assert_eq!(it.iterations, 0);
     assert!(!it.converged);
@@ -111,7 +106,7 @@ fn refinement_with_no_steps_reports_no_nan() {
     assert!(it.final_loss.is_finite());
     assert!(it.loss_history.iter().all(|v| v.is_finite()));
     // Unrefined: the coefficients are plain QR's.
-    let plain = Qr::default().fit(&problem).unwrap();
+    let plain = Qr::new().fit(&problem).unwrap();
     assert_eq!(fit.model.coefficients(), plain.model.coefficients());
 }
 
@@ -134,9 +129,9 @@ fn gradient_reports_claim_no_rank() {
     let y = Array1::from_shape_fn(30, |i| (i as f64 * 0.1).exp());
     let problem = Problem::new(x.view(), y.view()).unwrap();
     let solvers: Vec<Box<dyn Solver>> = vec![
-        Box::new(GradientDescent::default()),
-        Box::new(Accelerated::default()),
-        Box::new(Stochastic::default()),
+        Box::new(GradientDescent::new()),
+        Box::new(Accelerated::new()),
+        Box::new(Stochastic::new()),
     ];
     for solver in &solvers {
         let fit = solver.fit(&problem).unwrap();
@@ -157,19 +152,17 @@ fn gradient_reports_claim_no_rank() {
     }
     // The closed forms measure both; ridge methods other than Svd measure
     // the condition of their penalised system only.
-    let svd = Svd::default().fit(&problem).unwrap();
+    let svd = Svd::new().fit(&problem).unwrap();
     assert_eq!(svd.report.rank, Some(4));
     assert_eq!(svd.report.residual_df, Some(30 - 4 - 1));
     assert!(svd.report.condition.is_some());
     let ridge = Ridge::new(1.0).fit(&problem).unwrap();
     assert_eq!(ridge.report.rank, None);
     assert!(ridge.report.condition.is_some_and(|c| c.is_finite()));
-    let path = Ridge {
-        method: RidgeMethod::Svd,
-        ..Ridge::new(1.0)
-    }
-    .fit(&problem)
-    .unwrap();
+    let path = Ridge::new(1.0)
+        .with_factorization(RidgeFactorization::Svd)
+        .fit(&problem)
+        .unwrap();
     assert_eq!(path.report.rank, Some(4));
 }
 
@@ -185,11 +178,11 @@ fn gradient_solvers_refuse_under_determined_problems() {
         usable_rows: 3,
         parameters: 6,
     };
-    assert_eq!(Qr::default().fit(&problem).unwrap_err(), expected);
+    assert_eq!(Qr::new().fit(&problem).unwrap_err(), expected);
     let solvers: Vec<Box<dyn Solver>> = vec![
-        Box::new(GradientDescent::default()),
-        Box::new(Accelerated::default()),
-        Box::new(Stochastic::default()),
+        Box::new(GradientDescent::new()),
+        Box::new(Accelerated::new()),
+        Box::new(Stochastic::new()),
     ];
     for solver in &solvers {
         assert_eq!(
@@ -199,10 +192,7 @@ fn gradient_solvers_refuse_under_determined_problems() {
             solver.name()
         );
     }
-    let penalised = GradientDescent {
-        penalty: 0.1,
-        ..GradientDescent::default()
-    };
+    let penalised = GradientDescent::new().with_penalty(0.1);
     assert!(penalised.fit(&problem).is_ok());
 }
 
@@ -220,12 +210,8 @@ fn svd_cutoff_is_not_the_constant_column_tolerance() {
     });
     let y = Array1::from_shape_fn(n, |i| x[(i, 0)] + 2.0 * x[(i, 1)] + ((i * 7) % 3) as f64);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    let qr = Qr::default().fit(&problem).unwrap();
-    let svd = Svd {
-        relative_cutoff: Some(1e-2),
-    }
-    .fit(&problem)
-    .unwrap();
+    let qr = Qr::new().fit(&problem).unwrap();
+    let svd = Svd::new().with_rank_tolerance(1e-2).fit(&problem).unwrap();
     assert_eq!(svd.report.rank, Some(2));
     for j in 0..2 {
         let (a, b) = (svd.model.coefficients()[j], qr.model.coefficients()[j]);
@@ -252,20 +238,16 @@ fn duplicated_columns_get_equal_ridge_coefficients() {
     let y = Array1::from_shape_fn(n, |i| (i as f64).cos() + 0.3 * x[(i, 2)]);
     let problem = Problem::new(x.view(), y.view()).unwrap();
     for lambda in [1e-12, 1e-8, 1e-3] {
-        let reference = Ridge {
-            method: RidgeMethod::Svd,
-            ..Ridge::new(lambda)
-        }
-        .fit(&problem)
-        .unwrap();
-        let r = reference.model.coefficients();
-        for method in [RidgeMethod::Auto, RidgeMethod::AugmentedQr] {
-            let fit = Ridge {
-                method,
-                ..Ridge::new(lambda)
-            }
+        let reference = Ridge::new(lambda)
+            .with_factorization(RidgeFactorization::Svd)
             .fit(&problem)
             .unwrap();
+        let r = reference.model.coefficients();
+        for method in [RidgeFactorization::ByShape, RidgeFactorization::AugmentedQr] {
+            let fit = Ridge::new(lambda)
+                .with_factorization(method)
+                .fit(&problem)
+                .unwrap();
             let b = fit.model.coefficients();
             assert!(
                 (b[0] - b[1]).abs() <= 1e-10 * b[0].abs(),

@@ -12,26 +12,24 @@
 mod common;
 mod ridge_support;
 
-use leastline::ridge::{Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Ridge, RidgeFactorization, RidgePath};
 use leastline::{Error, Problem, Qr, Solver};
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
 use ridge_support::{make_case, penalty_scale, rel_diff, weights_strategy, Case, Weights};
 
-const METHODS: [RidgeMethod; 5] = [
-    RidgeMethod::Auto,
-    RidgeMethod::Cholesky,
-    RidgeMethod::AugmentedQr,
-    RidgeMethod::Svd,
-    RidgeMethod::Dual,
+const METHODS: [RidgeFactorization; 5] = [
+    RidgeFactorization::ByShape,
+    RidgeFactorization::Cholesky,
+    RidgeFactorization::AugmentedQr,
+    RidgeFactorization::Svd,
+    RidgeFactorization::Dual,
 ];
 
-fn ridge(lambda: f64, standardize: bool, method: RidgeMethod) -> Ridge {
-    Ridge {
-        penalty: lambda,
-        standardize,
-        method,
-    }
+fn ridge(lambda: f64, standardize: bool, method: RidgeFactorization) -> Ridge {
+    Ridge::new(lambda)
+        .with_standardize(standardize)
+        .with_factorization(method)
 }
 
 /// The gradient of the caller's objective must vanish:
@@ -119,7 +117,7 @@ proptest! {
         let case = make_case(seed, n, p, weights, intercept);
         let lambda = penalty_scale(&case, standardize) * 10f64.powf(log_rel);
         let problem = case.problem();
-        let base = ridge(lambda, standardize, RidgeMethod::AugmentedQr).fit(&problem).unwrap();
+        let base = ridge(lambda, standardize, RidgeFactorization::AugmentedQr).fit(&problem).unwrap();
         let b_ref = base.model.coefficients().to_vec();
         for method in METHODS {
             let fit = ridge(lambda, standardize, method).fit(&problem).unwrap();
@@ -148,7 +146,7 @@ proptest! {
         let case = make_case(seed, n, p, weights, intercept);
         let lambda = penalty_scale(&case, standardize) * 10f64.powf(log_rel);
         let (b0, b) = case.reference(lambda, standardize);
-        let fit = ridge(lambda, standardize, RidgeMethod::Auto).fit(&case.problem()).unwrap();
+        let fit = ridge(lambda, standardize, RidgeFactorization::ByShape).fit(&case.problem()).unwrap();
         let d = rel_diff(fit.model.coefficients().as_slice().unwrap(), &b);
         prop_assert!(d < 1e-7, "slopes differ by {:e}", d);
         let scale = case.y.iter().fold(1.0f64, |a, v| a.max(v.abs()));
@@ -173,7 +171,7 @@ proptest! {
         let mut previous = f64::INFINITY;
         for k in -12..=4 {
             let lambda = top * 10f64.powf(k as f64 * 0.5);
-            let fit = ridge(lambda, standardize, RidgeMethod::Auto).fit(&problem).unwrap();
+            let fit = ridge(lambda, standardize, RidgeFactorization::ByShape).fit(&problem).unwrap();
             let norm: f64 = fit.model.coefficients().iter().zip(&pw).map(|(b, w)| w * b * b).sum();
             prop_assert!(norm <= previous * (1.0 + 1e-10), "norm {} after {}", norm, previous);
             previous = norm;
@@ -194,9 +192,9 @@ proptest! {
     ) {
         let case = make_case(seed, p + extra + 5, p, weights, intercept);
         let problem = case.problem();
-        let ols = Qr::default().fit(&problem).unwrap();
+        let ols = Qr::new().fit(&problem).unwrap();
         let b_ols = ols.model.coefficients().to_vec();
-        for method in [RidgeMethod::Auto, RidgeMethod::Cholesky, RidgeMethod::AugmentedQr, RidgeMethod::Svd] {
+        for method in [RidgeFactorization::ByShape, RidgeFactorization::Cholesky, RidgeFactorization::AugmentedQr, RidgeFactorization::Svd] {
             let fit = ridge(0.0, false, method).fit(&problem).unwrap();
             prop_assert!(rel_diff(fit.model.coefficients().as_slice().unwrap(), &b_ols) < 1e-9);
             prop_assert_eq!(fit.report.penalty, 0.0);
@@ -209,7 +207,7 @@ proptest! {
         let tiny = smin * smin * 1e-9;
         // (Not the dual form: on a tall design its n x n system has rank p
         // and a penalty this small leaves it singular to working precision.)
-        for method in [RidgeMethod::Cholesky, RidgeMethod::AugmentedQr, RidgeMethod::Svd] {
+        for method in [RidgeFactorization::Cholesky, RidgeFactorization::AugmentedQr, RidgeFactorization::Svd] {
             let fit = ridge(tiny, false, method).fit(&problem).unwrap();
             let d = rel_diff(fit.model.coefficients().as_slice().unwrap(), &b_ols);
             prop_assert!(d < 1e-6, "{:?}: {:e}", method, d);
@@ -256,8 +254,9 @@ fn auto_uses_qr_when_cholesky_loses_digits() {
     let problem = case.problem();
     let lambda = 1e-6;
     let auto = Ridge::new(lambda).fit(&problem).unwrap();
-    assert_eq!(auto.report.solver, "ridge-qr");
-    let svd = ridge(lambda, false, RidgeMethod::Svd)
+    assert_eq!(auto.report.solver, "ridge");
+    assert_eq!(auto.report.factorization.as_deref(), Some("qr"));
+    let svd = ridge(lambda, false, RidgeFactorization::Svd)
         .fit(&problem)
         .unwrap();
     let d_ = rel_diff(
@@ -271,7 +270,8 @@ fn auto_uses_qr_when_cholesky_loses_digits() {
     }
     // A large penalty keeps the Cholesky fit.
     let big = Ridge::new(1e8).fit(&problem).unwrap();
-    assert_eq!(big.report.solver, "ridge-cholesky");
+    assert_eq!(big.report.solver, "ridge");
+    assert_eq!(big.report.factorization.as_deref(), Some("cholesky"));
 }
 
 /// Identity: penalising standardised coefficients is plain ridge on the
@@ -358,7 +358,7 @@ fn invalid_penalties_are_typed_errors() {
             Err(Error::InvalidParameter { .. })
         ));
     }
-    let err = ridge(0.0, false, RidgeMethod::Dual)
+    let err = ridge(0.0, false, RidgeFactorization::Dual)
         .fit(&problem)
         .unwrap_err();
     assert!(matches!(err, Error::InvalidParameter { name: "penalty", value, .. } if value == 0.0));
@@ -385,7 +385,8 @@ fn wide_design_needs_a_penalty() {
         }
     ));
     let auto = Ridge::new(0.5).fit(&problem).unwrap();
-    assert_eq!(auto.report.solver, "ridge-dual");
+    assert_eq!(auto.report.solver, "ridge");
+    assert_eq!(auto.report.factorization.as_deref(), Some("dual"));
 }
 
 /// Only the intercept: every method returns the weighted mean.

@@ -12,7 +12,7 @@
 mod common;
 mod ridge_support;
 
-use leastline::ridge::{Criterion, KFold, Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Criterion, Ridge, RidgeFactorization, RidgePath, RowFolds};
 use leastline::{Error, Problem, Qr, Solver};
 use nalgebra::{DMatrix, DVector};
 use ndarray::Array1;
@@ -45,12 +45,10 @@ fn brute_force_loo(case: &Case, lambda: f64) -> f64 {
             continue;
         }
         let rest = case.without_row(i);
-        let fit = Ridge {
-            method: RidgeMethod::AugmentedQr,
-            ..Ridge::new(lambda)
-        }
-        .fit(&rest.problem())
-        .unwrap();
+        let fit = Ridge::new(lambda)
+            .with_factorization(RidgeFactorization::AugmentedQr)
+            .fit(&rest.problem())
+            .unwrap();
         let e = case.y[i] - fit.model.predict_row(case.x.row(i)).unwrap();
         num += w * e * e;
         den += w;
@@ -194,12 +192,10 @@ fn curve_rss_and_df_match_direct_fits() {
         .unwrap();
     assert!(curve.loo.is_none());
     for (m, &lambda) in grid.iter().enumerate().step_by(5) {
-        let fit = Ridge {
-            method: RidgeMethod::Cholesky,
-            ..Ridge::new(lambda)
-        }
-        .fit(&problem)
-        .unwrap();
+        let fit = Ridge::new(lambda)
+            .with_factorization(RidgeFactorization::Cholesky)
+            .fit(&problem)
+            .unwrap();
         let a = curve.residual_sum_of_squares[m];
         let b = fit.report.residual_sum_of_squares;
         assert!((a - b).abs() <= 1e-9 * b, "{a} vs {b}");
@@ -289,10 +285,17 @@ fn interpolating_grid_has_no_finite_score() {
 fn folds_are_a_seeded_partition() {
     let case = make_case(9, 23, 2, Weights::SomeZero, true);
     let problem = case.problem();
-    let cv = KFold::new(4, 99);
+    let cv = RowFolds::new().with_folds(4).with_seed(99);
     let a = cv.assignments(&problem).unwrap();
     assert_eq!(a, cv.assignments(&problem).unwrap());
-    assert_ne!(a, KFold::new(4, 100).assignments(&problem).unwrap());
+    assert_ne!(
+        a,
+        RowFolds::new()
+            .with_folds(4)
+            .with_seed(100)
+            .assignments(&problem)
+            .unwrap()
+    );
     let mut sizes = [0usize; 4];
     for (i, f) in a.iter().enumerate() {
         match f {
@@ -314,19 +317,19 @@ fn folds_are_a_seeded_partition() {
 fn kfold_equals_refits_on_copied_rows() {
     let case = make_case(17, 31, 3, Weights::Positive, true);
     let problem = case.problem();
-    let cv = KFold::new(5, 3);
+    let cv = RowFolds::new().with_folds(5).with_seed(3);
     let fold_of = cv.assignments(&problem).unwrap();
     let solvers: Vec<Box<dyn Solver>> = vec![
-        Box::new(Qr::default()),
+        Box::new(Qr::new()),
         Box::new(Ridge::new(2.0)),
-        Box::new(Ridge {
-            standardize: true,
-            method: RidgeMethod::Svd,
-            ..Ridge::new(0.3)
-        }),
+        Box::new(
+            Ridge::new(0.3)
+                .with_standardize(true)
+                .with_factorization(RidgeFactorization::Svd),
+        ),
     ];
     for solver in &solvers {
-        let result = cv.cross_validate(solver.as_ref(), &problem).unwrap();
+        let result = cv.held_out_error(solver.as_ref(), &problem).unwrap();
         assert_eq!(result.fold_errors.len(), 5);
         for f in 0..5 {
             let train: Vec<usize> = (0..31).filter(|&i| fold_of[i] != Some(f)).collect();
@@ -367,13 +370,17 @@ fn kfold_errors_are_typed() {
     let problem = case.problem();
     let usable = case.usable_rows();
     for k in [0, 1] {
-        let err = KFold::new(k, 0)
-            .cross_validate(&Qr::default(), &problem)
+        let err = RowFolds::new()
+            .with_folds(k)
+            .with_seed(0)
+            .held_out_error(&Qr::new(), &problem)
             .unwrap_err();
         assert!(matches!(err, Error::InvalidParameter { name: "folds", .. }));
     }
-    let err = KFold::new(usable + 1, 0)
-        .cross_validate(&Qr::default(), &problem)
+    let err = RowFolds::new()
+        .with_folds(usable + 1)
+        .with_seed(0)
+        .held_out_error(&Qr::new(), &problem)
         .unwrap_err();
     assert_eq!(
         err,
@@ -382,18 +389,22 @@ fn kfold_errors_are_typed() {
             folds: usable + 1
         }
     );
-    assert!(KFold::new(usable, 0)
-        .cross_validate(&Ridge::new(1.0), &problem)
+    assert!(RowFolds::new()
+        .with_folds(usable)
+        .with_seed(0)
+        .held_out_error(&Ridge::new(1.0), &problem)
         .is_ok());
     // Weights that leave fewer rows than folds.
     let w = Array1::from(vec![1.0, 0.0, 0.0, 2.0, 0.0, 0.0, 0.0, 0.0, 0.0, 1.0]);
     let weighted = Problem::builder(case.x.view(), case.y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .unwrap();
     assert_eq!(
-        KFold::new(4, 0)
-            .cross_validate(&Qr::default(), &weighted)
+        RowFolds::new()
+            .with_folds(4)
+            .with_seed(0)
+            .held_out_error(&Qr::new(), &weighted)
             .unwrap_err(),
         Error::TooFewRowsForFolds {
             usable_rows: 3,
@@ -402,8 +413,10 @@ fn kfold_errors_are_typed() {
     );
     // A training fit that fails names its fold and carries the cause:
     // least squares on 2 rows cannot fit 3 parameters.
-    let err = KFold::new(3, 0)
-        .cross_validate(&Qr::default(), &weighted)
+    let err = RowFolds::new()
+        .with_folds(3)
+        .with_seed(0)
+        .held_out_error(&Qr::new(), &weighted)
         .unwrap_err();
     match err {
         Error::FoldFit { fold, error } => {
@@ -428,13 +441,11 @@ fn both_triangle_routes_match_direct_fits() {
             let path = RidgePath::new(&problem, true).unwrap();
             for lambda in [1e-2, 1.0, 1e2] {
                 let a = path.fit(lambda).unwrap();
-                let b = Ridge {
-                    method: RidgeMethod::AugmentedQr,
-                    standardize: true,
-                    ..Ridge::new(lambda)
-                }
-                .fit(&problem)
-                .unwrap();
+                let b = Ridge::new(lambda)
+                    .with_factorization(RidgeFactorization::AugmentedQr)
+                    .with_standardize(true)
+                    .fit(&problem)
+                    .unwrap();
                 let d = ridge_support::rel_diff(
                     a.model.coefficients().as_slice().unwrap(),
                     b.model.coefficients().as_slice().unwrap(),

@@ -8,7 +8,7 @@ use ndarray::array;
 fn fit_round_trips_through_json() {
     let x = array![[1.0, 0.3], [2.0, 0.1], [3.0, 0.8], [4.0, 0.4], [5.0, 0.9]];
     let y = array![1.2, 2.1, 3.3, 3.9, 5.2];
-    let fit = Qr::default()
+    let fit = Qr::new()
         .fit(&Problem::new(x.view(), y.view()).unwrap())
         .unwrap();
     let text = serde_json::to_string(&fit).unwrap();

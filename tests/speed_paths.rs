@@ -17,7 +17,7 @@ use ndarray::{s, Array1, Array2, ShapeBuilder};
 fn min_lre(solver: &dyn Solver, name: &str) -> f64 {
     let d = nist::load(name);
     let problem = Problem::builder(d.x.view(), d.y.view())
-        .intercept(d.intercept)
+        .with_intercept(d.intercept)
         .build()
         .expect("valid problem");
     let fit = solver.fit(&problem).expect("fit");
@@ -67,7 +67,7 @@ fn nist_accuracy_of_qr_is_kept() {
     let mut report = String::new();
     let mut low = Vec::new();
     for (name, floor) in floors {
-        let digits = min_lre(&Qr::default(), name);
+        let digits = min_lre(&Qr::new(), name);
         report.push_str(&format!("{name} {digits:.1}; "));
         if digits < floor {
             low.push(format!("{name}: {digits:.2} < {floor}"));
@@ -83,7 +83,7 @@ fn nist_accuracy_of_qr_is_kept() {
 fn norris_slope_is_within_ulps() {
     let d = nist::load("Norris");
     let problem = Problem::new(d.x.view(), d.y.view()).expect("valid");
-    let fit = Qr::default().fit(&problem).expect("fit");
+    let fit = Qr::new().fit(&problem).expect("fit");
     let slope = fit.model.coefficients()[0];
     let certified = d.certified.coefficients[0].0;
     assert!(
@@ -141,13 +141,13 @@ fn fits_do_not_depend_on_the_layout() {
         wide.slice(s![.., 1..p + 1]),
         spread.slice(s![..;2, ..;2]),
     ];
-    let solvers: [&dyn Solver; 3] = [&Qr::default(), &Cholesky::default(), &Svd::default()];
+    let solvers: [&dyn Solver; 3] = [&Qr::new(), &Cholesky::new(), &Svd::new()];
     for solver in solvers {
         for weighted in [false, true] {
             let fit_of = |v: ndarray::ArrayView2<'_, f64>| {
                 let mut b = Problem::builder(v, y.view());
                 if weighted {
-                    b = b.weights(w.view());
+                    b = b.with_weights(w.view());
                 }
                 solver.fit(&b.build().expect("valid")).expect("fit")
             };
@@ -191,7 +191,7 @@ fn column_means_are_identical_across_layouts() {
         let build = |v| {
             let mut b = Problem::builder(v, y.view());
             if weighted {
-                b = b.weights(w.view());
+                b = b.with_weights(w.view());
             }
             b.build().expect("valid")
         };
@@ -217,7 +217,7 @@ fn first_non_finite_value_is_named() {
         for weighted in [false, true] {
             let mut b = Problem::builder(v, y.view());
             if weighted {
-                b = b.weights(w.view());
+                b = b.with_weights(w.view());
             }
             match b.build() {
                 Err(Error::NonFinite {
@@ -237,10 +237,10 @@ fn first_non_finite_value_is_named() {
 fn fits_do_not_depend_on_the_thread_count() {
     let (x, y, w) = data(60_000, 9, 11);
     let problem = Problem::builder(x.view(), y.view())
-        .weights(w.view())
+        .with_weights(w.view())
         .build()
         .expect("valid");
-    let solvers: [&dyn Solver; 3] = [&Qr::default(), &Cholesky::default(), &Svd::default()];
+    let solvers: [&dyn Solver; 3] = [&Qr::new(), &Cholesky::new(), &Svd::new()];
     for solver in solvers {
         let fits: Vec<_> = [1, 3]
             .iter()
@@ -266,7 +266,7 @@ fn intercept_only_fits_the_mean() {
     let problem = Problem::new(x.view(), y.view()).expect("valid");
     let mean = y.sum() / n as f64;
     let ss: f64 = y.iter().map(|v| (v - mean) * (v - mean)).sum();
-    let solvers: [&dyn Solver; 3] = [&Qr::default(), &Cholesky::default(), &Svd::default()];
+    let solvers: [&dyn Solver; 3] = [&Qr::new(), &Cholesky::new(), &Svd::new()];
     for solver in solvers {
         let fit = solver.fit(&problem).expect("fit");
         assert!(fit.model.coefficients().is_empty());
@@ -297,7 +297,7 @@ fn duplicated_column_is_found_by_the_block_qr() {
     }
     let y = Array1::from_shape_fn(n, |i| 2.0 * x[(i, 0)] + 3.0 * x[(i, 1)] - x[(i, 2)] + 0.5);
     let problem = Problem::new(x.view(), y.view()).expect("valid");
-    for solver in [&Qr::default() as &dyn Solver, &Cholesky::default()] {
+    for solver in [&Qr::new() as &dyn Solver, &Cholesky::new()] {
         match solver.fit(&problem) {
             Err(Error::RankDeficient {
                 rank, dependent, ..
@@ -307,7 +307,7 @@ fn duplicated_column_is_found_by_the_block_qr() {
             other => panic!("{}: expected RankDeficient, got {other:?}", solver.name()),
         }
     }
-    let fit = Svd::default().fit(&problem).expect("fit");
+    let fit = Svd::new().fit(&problem).expect("fit");
     let b = fit.model.coefficients();
     assert_eq!(fit.report.rank, Some(4));
     for (got, want) in b.iter().zip([2.0, 1.5, -1.0, 0.0, 1.5]) {

@@ -3,7 +3,7 @@
 //! the way in. With the `serde` feature, every result round-trips through
 //! JSON exactly, the documented infinities included.
 
-use leastline::ridge::{Ridge, RidgeMethod, RidgePath};
+use leastline::ridge::{Ridge, RidgeFactorization, RidgePath};
 use leastline::{Error, Problem, Solver};
 use ndarray::{Array1, Array2};
 
@@ -15,10 +15,7 @@ fn dual_ridge_on_tall_designs_is_refused_with_the_bytes() {
         let x = Array2::from_shape_fn((n, 2), |(i, j)| ((i * (j + 3)) % 17) as f64);
         let y = Array1::from_shape_fn(n, |i| (i % 13) as f64);
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let dual = Ridge {
-            method: RidgeMethod::Dual,
-            ..Ridge::new(1.0)
-        };
+        let dual = Ridge::new(1.0).with_factorization(RidgeFactorization::Dual);
         match dual.fit(&problem) {
             Err(Error::TooLarge { bytes, .. }) => assert_eq!(bytes, 8 * (n as u128).pow(2)),
             other => panic!("{n} rows: expected TooLarge, got {other:?}"),
@@ -30,12 +27,10 @@ fn dual_ridge_on_tall_designs_is_refused_with_the_bytes() {
     let x = Array2::from_shape_fn((20, 300), |(i, j)| ((i * 31 + j * 17) % 23) as f64);
     let y = Array1::from_shape_fn(20, |i| i as f64);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    assert!(Ridge {
-        method: RidgeMethod::Dual,
-        ..Ridge::new(1.0)
-    }
-    .fit(&problem)
-    .is_ok());
+    assert!(Ridge::new(1.0)
+        .with_factorization(RidgeFactorization::Dual)
+        .fit(&problem)
+        .is_ok());
 }
 
 /// Item 11: a primal ridge method on a design with a million columns and
@@ -46,13 +41,11 @@ fn primal_ridge_on_very_wide_designs_is_refused_with_the_bytes() {
     let x = Array2::from_shape_fn((4, p), |(i, j)| ((i + j) % 7) as f64);
     let y = Array1::from_vec(vec![1.0, 2.0, 4.0, 3.0]);
     let problem = Problem::new(x.view(), y.view()).unwrap();
-    for method in [RidgeMethod::Cholesky, RidgeMethod::AugmentedQr] {
-        match (Ridge {
-            method,
-            ..Ridge::new(1.0)
-        })
-        .fit(&problem)
-        {
+    for method in [
+        RidgeFactorization::Cholesky,
+        RidgeFactorization::AugmentedQr,
+    ] {
+        match (Ridge::new(1.0).with_factorization(method)).fit(&problem) {
             Err(Error::TooLarge { bytes, .. }) => assert!(bytes > 8 * (p as u128).pow(2)),
             other => panic!("{method:?}: expected TooLarge, got {other:?}"),
         }
@@ -85,7 +78,7 @@ mod serde_checks {
     use super::*;
     use leastline::inference::{CovarianceKind, Inference, InferenceOptions};
     use leastline::ridge::Criterion;
-    use leastline::{Accelerated, Fit, KFold, LinearModel, Qr};
+    use leastline::{Accelerated, Fit, LinearModel, Qr, RowFolds};
     use serde_json::Value;
 
     fn data() -> (Array2<f64>, Array1<f64>) {
@@ -111,7 +104,7 @@ mod serde_checks {
     fn deserialised_inference_is_validated() {
         let (x, y) = data();
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let inf = Qr::default()
+        let inf = Qr::new()
             .fit(&problem)
             .unwrap()
             .inference(&problem)
@@ -157,15 +150,15 @@ mod serde_checks {
     fn results_round_trip_exactly() {
         let (x, y) = data();
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         assert_eq!(round_trip(&fit), fit);
-        let iterative = Accelerated::default().fit(&problem).unwrap();
+        let iterative = Accelerated::new().fit(&problem).unwrap();
         assert_eq!(round_trip(&iterative), iterative);
         for kind in [CovarianceKind::Classical, CovarianceKind::Hc3] {
             let inf = Inference::with_options(
                 &problem,
                 &fit,
-                InferenceOptions::default().covariance(kind),
+                InferenceOptions::new().with_covariance(kind),
             )
             .unwrap();
             assert_eq!(round_trip(&inf), inf);
@@ -174,8 +167,10 @@ mod serde_checks {
             let d = inf.diagnostics(&problem).unwrap();
             assert_eq!(round_trip(&d), d);
         }
-        let cv = KFold::new(3, 1)
-            .cross_validate(&Qr::default(), &problem)
+        let cv = RowFolds::new()
+            .with_folds(3)
+            .with_seed(1)
+            .held_out_error(&Qr::new(), &problem)
             .unwrap();
         assert_eq!(round_trip(&cv), cv);
         // An exact fit: t = +-inf, log L = +inf, AIC and BIC -inf, F = +inf.

@@ -12,10 +12,10 @@
 //! plots would then come from a second pass over the file.
 //!
 //! Library calls made here (the list to revisit when the API changes):
-//! - `Problem::builder(x, y).weights(w).intercept(b).build()`, and
+//! - `Problem::builder(x, y).with_weights(w).with_intercept(b).build()`, and
 //!   `Problem::{design, target, weights, rows, usable_rows}`;
-//! - `Solver::fit` of `Qr::default()`, `Qr::refined()`, `Cholesky`, `Svd`,
-//!   `Ridge { standardize, ..Ridge::new(penalty) }`; `fit_observed` of
+//! - `Solver::fit` of `Qr::new()`, `Qr::refined()`, `Cholesky`, `Svd`,
+//!   `Ridge::new(penalty).with_standardize(standardize)`; `fit_observed` of
 //!   `GradientDescent`, `Accelerated`, `Stochastic` (fields `tolerance`,
 //!   `max_iterations`/`epochs`, `penalty`, `seed`; `Progress::iteration`,
 //!   `Control::Continue`);
@@ -413,7 +413,7 @@ impl Fitter {
         };
         let seconds = started.elapsed().as_secs_f64();
         let inference =
-            Inference::with_options(&problem, &fit, InferenceOptions::default().level(s.level))
+            Inference::with_options(&problem, &fit, InferenceOptions::new().with_level(s.level))
                 .and_then(|i| i.with_names(names.predictors.iter().map(Column::label)));
         let uncertainty = match &inference {
             Ok(i) => Ok(uncertainty(i)),
@@ -579,9 +579,9 @@ fn build_problem<'a>(
     w: Option<&'a Array1<f64>>,
     intercept: bool,
 ) -> Result<Problem<'a>, Error> {
-    let mut b = Problem::builder(x.view(), y.view()).intercept(intercept);
+    let mut b = Problem::builder(x.view(), y.view()).with_intercept(intercept);
     if let Some(w) = w {
-        b = b.weights(w.view());
+        b = b.with_weights(w.view());
     }
     b.build()
 }
@@ -599,54 +599,42 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
         }
     };
     match s.solver {
-        SolverName::Qr => Qr::default().fit(problem),
+        SolverName::Qr => Qr::new().fit(problem),
         SolverName::QrRefined => Qr::refined().fit(problem),
-        SolverName::Cholesky => Cholesky::default().fit(problem),
-        SolverName::Svd => Svd::default().fit(problem),
-        SolverName::Ridge => Ridge {
-            standardize: s.standardize,
-            ..Ridge::new(penalty)
-        }
-        .fit(problem),
+        SolverName::Cholesky => Cholesky::new().fit(problem),
+        SolverName::Svd => Svd::new().fit(problem),
+        SolverName::Ridge => Ridge::new(penalty)
+            .with_standardize(s.standardize)
+            .fit(problem),
         SolverName::Gradient => {
-            let mut g = GradientDescent {
-                penalty,
-                ..GradientDescent::default()
-            };
+            let mut g = GradientDescent::new().with_penalty(penalty);
             if let Some(t) = s.tolerance {
-                g.tolerance = t;
+                g = g.with_tolerance(t);
             }
             if let Some(m) = s.max_iterations {
-                g.max_iterations = m;
+                g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.max_iterations))
+            g.fit_observed(problem, &mut watch(g.max_iterations()))
         }
         SolverName::Accelerated => {
-            let mut g = Accelerated {
-                penalty,
-                ..Accelerated::default()
-            };
+            let mut g = Accelerated::new().with_penalty(penalty);
             if let Some(t) = s.tolerance {
-                g.tolerance = t;
+                g = g.with_tolerance(t);
             }
             if let Some(m) = s.max_iterations {
-                g.max_iterations = m;
+                g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.max_iterations))
+            g.fit_observed(problem, &mut watch(g.max_iterations()))
         }
         SolverName::Stochastic => {
-            let mut g = Stochastic {
-                penalty,
-                seed: s.seed,
-                ..Stochastic::default()
-            };
+            let mut g = Stochastic::new().with_penalty(penalty).with_seed(s.seed);
             if let Some(t) = s.tolerance {
-                g.tolerance = t;
+                g = g.with_tolerance(t);
             }
             if let Some(m) = s.max_iterations {
-                g.epochs = m;
+                g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.epochs))
+            g.fit_observed(problem, &mut watch(g.max_iterations()))
         }
     }
 }
@@ -697,7 +685,7 @@ fn uncertainty(i: &Inference) -> Uncertainty {
         p_value: e.p_value,
     };
     Uncertainty {
-        level: i.options.level,
+        level: i.options.level(),
         sigma: i.residual_sd,
         r_squared: i.goodness.r_squared,
         adjusted_r_squared: i.goodness.adjusted_r_squared,
@@ -847,7 +835,7 @@ impl Model {
 
     /// The level of the intervals, when the model has them.
     pub fn level(&self) -> Option<f64> {
-        self.inference.as_ref().map(|i| i.options.level)
+        self.inference.as_ref().map(|i| i.options.level())
     }
 
     /// Predictions (and intervals when available) for the rows of `x`.
@@ -985,10 +973,10 @@ impl Model {
             .map_err(|e| bad(format!("`fit`: {e}")))?;
         let p = predictors.len();
         let model = &fit.model;
-        if model.cols() != p {
+        if model.columns() != p {
             return Err(bad(format!(
                 "`fit` has {} coefficients for {p} predictors",
-                model.cols()
+                model.columns()
             )));
         }
         if model.coefficients().iter().any(|v| !v.is_finite()) || !model.intercept().is_finite() {
@@ -1019,7 +1007,7 @@ impl Model {
 
 /// The public numbers of a decoded `Inference`, checked against the fit.
 fn check_inference(i: &Inference, fit: &Fit, intercept: bool) -> Result<(), String> {
-    if i.coefficients.len() != fit.model.cols() || i.intercept.is_some() != intercept {
+    if i.coefficients.len() != fit.model.columns() || i.intercept.is_some() != intercept {
         return Err("its parameters do not match the fit".into());
     }
     let same = |a: f64, b: f64| (a - b).abs() <= 1e-12 * a.abs().max(b.abs());
@@ -1035,7 +1023,7 @@ fn check_inference(i: &Inference, fit: &Fit, intercept: bool) -> Result<(), Stri
     if !slopes_match || !intercept_matches {
         return Err("its estimates differ from the fit's coefficients".into());
     }
-    let level = i.options.level;
+    let level = i.options.level();
     if !(level > 0.0 && level < 1.0) {
         return Err(format!("level {level} is not between 0 and 1"));
     }

@@ -35,27 +35,27 @@ use crate::solver::{Fit, Solver};
 /// let x = array![[1.0, 10.0], [2.0, 9.0], [3.0, 11.5], [4.0, 12.0], [5.0, 10.5], [6.0, 13.0]];
 /// let y = array![4.0, 5.1, 8.2, 9.9, 10.1, 13.8];
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let fit = Accelerated { tolerance: 1e-10, ..Accelerated::default() }.fit(&problem)?;
+/// let fit = Accelerated::new().with_tolerance(1e-10).fit(&problem)?;
 /// assert!(fit.report.iterations.as_ref().is_some_and(|r| r.converged));
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
 pub struct Accelerated {
     /// Stop when the relative gradient norm is at most this (default `1e-6`).
-    pub tolerance: f64,
+    pub(crate) tolerance: f64,
     /// Most accepted updates (default 10,000).
-    pub max_iterations: usize,
+    pub(crate) max_iterations: usize,
     /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
-    pub step: Option<f64>,
+    pub(crate) step: Option<f64>,
     /// L2 penalty `lambda` on the slopes, in caller units (default 0).
-    pub penalty: f64,
+    pub(crate) penalty: f64,
     /// Starting slopes in caller units (its intercept is ignored).
-    pub start: Option<LinearModel>,
+    pub(crate) start: Option<LinearModel>,
     /// Record the loss every this many iterations, plus the last one
     /// (default 1; 0: no history).
-    pub history_stride: usize,
+    pub(crate) history_stride: usize,
     /// Return [`crate::Error::NotConverged`] instead of an unconverged fit.
-    pub fail_if_not_converged: bool,
+    pub(crate) fail_if_not_converged: bool,
 }
 
 impl Default for Accelerated {
@@ -69,6 +69,98 @@ impl Default for Accelerated {
             history_stride: 1,
             fail_if_not_converged: false,
         }
+    }
+}
+
+impl Accelerated {
+    /// Accelerated at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Stop when the relative gradient norm is at most this (default `1e-6`).
+    #[must_use]
+    pub fn with_tolerance(mut self, value: f64) -> Self {
+        self.tolerance = value;
+        self
+    }
+
+    /// The `tolerance` setting (see [`Self::with_tolerance`]).
+    pub fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+
+    /// Most accepted updates (default 10,000).
+    #[must_use]
+    pub fn with_max_iterations(mut self, value: usize) -> Self {
+        self.max_iterations = value;
+        self
+    }
+
+    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
+    pub fn max_iterations(&self) -> usize {
+        self.max_iterations
+    }
+
+    /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
+    #[must_use]
+    pub fn with_step(mut self, value: f64) -> Self {
+        self.step = Some(value);
+        self
+    }
+
+    /// The `step` setting (see [`Self::with_step`]).
+    pub fn step(&self) -> Option<f64> {
+        self.step
+    }
+
+    /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+    #[must_use]
+    pub fn with_penalty(mut self, value: f64) -> Self {
+        self.penalty = value;
+        self
+    }
+
+    /// The `penalty` setting (see [`Self::with_penalty`]).
+    pub fn penalty(&self) -> f64 {
+        self.penalty
+    }
+
+    /// Starting slopes in caller units (its intercept is ignored).
+    #[must_use]
+    pub fn with_start(mut self, value: LinearModel) -> Self {
+        self.start = Some(value);
+        self
+    }
+
+    /// The `start` setting (see [`Self::with_start`]).
+    pub fn start(&self) -> Option<&LinearModel> {
+        self.start.as_ref()
+    }
+
+    /// Record the loss every this many iterations, plus the last one
+    /// (default 1; 0: no history).
+    #[must_use]
+    pub fn with_history_stride(mut self, value: usize) -> Self {
+        self.history_stride = value;
+        self
+    }
+
+    /// The `history_stride` setting (see [`Self::with_history_stride`]).
+    pub fn history_stride(&self) -> usize {
+        self.history_stride
+    }
+
+    /// Return [`crate::Error::NotConverged`] instead of an unconverged fit.
+    #[must_use]
+    pub fn with_fail_if_not_converged(mut self, value: bool) -> Self {
+        self.fail_if_not_converged = value;
+        self
+    }
+
+    /// The `fail_if_not_converged` setting (see [`Self::with_fail_if_not_converged`]).
+    pub fn fail_if_not_converged(&self) -> bool {
+        self.fail_if_not_converged
     }
 }
 

@@ -38,7 +38,7 @@ use crate::solver::{Fit, Solver};
 /// let x = array![[2.0], [3.5], [5.0], [6.0], [8.0]];
 /// let y = array![11.8, 15.2, 19.1, 21.0, 26.2];
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let solver = GradientDescent { tolerance: 1e-10, ..GradientDescent::default() };
+/// let solver = GradientDescent::new().with_tolerance(1e-10);
 /// let fit = solver.fit(&problem)?;
 /// let report = fit.report.iterations.as_ref().expect("iterative solver");
 /// assert!(report.converged);
@@ -48,22 +48,22 @@ use crate::solver::{Fit, Solver};
 #[derive(Debug, Clone, PartialEq)]
 pub struct GradientDescent {
     /// Stop when the relative gradient norm is at most this (default `1e-6`).
-    pub tolerance: f64,
+    pub(crate) tolerance: f64,
     /// Most updates (default 10,000).
-    pub max_iterations: usize,
+    pub(crate) max_iterations: usize,
     /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
-    pub step: Option<f64>,
+    pub(crate) step: Option<f64>,
     /// L2 penalty `lambda` on the slopes, in caller units (default 0).
-    pub penalty: f64,
+    pub(crate) penalty: f64,
     /// Starting slopes in caller units (its intercept is ignored); `None`
     /// starts from zero slopes.
-    pub start: Option<LinearModel>,
+    pub(crate) start: Option<LinearModel>,
     /// Record the loss every this many iterations, plus the last one
     /// (default 1: every iteration; 0: no history).
-    pub history_stride: usize,
+    pub(crate) history_stride: usize,
     /// Return [`crate::Error::NotConverged`] instead of an unconverged fit
     /// (default `false`).
-    pub fail_if_not_converged: bool,
+    pub(crate) fail_if_not_converged: bool,
 }
 
 impl Default for GradientDescent {
@@ -77,6 +77,100 @@ impl Default for GradientDescent {
             history_stride: 1,
             fail_if_not_converged: false,
         }
+    }
+}
+
+impl GradientDescent {
+    /// GradientDescent at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Stop when the relative gradient norm is at most this (default `1e-6`).
+    #[must_use]
+    pub fn with_tolerance(mut self, value: f64) -> Self {
+        self.tolerance = value;
+        self
+    }
+
+    /// The `tolerance` setting (see [`Self::with_tolerance`]).
+    pub fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+
+    /// Most updates (default 10,000).
+    #[must_use]
+    pub fn with_max_iterations(mut self, value: usize) -> Self {
+        self.max_iterations = value;
+        self
+    }
+
+    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
+    pub fn max_iterations(&self) -> usize {
+        self.max_iterations
+    }
+
+    /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
+    #[must_use]
+    pub fn with_step(mut self, value: f64) -> Self {
+        self.step = Some(value);
+        self
+    }
+
+    /// The `step` setting (see [`Self::with_step`]).
+    pub fn step(&self) -> Option<f64> {
+        self.step
+    }
+
+    /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+    #[must_use]
+    pub fn with_penalty(mut self, value: f64) -> Self {
+        self.penalty = value;
+        self
+    }
+
+    /// The `penalty` setting (see [`Self::with_penalty`]).
+    pub fn penalty(&self) -> f64 {
+        self.penalty
+    }
+
+    /// Starting slopes in caller units (its intercept is ignored); `None`
+    /// starts from zero slopes.
+    #[must_use]
+    pub fn with_start(mut self, value: LinearModel) -> Self {
+        self.start = Some(value);
+        self
+    }
+
+    /// The `start` setting (see [`Self::with_start`]).
+    pub fn start(&self) -> Option<&LinearModel> {
+        self.start.as_ref()
+    }
+
+    /// Record the loss every this many iterations, plus the last one
+    /// (default 1: every iteration; 0: no history).
+    #[must_use]
+    pub fn with_history_stride(mut self, value: usize) -> Self {
+        self.history_stride = value;
+        self
+    }
+
+    /// The `history_stride` setting (see [`Self::with_history_stride`]).
+    pub fn history_stride(&self) -> usize {
+        self.history_stride
+    }
+
+    /// Return [`crate::Error::NotConverged`] instead of an unconverged fit
+    /// (default `false`).
+    #[must_use]
+    pub fn with_fail_if_not_converged(mut self, value: bool) -> Self {
+        self.fail_if_not_converged = value;
+        self
+    }
+
+    /// The `fail_if_not_converged` setting (see [`Self::with_fail_if_not_converged`]).
+    pub fn fail_if_not_converged(&self) -> bool {
+        self.fail_if_not_converged
     }
 }
 
@@ -105,7 +199,7 @@ impl GradientDescent {
     /// let y = array![3.2, 4.1, 7.9, 8.2, 11.5];
     /// let problem = Problem::new(x.view(), y.view())?;
     /// let mut losses = Vec::new();
-    /// let fit = GradientDescent::default().fit_observed(&problem, &mut |p| {
+    /// let fit = GradientDescent::new().fit_observed(&problem, &mut |p| {
     ///     losses.push(p.loss);
     ///     if p.iteration == 3 { Control::Stop } else { Control::Continue }
     /// })?;

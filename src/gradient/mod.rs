@@ -79,7 +79,7 @@
 //! let y = x.column(0).mapv(|a| 2.0 * a) + x.column(2).mapv(|c| 0.5 * c + 1.0);
 //! let problem = Problem::new(x.view(), y.view())?;
 //! let cancel = AtomicBool::new(false); // set by a user interface, say
-//! let fit = Accelerated::default().fit_observed(&problem, &mut |p| {
+//! let fit = Accelerated::new().fit_observed(&problem, &mut |p| {
 //!     if p.iteration % 100 == 0 {
 //!         eprintln!("{}: loss {:.3e}, gradient {:.1e}", p.iteration, p.loss, p.gradient_norm);
 //!     }
@@ -241,7 +241,7 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// norms.
     pub fn new(problem: &'p Problem<'a>, penalty: f64) -> Self {
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-        let p = problem.cols();
+        let p = problem.columns();
         let weight = problem.stats.total_weight;
         let ws = problem.stats.weight_scale;
         // Squared norms of the columns after the exact power-of-two scaling
@@ -424,10 +424,10 @@ impl<'p, 'a> Objective<'p, 'a> {
         let Some(model) = start else {
             return Ok(vec![0.0; p]);
         };
-        if model.cols() != p {
+        if model.columns() != p {
             return Err(Error::ColumnCountMismatch {
                 expected: p,
-                found: model.cols(),
+                found: model.columns(),
             });
         }
         let mut g = vec![0.0; p];
@@ -632,13 +632,14 @@ pub(crate) fn finish(
             solver: name.to_string(),
             // Nothing is factored: the rank and condition are not measured.
             rank: None,
-            columns: problem.cols(),
+            columns: problem.columns(),
             condition: None,
             residual_sum_of_squares: rss,
             residual_df: None,
             usable_rows: problem.usable_rows(),
             fingerprint: problem.fingerprint(),
             penalty: common.penalty,
+            factorization: None,
             iterations: Some(IterationReport {
                 iterations,
                 converged: outcome.converged,

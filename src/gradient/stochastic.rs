@@ -62,45 +62,45 @@ use crate::solver::{Fit, Solver};
 /// let x = Array2::from_shape_fn((400, 2), |(i, j)| ((i * (j + 3)) % 17) as f64);
 /// let y = x.column(0).mapv(|d| 4.0 + 1.5 * d) + x.column(1).mapv(|c| 0.25 * c);
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let fit = Stochastic { epochs: 50, seed: 7, ..Stochastic::default() }.fit(&problem)?;
+/// let fit = Stochastic::new().with_max_iterations(50).with_seed(7).fit(&problem)?;
 /// assert!((fit.model.coefficients()[0] - 1.5).abs() < 1e-3);
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
 pub struct Stochastic {
     /// Rows per batch (default 64; at least 1).
-    pub batch_size: usize,
-    /// Most epochs (default 100).
-    pub epochs: usize,
+    pub(crate) batch_size: usize,
+    /// Most epochs, each a shuffled pass over the rows (default 100).
+    pub(crate) max_iterations: usize,
     /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
-    pub step: Option<f64>,
+    pub(crate) step: Option<f64>,
     /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
     /// finite and `>= 0`; 0 keeps the step constant).
-    pub decay: f64,
+    pub(crate) decay: f64,
     /// Seed of the shuffling (default 0).
-    pub seed: u64,
+    pub(crate) seed: u64,
     /// Report the average of the iterates instead of the last one
     /// (default `true`; see the type's docs).
-    pub average: bool,
+    pub(crate) average: bool,
     /// Stop when the relative gradient norm after an epoch is at most this
     /// (default `1e-6`).
-    pub tolerance: f64,
+    pub(crate) tolerance: f64,
     /// L2 penalty `lambda` on the slopes, in caller units (default 0).
-    pub penalty: f64,
+    pub(crate) penalty: f64,
     /// Starting slopes in caller units (its intercept is ignored).
-    pub start: Option<LinearModel>,
+    pub(crate) start: Option<LinearModel>,
     /// Record the loss every this many epochs, plus the last one
     /// (default 1; 0: no history).
-    pub history_stride: usize,
+    pub(crate) history_stride: usize,
     /// Return [`Error::NotConverged`] instead of an unconverged fit.
-    pub fail_if_not_converged: bool,
+    pub(crate) fail_if_not_converged: bool,
 }
 
 impl Default for Stochastic {
     fn default() -> Self {
         Stochastic {
             batch_size: 64,
-            epochs: 100,
+            max_iterations: 100,
             step: None,
             decay: 0.5,
             seed: 0,
@@ -111,6 +111,149 @@ impl Default for Stochastic {
             history_stride: 1,
             fail_if_not_converged: false,
         }
+    }
+}
+
+impl Stochastic {
+    /// Stochastic at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Rows per batch (default 64; at least 1).
+    #[must_use]
+    pub fn with_batch_size(mut self, value: usize) -> Self {
+        self.batch_size = value;
+        self
+    }
+
+    /// The `batch_size` setting (see [`Self::with_batch_size`]).
+    pub fn batch_size(&self) -> usize {
+        self.batch_size
+    }
+
+    /// Most epochs, each a shuffled pass over the rows (default 100).
+    #[must_use]
+    pub fn with_max_iterations(mut self, value: usize) -> Self {
+        self.max_iterations = value;
+        self
+    }
+
+    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
+    pub fn max_iterations(&self) -> usize {
+        self.max_iterations
+    }
+
+    /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
+    #[must_use]
+    pub fn with_step(mut self, value: f64) -> Self {
+        self.step = Some(value);
+        self
+    }
+
+    /// The `step` setting (see [`Self::with_step`]).
+    pub fn step(&self) -> Option<f64> {
+        self.step
+    }
+
+    /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
+    /// finite and `>= 0`; 0 keeps the step constant).
+    #[must_use]
+    pub fn with_decay(mut self, value: f64) -> Self {
+        self.decay = value;
+        self
+    }
+
+    /// The `decay` setting (see [`Self::with_decay`]).
+    pub fn decay(&self) -> f64 {
+        self.decay
+    }
+
+    /// Seed of the shuffling (default 0).
+    #[must_use]
+    pub fn with_seed(mut self, value: u64) -> Self {
+        self.seed = value;
+        self
+    }
+
+    /// The `seed` setting (see [`Self::with_seed`]).
+    pub fn seed(&self) -> u64 {
+        self.seed
+    }
+
+    /// Report the average of the iterates instead of the last one
+    /// (default `true`; see the type's docs).
+    #[must_use]
+    pub fn with_average(mut self, value: bool) -> Self {
+        self.average = value;
+        self
+    }
+
+    /// The `average` setting (see [`Self::with_average`]).
+    pub fn average(&self) -> bool {
+        self.average
+    }
+
+    /// Stop when the relative gradient norm after an epoch is at most this
+    /// (default `1e-6`).
+    #[must_use]
+    pub fn with_tolerance(mut self, value: f64) -> Self {
+        self.tolerance = value;
+        self
+    }
+
+    /// The `tolerance` setting (see [`Self::with_tolerance`]).
+    pub fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+
+    /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+    #[must_use]
+    pub fn with_penalty(mut self, value: f64) -> Self {
+        self.penalty = value;
+        self
+    }
+
+    /// The `penalty` setting (see [`Self::with_penalty`]).
+    pub fn penalty(&self) -> f64 {
+        self.penalty
+    }
+
+    /// Starting slopes in caller units (its intercept is ignored).
+    #[must_use]
+    pub fn with_start(mut self, value: LinearModel) -> Self {
+        self.start = Some(value);
+        self
+    }
+
+    /// The `start` setting (see [`Self::with_start`]).
+    pub fn start(&self) -> Option<&LinearModel> {
+        self.start.as_ref()
+    }
+
+    /// Record the loss every this many epochs, plus the last one
+    /// (default 1; 0: no history).
+    #[must_use]
+    pub fn with_history_stride(mut self, value: usize) -> Self {
+        self.history_stride = value;
+        self
+    }
+
+    /// The `history_stride` setting (see [`Self::with_history_stride`]).
+    pub fn history_stride(&self) -> usize {
+        self.history_stride
+    }
+
+    /// Return [`Error::NotConverged`] instead of an unconverged fit.
+    #[must_use]
+    pub fn with_fail_if_not_converged(mut self, value: bool) -> Self {
+        self.fail_if_not_converged = value;
+        self
+    }
+
+    /// The `fail_if_not_converged` setting (see [`Self::with_fail_if_not_converged`]).
+    pub fn fail_if_not_converged(&self) -> bool {
+        self.fail_if_not_converged
     }
 }
 
@@ -220,7 +363,7 @@ impl Stochastic {
         let averaging = self.average;
         let converged = loop {
             let verdict = tracker.observe(epoch, step, &eval)?;
-            if verdict.converged || verdict.stop || epoch >= self.epochs {
+            if verdict.converged || verdict.stop || epoch >= self.max_iterations {
                 break verdict.converged;
             }
             step = step0 / (1.0 + self.decay * epoch as f64);

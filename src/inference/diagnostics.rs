@@ -100,7 +100,7 @@ impl Inference {
     /// let x = array![[12.0], [15.0], [9.0], [30.0], [14.0], [11.0]];
     /// let y = array![1.4, 1.7, 1.1, 3.9, 1.6, 1.3];
     /// let problem = Problem::new(x.view(), y.view())?;
-    /// let inference = Qr::default().fit(&problem)?.inference(&problem)?;
+    /// let inference = Qr::new().fit(&problem)?.inference(&problem)?;
     /// let diagnostics = inference.diagnostics(&problem)?;
     /// assert!((diagnostics.leverage.sum() - 2.0).abs() < 1e-12);
     /// assert_eq!(diagnostics.largest_leverage().map(|(row, _)| row), Some(3));

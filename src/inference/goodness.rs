@@ -152,7 +152,7 @@ fn caller_square(norm: f64, exp: i32, what: &'static str) -> Result<f64> {
 
 pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
     let problem = inp.problem;
-    let p = problem.cols();
+    let p = problem.columns();
     let n = problem.usable_rows() as f64;
     let centered = problem.has_intercept();
     let dff = inp.df as f64;

@@ -47,7 +47,7 @@
 //! let x = array![[1.0, 20.0], [2.0, 21.0], [3.0, 19.5], [4.0, 22.0], [5.0, 20.5], [6.0, 23.0]];
 //! let y = array![2.1, 3.9, 6.2, 7.8, 10.1, 12.2];
 //! let problem = Problem::new(x.view(), y.view())?;
-//! let fit = Qr::default().fit(&problem)?;
+//! let fit = Qr::new().fit(&problem)?;
 //! let inference = Inference::new(&problem, &fit)?;
 //! let slope = &inference.coefficients[0];
 //! assert!(slope.lower < slope.value && slope.value < slope.upper);
@@ -210,17 +210,16 @@ impl CovarianceKind {
 ///
 /// ```
 /// use leastline::inference::{CovarianceKind, InferenceOptions};
-/// let options = InferenceOptions::default().covariance(CovarianceKind::Hc3).level(0.9);
-/// assert_eq!(options.level, 0.9);
+/// let options = InferenceOptions::new().with_covariance(CovarianceKind::Hc3).with_level(0.9);
+/// assert_eq!(options.level(), 0.9);
 /// ```
 #[derive(Debug, Clone, Copy, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[non_exhaustive]
 pub struct InferenceOptions {
     /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
-    pub covariance: CovarianceKind,
+    pub(crate) covariance: CovarianceKind,
     /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
-    pub level: f64,
+    pub(crate) level: f64,
 }
 
 impl Default for InferenceOptions {
@@ -233,16 +232,36 @@ impl Default for InferenceOptions {
 }
 
 impl InferenceOptions {
-    /// Sets the covariance kind.
-    pub fn covariance(mut self, covariance: CovarianceKind) -> Self {
-        self.covariance = covariance;
+    /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
+    #[must_use]
+    pub fn with_covariance(mut self, value: CovarianceKind) -> Self {
+        self.covariance = value;
         self
     }
 
-    /// Sets the confidence level.
-    pub fn level(mut self, level: f64) -> Self {
-        self.level = level;
+    /// The `covariance` setting (see [`Self::with_covariance`]).
+    pub fn covariance(&self) -> CovarianceKind {
+        self.covariance
+    }
+
+    /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
+    #[must_use]
+    pub fn with_level(mut self, value: f64) -> Self {
+        self.level = value;
         self
+    }
+
+    /// The `level` setting (see [`Self::with_level`]).
+    pub fn level(&self) -> f64 {
+        self.level
+    }
+}
+
+impl InferenceOptions {
+    /// Classical covariance at the 95% level; change them with the
+    /// `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
     }
 }
 
@@ -526,7 +545,7 @@ impl Inference {
     /// # Errors
     /// As [`Inference::with_options`].
     pub fn new(problem: &Problem<'_>, fit: &Fit) -> Result<Self> {
-        Self::with_options(problem, fit, InferenceOptions::default())
+        Self::with_options(problem, fit, InferenceOptions::new())
     }
 
     /// Inference for `fit`, which must have been fitted to `problem`.
@@ -558,10 +577,10 @@ impl Inference {
                 reason: "must lie strictly between 0 and 1",
             });
         }
-        let p = problem.cols();
-        if fit.model.cols() != p {
+        let p = problem.columns();
+        if fit.model.columns() != p {
             return Err(Error::ColumnCountMismatch {
-                expected: fit.model.cols(),
+                expected: fit.model.columns(),
                 found: p,
             });
         }
@@ -973,10 +992,10 @@ impl Inference {
 
     fn check_problem(&self, problem: &Problem<'_>) -> Result<Scaling> {
         let p = self.coefficients.len();
-        if problem.cols() != p {
+        if problem.columns() != p {
             return Err(Error::ColumnCountMismatch {
                 expected: p,
-                found: problem.cols(),
+                found: problem.columns(),
             });
         }
         if problem.fingerprint() != self.basis.fingerprint {
@@ -1119,7 +1138,7 @@ mod tests {
         let x = array![[1.0], [2.0], [3.0], [4.0], [5.0]];
         let y = array![2.0, 4.1, 5.9, 8.2, 9.9];
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let mut fit = Qr::default().fit(&problem).unwrap();
+        let mut fit = Qr::new().fit(&problem).unwrap();
         let mut it = IterationReport {
             iterations: 40,
             converged: false,
@@ -1148,7 +1167,7 @@ mod tests {
         let x = ndarray::Array2::<f64>::zeros((4, 0));
         let y = array![1.0, 2.0, 4.0, 3.0];
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         let inf = Inference::new(&problem, &fit).unwrap();
         let b0 = inf.intercept.unwrap();
         assert_eq!(b0.value, 2.5);
@@ -1166,7 +1185,7 @@ mod tests {
         let x = array![[1.0], [2.0], [3.0], [4.0]];
         let y = array![3.0, 5.0, 7.0, 9.0];
         let problem = Problem::new(x.view(), y.view()).unwrap();
-        let fit = Qr::default().fit(&problem).unwrap();
+        let fit = Qr::new().fit(&problem).unwrap();
         let inf = Inference::new(&problem, &fit).unwrap();
         for e in inf.estimates() {
             assert!(!e.t.is_nan() && !e.p_value.is_nan() && !e.std_error.is_nan());

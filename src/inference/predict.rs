@@ -57,7 +57,7 @@ impl Inference {
     /// let x = array![[0.0], [1.0], [2.0], [3.0], [4.0], [5.0]];
     /// let y = array![10.2, 11.9, 14.1, 15.8, 18.3, 19.9];
     /// let problem = Problem::new(x.view(), y.view())?;
-    /// let inference = Qr::default().fit(&problem)?.inference(&problem)?;
+    /// let inference = Qr::new().fit(&problem)?.inference(&problem)?;
     /// let at = inference.predict(array![[6.0]].view())?;
     /// assert!(at.prediction_lower[0] < at.mean_lower[0]);
     /// assert!(at.mean_upper[0] < at.prediction_upper[0]);

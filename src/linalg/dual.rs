@@ -67,7 +67,7 @@ pub(crate) fn row_gram(
 ) -> crate::error::Result<RowGram> {
     let x = as_faer(&problem.design());
     let n = rows.len();
-    let p = problem.cols();
+    let p = problem.columns();
     let coef = column_coefficients(scaling, factors);
     let means = &problem.stats.means;
     let sw: Vec<f64> = rows
@@ -151,7 +151,7 @@ pub(crate) fn transpose_times(
     v: &[f64],
 ) -> Vec<f64> {
     let x = as_faer(&problem.design());
-    let p = problem.cols();
+    let p = problem.columns();
     let coef = column_coefficients(scaling, factors);
     let means = &problem.stats.means;
     let u: Vec<f64> = rows

@@ -265,7 +265,7 @@ pub(crate) fn defects(
 ) -> Defects {
     let x = problem.design();
     let y = problem.target();
-    let p = problem.cols();
+    let p = problem.columns();
     let means = &problem.stats.means;
     let mut f = vec![0.0; problem.rows()];
     let parts: Vec<DefectPart> = f

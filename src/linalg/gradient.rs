@@ -135,7 +135,7 @@ pub(crate) fn residual_rows(
     inv_sy: f64,
     rows: &[usize],
 ) -> Pass {
-    let p = problem.cols();
+    let p = problem.columns();
     let inputs = Inputs {
         x: problem.design(),
         means: &problem.stats.means,

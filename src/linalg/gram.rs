@@ -25,7 +25,7 @@ pub(crate) fn centered_gram(
     scaling: &Scaling,
     with_target: bool,
 ) -> Mat<f64> {
-    let k = problem.cols() + usize::from(with_target);
+    let k = problem.columns() + usize::from(with_target);
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, accumulator_groups(problem.rows(), k));
     // A column-major design is read column by column into a `rows x k`

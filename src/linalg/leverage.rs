@@ -85,7 +85,7 @@ pub(crate) fn row_pass(
     scaling: &Scaling,
     spec: RowPassSpec<'_>,
 ) -> Result<RowPass> {
-    let p = problem.cols();
+    let p = problem.columns();
     let n = problem.rows();
     let intercept = spec.intercept_weight.is_some();
     let q = p + usize::from(intercept);

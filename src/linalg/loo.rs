@@ -41,7 +41,7 @@ pub(crate) fn loo_sums(
     scaling: &Scaling,
     spec: &LooSpectrum<'_>,
 ) -> Vec<f64> {
-    let p = problem.cols();
+    let p = problem.columns();
     let r = spec.v.ncols();
     let m = spec.leverage.ncols();
     let k = p + 1;

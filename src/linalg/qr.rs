@@ -504,7 +504,7 @@ fn fill_with_last(
         LastColumn::None => fill_block(problem, scaling, r0, r1, false, out),
         LastColumn::Target => fill_block(problem, scaling, r0, r1, true, out),
         LastColumn::Vector(v, inv_scale) => {
-            let p = problem.cols();
+            let p = problem.columns();
             fill_block(
                 problem,
                 scaling,
@@ -521,7 +521,7 @@ fn fill_with_last(
 }
 
 fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> Mat<f64> {
-    let k = problem.cols() + usize::from(!matches!(last, LastColumn::None));
+    let k = problem.columns() + usize::from(!matches!(last, LastColumn::None));
     let ld = row_stride(k);
     let b = qr_block_rows(k);
     // Folding two triangles costs about as much as factoring `k` rows, so
@@ -532,7 +532,7 @@ fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> M
     // block; any other layout row by row into a row-major block.
     let design = problem.design();
     let strides = design.strides();
-    let by_columns = problem.cols() > 1 && strides[0] == 1 && strides[1] != 1;
+    let by_columns = problem.columns() > 1 && strides[0] == 1 && strides[1] != 1;
     let leaf = |group: &[(usize, usize)]| {
         let mut r = Mat::<f64>::zeros(k, k);
         let mut buf = vec![0.0f64; b * ld.max(k)];

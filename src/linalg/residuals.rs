@@ -25,7 +25,7 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
     let means = &problem.stats.means[..];
     let ym = problem.stats.target_mean;
     let n = problem.rows();
-    let p = problem.cols();
+    let p = problem.columns();
     let inv = 1.0 / scale;
     let beta = &beta[..p];
     let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();

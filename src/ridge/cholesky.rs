@@ -19,7 +19,7 @@ pub(super) fn solve(
     standardize: bool,
     lambda: f64,
 ) -> Result<Solution> {
-    let p = problem.cols();
+    let p = problem.columns();
     // The Gram matrix, its penalised copy and the factor.
     crate::alloc::reserve_matrices("penalised Gram matrix", p + 1, p + 1, 3)?;
     let g = centered_gram(problem, scaling, true);

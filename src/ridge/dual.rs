@@ -25,7 +25,7 @@ pub(super) fn solve(
     lambda: f64,
 ) -> Result<Solution> {
     let nu = problem.usable_rows();
-    let p = problem.cols();
+    let p = problem.columns();
     // The row system has n_u^2 entries: on a tall design it dwarfs both the
     // design and the primal methods' p x p system.
     let bytes = 8 * (nu as u128) * (nu as u128);

@@ -36,7 +36,7 @@
 //!
 //! # Which method when
 //!
-//! | [`RidgeMethod`] | what it factors | cost (`n` rows, `p` columns) | use it for |
+//! | [`RidgeFactorization`] | what it factors | cost (`n` rows, `p` columns) | use it for |
 //! |---|---|---|---|
 //! | `Cholesky` | `Z^T Z + lambda I` | `n p^2 + p^3/3` | tall designs, fastest |
 //! | `AugmentedQr` | triangle of `[Z; sqrt(lambda) I]` | `2 n p^2 + O(p^3)` | ill-conditioned designs with small `lambda` |
@@ -48,13 +48,13 @@
 //! Every method accepts wide designs (a positive penalty makes the
 //! problem determined).
 //!
-//! **`Auto`** (the default) decides by shape: when fewer rows have
+//! **`ByShape`** (the default) decides by shape: when fewer rows have
 //! non-zero weight than there are columns it uses `Dual`; otherwise
 //! `Cholesky`, and if the Cholesky factor's condition estimate `c` leaves
 //! fewer than 8 correct digits (`eps * c^2 > 1e-8`) it refits with
 //! `AugmentedQr` (one more pass over the design).
 //!
-//! At `lambda = 0` ridge is ordinary least squares: `Auto` and
+//! At `lambda = 0` ridge is ordinary least squares: `ByShape` and
 //! `AugmentedQr` then fit exactly as [`crate::Qr`], `Cholesky` as
 //! [`crate::Cholesky`], `Svd` as [`crate::Svd`] (with their errors, such as
 //! [`Error::TooFewRows`] and [`Error::RankDeficient`]); `Dual` refuses.
@@ -65,7 +65,7 @@
 //! scores a whole grid of penalties in closed form (leave-one-out error,
 //! generalized cross-validation, effective degrees of freedom) and returns
 //! the minimiser with the whole [`PenaltyCurve`]; [`RidgePath::fit`] gives
-//! the fit for any penalty at `O(p^2)`. [`KFold`] cross-validates any
+//! the fit for any penalty at `O(p^2)`. [`RowFolds`] cross-validates any
 //! solver, ridge or not, through the [`Solver`] trait.
 //!
 //! ```
@@ -96,12 +96,12 @@
 
 mod cholesky;
 mod dual;
-mod kfold;
+mod folds;
 mod path;
 mod qr;
 mod selection;
 
-pub use kfold::{CrossValidation, KFold};
+pub use folds::{HeldOutError, RowFolds};
 pub use path::RidgePath;
 pub use selection::{Criterion, PenaltyCurve};
 
@@ -112,18 +112,18 @@ use crate::problem::Problem;
 use crate::solver::{finish_closed_form, Fit, Solver};
 use crate::solvers::{Cholesky, Qr, Svd};
 
-/// Digits below which `Auto` abandons the Cholesky fit for the augmented QR.
+/// Digits below which `ByShape` abandons the Cholesky fit for the augmented QR.
 const AUTO_MIN_DIGITS: f64 = 8.0;
 
 /// How [`Ridge`] solves the penalised problem; see the
 /// [module docs](self#which-method-when).
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Hash)]
 #[non_exhaustive]
-pub enum RidgeMethod {
+pub enum RidgeFactorization {
     /// Chosen by shape (and, for tall designs, by the Cholesky factor's
     /// condition).
     #[default]
-    Auto,
+    ByShape,
     /// Cholesky factorisation of the penalised Gram matrix.
     Cholesky,
     /// QR of the design's triangle stacked over `sqrt(lambda) I`.
@@ -145,8 +145,9 @@ pub enum RidgeMethod {
 /// (see the [module docs](self) for the exact scaling, `standardize` and the
 /// methods). Accepts designs with more columns than rows.
 ///
-/// The report's `penalty` is `lambda`; `solver` names the method used
-/// (`"ridge-cholesky"`, `"ridge-qr"`, `"ridge-svd"`, `"ridge-dual"`);
+/// The report's `penalty` is `lambda`; its `solver`
+/// is `"ridge"` and `factorization` names the route taken (`"cholesky"`,
+/// `"qr"`, `"svd"`, `"dual"`);
 /// `condition` is that of the penalised system (of `[Z; sqrt(lambda) I]`
 /// for the primal methods, square root of that of `Z Z^T + lambda I` for
 /// `Dual`); `rank` is the numerical rank of the design for `Svd`, and
@@ -154,7 +155,7 @@ pub enum RidgeMethod {
 /// system itself always has full rank).
 ///
 /// ```
-/// use leastline::ridge::{Ridge, RidgeMethod};
+/// use leastline::ridge::{Ridge, RidgeFactorization};
 /// use leastline::{Problem, Solver};
 /// use ndarray::Array2;
 ///
@@ -162,8 +163,8 @@ pub enum RidgeMethod {
 /// let x = Array2::from_shape_fn((8, 20), |(i, j)| ((i + 1) as f64 * (j + 2) as f64).sqrt().fract());
 /// let y = x.column(3).to_owned() * 2.0 + 1.0;
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let dual = Ridge { method: RidgeMethod::Dual, ..Ridge::new(0.1) }.fit(&problem)?;
-/// let svd = Ridge { method: RidgeMethod::Svd, ..Ridge::new(0.1) }.fit(&problem)?;
+/// let dual = Ridge::new(0.1).with_factorization(RidgeFactorization::Dual).fit(&problem)?;
+/// let svd = Ridge::new(0.1).with_factorization(RidgeFactorization::Svd).fit(&problem)?;
 /// for (a, b) in dual.model.coefficients().iter().zip(svd.model.coefficients()) {
 ///     assert!((a - b).abs() < 1e-9);
 /// }
@@ -172,20 +173,58 @@ pub enum RidgeMethod {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Ridge {
     /// The penalty `lambda >= 0`, in the caller's units.
-    pub penalty: f64,
+    pub(crate) penalty: f64,
     /// Penalise `sd_j * b_j` instead of `b_j` (default `false`).
-    pub standardize: bool,
-    /// How to solve (default [`RidgeMethod::Auto`]).
-    pub method: RidgeMethod,
+    pub(crate) standardize: bool,
+    /// How to solve (default [`RidgeFactorization::ByShape`]).
+    pub(crate) factorization: RidgeFactorization,
 }
 
 impl Ridge {
-    /// Ridge with penalty `penalty`, unstandardised, method `Auto`.
+    /// The penalty `lambda >= 0`, in the caller's units.
+    #[must_use]
+    pub fn with_penalty(mut self, value: f64) -> Self {
+        self.penalty = value;
+        self
+    }
+
+    /// The `penalty` setting (see [`Self::with_penalty`]).
+    pub fn penalty(&self) -> f64 {
+        self.penalty
+    }
+
+    /// Penalise `sd_j * b_j` instead of `b_j` (default `false`).
+    #[must_use]
+    pub fn with_standardize(mut self, value: bool) -> Self {
+        self.standardize = value;
+        self
+    }
+
+    /// The `standardize` setting (see [`Self::with_standardize`]).
+    pub fn standardize(&self) -> bool {
+        self.standardize
+    }
+
+    /// How to solve (default [`RidgeFactorization::ByShape`]).
+    #[must_use]
+    pub fn with_factorization(mut self, value: RidgeFactorization) -> Self {
+        self.factorization = value;
+        self
+    }
+
+    /// The `factorization` setting (see [`Self::with_factorization`]).
+    pub fn factorization(&self) -> RidgeFactorization {
+        self.factorization
+    }
+}
+
+impl Ridge {
+    /// Ridge with penalty `penalty`, unstandardised, method `ByShape`.
     pub fn new(penalty: f64) -> Self {
         Ridge {
             penalty,
             standardize: false,
-            method: RidgeMethod::Auto,
+            factorization: RidgeFactorization::ByShape,
         }
     }
 }
@@ -214,15 +253,15 @@ impl Solver for Ridge {
         if lambda == 0.0 {
             return self.unpenalised(problem);
         }
-        if self.method == RidgeMethod::Svd {
+        if self.factorization == RidgeFactorization::Svd {
             return RidgePath::new(problem, self.standardize)?.fit(lambda);
         }
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-        let p = problem.cols();
+        let p = problem.columns();
         if p == 0 {
             return finish_closed_form(
                 problem,
-                "ridge",
+                "ridge-qr",
                 Vec::new(),
                 Some(0),
                 Some(1.0),
@@ -230,10 +269,14 @@ impl Solver for Ridge {
                 lambda,
             );
         }
-        let sol = match self.method {
-            RidgeMethod::Cholesky => cholesky::solve(problem, &scaling, self.standardize, lambda)?,
-            RidgeMethod::AugmentedQr => qr::solve(problem, &scaling, self.standardize, lambda)?,
-            RidgeMethod::Dual => dual::solve(problem, &scaling, self.standardize, lambda)?,
+        let sol = match self.factorization {
+            RidgeFactorization::Cholesky => {
+                cholesky::solve(problem, &scaling, self.standardize, lambda)?
+            }
+            RidgeFactorization::AugmentedQr => {
+                qr::solve(problem, &scaling, self.standardize, lambda)?
+            }
+            RidgeFactorization::Dual => dual::solve(problem, &scaling, self.standardize, lambda)?,
             _ => {
                 if problem.usable_rows() < p {
                     dual::solve(problem, &scaling, self.standardize, lambda)?
@@ -266,19 +309,19 @@ fn digits(condition: f64) -> f64 {
 impl Ridge {
     /// Penalty 0: ordinary least squares by the matching plain solver.
     fn unpenalised(&self, problem: &Problem<'_>) -> Result<Fit> {
-        let (mut fit, label) = match self.method {
-            RidgeMethod::Dual => {
+        let mut fit = match self.factorization {
+            RidgeFactorization::Dual => {
                 return Err(Error::InvalidParameter {
                     name: "penalty",
                     value: 0.0,
                     reason: "the dual method needs a positive penalty",
                 })
             }
-            RidgeMethod::Cholesky => (Cholesky::default().fit(problem)?, "ridge-cholesky"),
-            RidgeMethod::Svd => (Svd::default().fit(problem)?, "ridge-svd"),
-            _ => (Qr::default().fit(problem)?, "ridge-qr"),
+            RidgeFactorization::Cholesky => Cholesky::new().fit(problem)?,
+            RidgeFactorization::Svd => Svd::new().fit(problem)?,
+            _ => Qr::new().fit(problem)?,
         };
-        fit.report.solver = label.to_string();
+        fit.report.solver = self.name().to_string();
         Ok(fit)
     }
 }

@@ -25,9 +25,9 @@ use crate::solver::{caller_rss, finish_with_rss, Fit};
 ///   is reduced to a `p x p` triangle `R` with `R^T R = Ẑ^T Ẑ`, and the SVD
 ///   `R = U S V^T` gives the singular values and right singular vectors of
 ///   the design. The triangle is the Cholesky factor of the Gram matrix
-///   (one symmetric pass, as [`super::RidgeMethod::Cholesky`], plus one
+///   (one symmetric pass, as [`super::RidgeFactorization::Cholesky`], plus one
 ///   residual pass) when its condition estimate `c` keeps at least 8
-///   digits (`eps * c^2 <= 1e-8`, the rule of [`super::RidgeMethod::Auto`]);
+///   digits (`eps * c^2 <= 1e-8`, the rule of [`super::RidgeFactorization::ByShape`]);
 ///   otherwise it comes from the block Householder QR of [`crate::Qr`]
 ///   (about twice the flops, `Z^T Z` never formed), which keeps the
 ///   design's own condition. Neither copies the design. Cost: about
@@ -118,7 +118,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// [`Error::NoConvergence`] if the SVD or eigen iteration fails.
     pub fn new(problem: &'p Problem<'a>, standardize: bool) -> Result<Self> {
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-        if problem.usable_rows() >= problem.cols() {
+        if problem.usable_rows() >= problem.columns() {
             Self::from_columns(problem, scaling, standardize)
         } else {
             Self::from_rows(problem, scaling, standardize)
@@ -126,7 +126,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     }
 
     fn from_columns(problem: &'p Problem<'a>, scaling: Scaling, standardize: bool) -> Result<Self> {
-        let p = problem.cols();
+        let p = problem.columns();
         let tri = match gram_triangle(problem, &scaling, standardize) {
             Some(t) => t,
             None => qr_triangle(problem, &scaling, standardize),
@@ -251,7 +251,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// Coefficients `gamma^` in the uniform-penalty coordinates.
     pub(super) fn scaled_coefficients(&self, mu: f64) -> Vec<f64> {
         let sp = &self.spectrum;
-        let p = self.problem.cols();
+        let p = self.problem.columns();
         match &sp.side {
             Side::Columns { v, .. } => {
                 let mut gamma = vec![0.0; p];
@@ -403,7 +403,7 @@ struct Triangle {
 
 /// The triangle from the block Householder QR of `[Z t]` (no `Z^T Z`).
 fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Triangle {
-    let p = problem.cols();
+    let p = problem.columns();
     let r = tall_skinny_r(problem, scaling, true);
     let norms: Option<Vec<f64>> = standardize.then(|| {
         (0..p)
@@ -427,7 +427,7 @@ fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> T
 /// measured by a pass over the data at the least-squares solution (not by
 /// `t^T t - |r|^2`, which would cancel).
 fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Option<Triangle> {
-    let p = problem.cols();
+    let p = problem.columns();
     let mut g = centered_gram(problem, scaling, true);
     let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());

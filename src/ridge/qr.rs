@@ -20,7 +20,7 @@ pub(super) fn solve(
     standardize: bool,
     lambda: f64,
 ) -> Result<Solution> {
-    let p = problem.cols();
+    let p = problem.columns();
     // The triangle, the stacked system and its factor.
     crate::alloc::reserve_matrices("augmented system", 2 * p + 1, p + 1, 2)?;
     let r = tall_skinny_r(problem, scaling, true);

@@ -23,11 +23,18 @@ pub enum Criterion {
 }
 
 impl Criterion {
-    fn label(self) -> &'static str {
+    /// The criterion in words, as messages print it.
+    pub fn label(self) -> &'static str {
         match self {
             Criterion::LeaveOneOut => "leave-one-out",
             Criterion::GeneralizedCrossValidation => "generalized cross-validation",
         }
+    }
+}
+
+impl std::fmt::Display for Criterion {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.label())
     }
 }
 
@@ -172,7 +179,7 @@ impl RidgePath<'_, '_> {
         }
         let best_index = best.ok_or(Error::NoFiniteScore {
             penalties: grid.len(),
-            criterion: criterion.label(),
+            criterion,
         })?;
         Ok(super::PenaltyCurve {
             penalties: grid.to_vec(),

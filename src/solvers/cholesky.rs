@@ -43,7 +43,7 @@ use super::dependent_columns;
 /// let x = Array2::from_shape_fn((40, 9), |(i, j)| (i as f64 / 39.0).powi(j as i32 + 1));
 /// let y = x.column(0).mapv(|t| (3.0 * t).sin());
 /// let problem = Problem::new(x.view(), y.view())?;
-/// match Cholesky::default().fit(&problem) {
+/// match Cholesky::new().fit(&problem) {
 ///     Err(Error::IllConditioned { expected_digits, .. }) => assert!(expected_digits < 4.0),
 ///     other => panic!("expected a refusal, got {other:?}"),
 /// }
@@ -53,9 +53,9 @@ use super::dependent_columns;
 pub struct Cholesky {
     /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses
     /// `max(rows, columns) * eps`.
-    pub rank_tolerance: Option<f64>,
+    pub(crate) rank_tolerance: Option<f64>,
     /// Fewest correct significant digits the caller accepts (default 4).
-    pub min_digits: f64,
+    pub(crate) min_digits: f64,
 }
 
 impl Default for Cholesky {
@@ -64,6 +64,38 @@ impl Default for Cholesky {
             rank_tolerance: None,
             min_digits: 4.0,
         }
+    }
+}
+
+impl Cholesky {
+    /// Cholesky at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses
+    /// `max(rows, columns) * eps`.
+    #[must_use]
+    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
+        self.rank_tolerance = Some(value);
+        self
+    }
+
+    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
+    pub fn rank_tolerance(&self) -> Option<f64> {
+        self.rank_tolerance
+    }
+
+    /// Fewest correct significant digits the caller accepts (default 4).
+    #[must_use]
+    pub fn with_min_digits(mut self, value: f64) -> Self {
+        self.min_digits = value;
+        self
+    }
+
+    /// The `min_digits` setting (see [`Self::with_min_digits`]).
+    pub fn min_digits(&self) -> f64 {
+        self.min_digits
     }
 }
 
@@ -95,7 +127,7 @@ impl Solver for Cholesky {
                 reason: "must be finite",
             });
         }
-        let p = problem.cols();
+        let p = problem.columns();
         let scaling = Scaling::new(problem, tolerance);
         let g = centered_gram(problem, &scaling, true);
         let g11: Mat<f64> = g.as_ref().submatrix(0, 0, p, p).to_owned();

@@ -33,7 +33,7 @@ use super::refine::{refine, Refinement};
 /// `rank_tolerance * max|x_j|` (a constant column beside the intercept).
 /// The default tolerance is `max(usable rows, columns) * f64::EPSILON`.
 ///
-/// **Refinement (opt-in):** with `refinement: Some(..)` (or [`Qr::refined`])
+/// **Refinement (opt-in):** with [`Qr::with_refinement`] (or [`Qr::refined`])
 /// the solution is refined iteratively with residuals computed in
 /// double-double arithmetic from the original data, the intercept
 /// included, until it is the least-squares solution of the data as given
@@ -53,7 +53,7 @@ use super::refine::{refine, Refinement};
 ///
 /// let x = array![[0.0], [1.0], [2.0], [3.0]];
 /// let y = array![1.0, 3.0, 5.0, 7.0];
-/// let fit = Qr::default().fit(&Problem::new(x.view(), y.view())?)?;
+/// let fit = Qr::new().fit(&Problem::new(x.view(), y.view())?)?;
 /// assert!((fit.model.coefficients()[0] - 2.0).abs() < 1e-14);
 /// assert!((fit.model.intercept() - 1.0).abs() < 1e-14);
 /// # Ok::<(), leastline::Error>(())
@@ -61,10 +61,42 @@ use super::refine::{refine, Refinement};
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Qr {
     /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
-    pub rank_tolerance: Option<f64>,
+    pub(crate) rank_tolerance: Option<f64>,
     /// Iterative refinement in extended precision; `None` (default) for
     /// plain QR.
-    pub refinement: Option<Refinement>,
+    pub(crate) refinement: Option<Refinement>,
+}
+
+impl Qr {
+    /// Qr at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
+    #[must_use]
+    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
+        self.rank_tolerance = Some(value);
+        self
+    }
+
+    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
+    pub fn rank_tolerance(&self) -> Option<f64> {
+        self.rank_tolerance
+    }
+
+    /// Iterative refinement in extended precision; `None` (default) for
+    /// plain QR.
+    #[must_use]
+    pub fn with_refinement(mut self, value: Refinement) -> Self {
+        self.refinement = Some(value);
+        self
+    }
+
+    /// The `refinement` setting (see [`Self::with_refinement`]).
+    pub fn refinement(&self) -> Option<Refinement> {
+        self.refinement
+    }
 }
 
 impl Qr {
@@ -85,8 +117,8 @@ impl Qr {
     /// ```
     pub fn refined() -> Self {
         Qr {
-            refinement: Some(Refinement::default()),
-            ..Qr::default()
+            refinement: Some(Refinement::new()),
+            ..Qr::new()
         }
     }
 }
@@ -113,7 +145,7 @@ impl Solver for Qr {
             Some(t) => check_tolerance("rank_tolerance", t)?,
             None => problem.default_rank_tolerance(),
         };
-        let p = problem.cols();
+        let p = problem.columns();
         let scaling = Scaling::new(problem, tolerance);
         let r = tall_skinny_r(problem, &scaling, true);
         let dependent = dependent_columns(

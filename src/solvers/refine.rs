@@ -36,11 +36,11 @@ use crate::scaled::{ldexp, pow2_scale};
 /// most `tolerance` (the intercept's change measured against the size of
 /// `mean(x) . b`, the accuracy it can have when the columns sit far from
 /// zero), when a step stops shrinking the change at least by half, or
-/// after `max_steps` steps; a step that would grow it is discarded. A fit
+/// after `max_iterations` steps; a step that would grow it is discarded. A fit
 /// that stops shrinking counts as converged when its last change is at the
 /// rounding level of the correction's sums, `64 eps sqrt(usable rows)`.
 /// The fit report's [`IterationReport`](crate::IterationReport) says how it
-/// went (with `max_steps: 0`: no step, not converged, and the gradient
+/// went (with `max_iterations: 0`: no step, not converged, and the gradient
 /// measure of the plain QR solution).
 ///
 /// It cannot recover digits that the `f64` inputs no longer hold: it
@@ -48,18 +48,50 @@ use crate::scaled::{ldexp, pow2_scale};
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Refinement {
     /// Most refinement steps (default 10).
-    pub max_steps: usize,
+    pub(crate) max_iterations: usize,
     /// Stop when no coefficient changes by more than this fraction of
     /// itself (default `4 * f64::EPSILON`, a few units in the last place).
-    pub tolerance: f64,
+    pub(crate) tolerance: f64,
 }
 
 impl Default for Refinement {
     fn default() -> Self {
         Refinement {
-            max_steps: 10,
+            max_iterations: 10,
             tolerance: 4.0 * f64::EPSILON,
         }
+    }
+}
+
+impl Refinement {
+    /// Refinement at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Most refinement steps (default 10).
+    #[must_use]
+    pub fn with_max_iterations(mut self, value: usize) -> Self {
+        self.max_iterations = value;
+        self
+    }
+
+    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
+    pub fn max_iterations(&self) -> usize {
+        self.max_iterations
+    }
+
+    /// Stop when no coefficient changes by more than this fraction of
+    /// itself (default `4 * f64::EPSILON`, a few units in the last place).
+    #[must_use]
+    pub fn with_tolerance(mut self, value: f64) -> Self {
+        self.tolerance = value;
+        self
+    }
+
+    /// The `tolerance` setting (see [`Self::with_tolerance`]).
+    pub fn tolerance(&self) -> f64 {
+        self.tolerance
     }
 }
 
@@ -130,7 +162,7 @@ pub(crate) fn refine(
             reason: "must be finite and >= 0",
         });
     }
-    let p = problem.cols();
+    let p = problem.columns();
     let with_intercept = problem.has_intercept();
     let units = Units {
         col: scaling.scale.iter().map(|s| 1.0 / s).collect(),
@@ -207,7 +239,7 @@ pub(crate) fn refine(
             }
             worst
         };
-        if step >= settings.max_steps {
+        if step >= settings.max_iterations {
             break;
         }
         step += 1;

@@ -12,7 +12,7 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 ///
 /// Reduces the centered, weighted, scaled design to its triangle `R` by the
 /// same block QR as [`crate::Qr`], takes the SVD `R = U S V^T` (a `p x p`
-/// problem), and keeps the singular values `s_i > relative_cutoff * s_max`;
+/// problem), and keeps the singular values `s_i > rank_tolerance * s_max`;
 /// their count is the numerical rank in the report. The default cutoff is
 /// `max(usable rows, columns) * f64::EPSILON`. Columns that are constant
 /// beside the intercept (to the default tolerance `max(usable rows,
@@ -30,7 +30,7 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 /// // The second column is twice the first: only their combination is identified.
 /// let x = array![[1.0, 2.0], [2.0, 4.0], [3.0, 6.0], [4.0, 8.0]];
 /// let y = array![1.0, 2.1, 2.9, 4.2];
-/// let fit = Svd::default().fit(&Problem::new(x.view(), y.view())?)?;
+/// let fit = Svd::new().fit(&Problem::new(x.view(), y.view())?)?;
 /// assert_eq!(fit.report.rank, Some(1));
 /// let b = fit.model.coefficients();
 /// // Minimum norm: b is proportional to (1, 2).
@@ -40,7 +40,26 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Svd {
     /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
-    pub relative_cutoff: Option<f64>,
+    pub(crate) rank_tolerance: Option<f64>,
+}
+
+impl Svd {
+    /// Svd at its default settings; change them with the `with_*` methods.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
+    #[must_use]
+    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
+        self.rank_tolerance = Some(value);
+        self
+    }
+
+    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
+    pub fn rank_tolerance(&self) -> Option<f64> {
+        self.rank_tolerance
+    }
 }
 
 impl Solver for Svd {
@@ -53,11 +72,11 @@ impl Solver for Svd {
     /// [`Error::NoConvergence`] if the SVD iteration fails; [`Error::Overflow`].
     fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
         problem.require_determined()?;
-        let cutoff = match self.relative_cutoff {
-            Some(t) => check_tolerance("relative_cutoff", t)?,
+        let cutoff = match self.rank_tolerance {
+            Some(t) => check_tolerance("rank_tolerance", t)?,
             None => problem.default_rank_tolerance(),
         };
-        let p = problem.cols();
+        let p = problem.columns();
         // The cutoff applies to singular values only; constant columns are
         // found with the default tolerance, as in every other solver.
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());

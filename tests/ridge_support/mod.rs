@@ -72,9 +72,9 @@ pub fn make_case(seed: u64, n: usize, p: usize, weights: Weights, intercept: boo
 
 impl Case {
     pub fn problem(&self) -> Problem<'_> {
-        let mut b = Problem::builder(self.x.view(), self.y.view()).intercept(self.intercept);
+        let mut b = Problem::builder(self.x.view(), self.y.view()).with_intercept(self.intercept);
         if let Some(w) = &self.w {
-            b = b.weights(w.view());
+            b = b.with_weights(w.view());
         }
         b.build().expect("valid synthetic problem")
     }

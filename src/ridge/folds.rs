@@ -30,7 +30,7 @@ use crate::solver::Solver;
 /// held-out rows, `sum w_i (y_i - y^_i)^2 / sum w_i`.
 ///
 /// ```
-/// use leastline::ridge::{KFold, Ridge};
+/// use leastline::ridge::{RowFolds, Ridge};
 /// use leastline::{Problem, Qr, Solver};
 /// use ndarray::Array2;
 ///
@@ -38,26 +38,52 @@ use crate::solver::Solver;
 /// let x = Array2::from_shape_fn((40, 2), |(i, j)| ((i * (j + 3)) % 11) as f64 + 0.5 * j as f64);
 /// let y = x.column(0).mapv(|d| 4.0 + 1.5 * d) + x.column(1).mapv(|c| 0.3 * c);
 /// let problem = Problem::new(x.view(), y.view())?;
-/// let cv = KFold::new(5, 7);
-/// let candidates: Vec<Box<dyn Solver>> = vec![Box::new(Qr::default()), Box::new(Ridge::new(10.0))];
+/// let cv = RowFolds::new().with_folds(5).with_seed(7);
+/// let candidates: Vec<Box<dyn Solver>> = vec![Box::new(Qr::new()), Box::new(Ridge::new(10.0))];
 /// for solver in &candidates {
-///     let score = cv.cross_validate(solver.as_ref(), &problem)?;
+///     let score = cv.held_out_error(solver.as_ref(), &problem)?;
 ///     println!("{}: {:.3} +- {:.3}", solver.name(), score.mean_error, score.std_error);
 /// }
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq, Eq)]
-pub struct KFold {
+pub struct RowFolds {
     /// Number of folds, at least 2 and at most the usable rows.
-    pub folds: usize,
+    pub(crate) folds: usize,
     /// Seed of the shuffle.
-    pub seed: u64,
+    pub(crate) seed: u64,
 }
 
-impl Default for KFold {
+impl Default for RowFolds {
     /// Five folds, seed 0.
     fn default() -> Self {
-        KFold { folds: 5, seed: 0 }
+        RowFolds { folds: 5, seed: 0 }
+    }
+}
+
+impl RowFolds {
+    /// Number of folds, at least 2 and at most the usable rows.
+    #[must_use]
+    pub fn with_folds(mut self, value: usize) -> Self {
+        self.folds = value;
+        self
+    }
+
+    /// The `folds` setting (see [`Self::with_folds`]).
+    pub fn folds(&self) -> usize {
+        self.folds
+    }
+
+    /// Seed of the shuffle.
+    #[must_use]
+    pub fn with_seed(mut self, value: u64) -> Self {
+        self.seed = value;
+        self
+    }
+
+    /// The `seed` setting (see [`Self::with_seed`]).
+    pub fn seed(&self) -> u64 {
+        self.seed
     }
 }
 
@@ -65,7 +91,7 @@ impl Default for KFold {
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
-pub struct CrossValidation {
+pub struct HeldOutError {
     /// Weighted mean squared prediction error of each held-out fold.
     pub fold_errors: Vec<f64>,
     /// Rows with non-zero weight held out in each fold.
@@ -99,10 +125,11 @@ fn weighted_mean_square(items: &[(f64, (f64, i32))]) -> f64 {
     ldexp(num / den, 2 * top)
 }
 
-impl KFold {
-    /// `folds` folds shuffled with `seed`.
-    pub fn new(folds: usize, seed: u64) -> Self {
-        KFold { folds, seed }
+impl RowFolds {
+    /// Five folds shuffled with seed 0; change them with
+    /// [`Self::with_folds`] and [`Self::with_seed`].
+    pub fn new() -> Self {
+        Self::default()
     }
 
     /// The fold of each row (`None` for rows of zero weight).
@@ -145,16 +172,16 @@ impl KFold {
     /// when a score itself exceeds the range).
     ///
     /// # Errors
-    /// As [`KFold::assignments`]; [`Error::FoldFit`] carrying the fold and
+    /// As [`RowFolds::assignments`]; [`Error::FoldFit`] carrying the fold and
     /// the solver's error when a training fit fails; [`Error::OverflowAt`]
     /// naming a held-out row whose prediction exceeds the range of `f64`;
     /// [`Error::Overflow`] when a fold's error does; [`Error::TooLarge`]
     /// when the training weights cannot be allocated.
-    pub fn cross_validate(
+    pub fn held_out_error(
         &self,
         solver: &dyn Solver,
         problem: &Problem<'_>,
-    ) -> Result<CrossValidation> {
+    ) -> Result<HeldOutError> {
         let fold_of = self.assignments(problem)?;
         let x = problem.design();
         let y = problem.target();
@@ -172,8 +199,8 @@ impl KFold {
                 };
             }
             let fit = Problem::builder(x, y)
-                .weights(ArrayView1::from(&train[..]))
-                .intercept(problem.has_intercept())
+                .with_weights(ArrayView1::from(&train[..]))
+                .with_intercept(problem.has_intercept())
                 .build()
                 .and_then(|training| solver.fit(&training))
                 .map_err(|e| Error::FoldFit {
@@ -207,7 +234,7 @@ impl KFold {
             fold_errors.iter().map(|&e| (1.0, e - mean_error)),
         );
         let std_dev = spread.sqrt() / (kf - 1.0).sqrt();
-        Ok(CrossValidation {
+        Ok(HeldOutError {
             fold_errors,
             fold_rows,
             mean_error,
