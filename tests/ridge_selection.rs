@@ -272,7 +272,12 @@ fn interpolating_grid_has_no_finite_score() {
         Criterion::GeneralizedCrossValidation,
     ] {
         let err = path.curve(&[0.0], criterion).unwrap_err();
-        assert!(matches!(err, Error::NoFiniteScore { penalties: 1, .. }));
+        // The error names the criterion that was scored, typed.
+        assert!(
+            matches!(err, Error::NoFiniteScore { penalties: 1, criterion: c } if c == criterion),
+            "{err}"
+        );
+        assert!(err.to_string().contains(criterion.label()), "{err}");
         // With a positive penalty beside it, that one is chosen.
         let curve = path.curve(&[0.0, 1.0], criterion).unwrap();
         assert_eq!(curve.best_index, 1);
