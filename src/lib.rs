@@ -9,7 +9,7 @@
 //!
 //! ```
 //! use leastline::{Problem, Qr, Solver};
-//! use ndarray::array;
+//! use leastline::ndarray::array;
 //!
 //! // Five readings of a sensor against two known inputs.
 //! let x = array![[1.0, 0.2], [2.0, 0.1], [3.0, 0.4], [4.0, 0.3], [5.0, 0.5]];
@@ -21,6 +21,62 @@
 //! println!("rank {:?}, condition {:.1?}", fit.report.rank, fit.report.condition);
 //! let y_new = fit.model.predict(array![[6.0, 0.2]].view())?;
 //! assert_eq!(y_new.len(), 1);
+//! # Ok::<(), leastline::Error>(())
+//! ```
+//!
+//! ## Uncertainty of the coefficients
+//!
+//! [`Inference`] turns a fit into standard errors, t statistics, p-values
+//! and confidence intervals for every coefficient and the intercept, R²,
+//! the F test of all slopes, and intervals for predictions at new rows.
+//! It re-reads the design once, checks that the fit is the least-squares
+//! solution of this problem (it refuses a fit of other data, a penalised
+//! fit or an iterative fit far from the exact solution with
+//! [`Error::InferenceRefused`]), and forms every number in scaled
+//! coordinates.
+//!
+//! ```
+//! use leastline::{CovarianceKind, Inference, InferenceOptions, Problem, Qr, Solver};
+//! use leastline::ndarray::array;
+//!
+//! // Hours a kiln takes to cool against its load (tonnes) and door gap (cm).
+//! let x = array![[1.0, 0.5], [2.0, 0.4], [3.0, 0.9], [4.0, 0.7], [5.0, 1.2], [6.0, 1.0], [7.0, 1.5]];
+//! let y = array![3.1, 4.0, 5.4, 6.1, 7.6, 8.2, 9.9];
+//! let problem = Problem::new(x.view(), y.view())?;
+//! let fit = Qr::new().fit(&problem)?;
+//! let inference = Inference::new(&problem, &fit)?;
+//! for estimate in inference.estimates() {
+//!     assert!(estimate.lower <= estimate.value && estimate.value <= estimate.upper);
+//! }
+//! // Heteroskedasticity-consistent errors at the 90% level.
+//! let options = InferenceOptions::new().with_covariance(CovarianceKind::Hc3).with_level(0.9);
+//! let robust = Inference::with_options(&problem, &fit, options)?;
+//! println!("{robust}");
+//! # Ok::<(), leastline::Error>(())
+//! ```
+//!
+//! ## Choosing a ridge penalty
+//!
+//! [`RidgePath`] decomposes the design once and then scores a whole grid
+//! of penalties in closed form, by generalized cross-validation or exact
+//! leave-one-out error ([`Criterion`]); [`RowFolds`] measures the held-out
+//! error of any solver by k-fold splitting.
+//!
+//! ```
+//! use leastline::{Criterion, Problem, RidgePath};
+//! use leastline::ndarray::Array2;
+//!
+//! // Two nearly equal flow meters and a valve position on an invented pipeline.
+//! let x = Array2::from_shape_fn((20, 3), |(i, j)| {
+//!     let t = i as f64;
+//!     match j { 0 => 10.0 + t, 1 => 10.0 + t + 0.01 * (1.3 * t).sin(), _ => (0.7 * t).cos() }
+//! });
+//! let y = x.column(0).mapv(|v| 2.0 * v) + x.column(2).mapv(|v| 3.0 * v);
+//! let problem = Problem::new(x.view(), y.view())?;
+//! let path = RidgePath::new(&problem, true)?;
+//! let curve = path.curve(&path.default_grid(40)?, Criterion::GeneralizedCrossValidation)?;
+//! let fit = path.fit(curve.best_penalty)?;
+//! assert_eq!(fit.report.penalty, curve.best_penalty);
 //! # Ok::<(), leastline::Error>(())
 //! ```
 //!
