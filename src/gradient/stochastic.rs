@@ -19,12 +19,25 @@ use crate::solver::{Fit, Solver};
 /// In epoch `e` (from 0) the step is `step / (1 + decay * e)`.
 ///
 /// The default first step is `1 / L_b`, where
-/// `L_b = n (b - 1) / (b (n - 1)) L + (n - b) / (b (n - 1)) L_max` (the
-/// "expected smoothness" of sampling `b` of `n` rows without replacement,
-/// a standard bound quoted from memory): `L` is the full curvature (as for
-/// [`crate::GradientDescent`]) and `L_max` the largest single-row
-/// curvature. It equals `1 / L` for one batch of all rows and shrinks for
-/// small batches, whose gradients are noisier.
+/// `L_b = n (b - 1) / (b (n - 1)) L + (n - b) / (b (n - 1)) L_max`: `L` is
+/// the full curvature (as for [`crate::GradientDescent`]) and `L_max` the
+/// largest single-row curvature. `L_b` is the "expected smoothness" of a
+/// batch of `b` of the `n` rows drawn without replacement; the derivation
+/// (the crate's own, short enough to check here) is: write the loss `f` as
+/// the mean of `n` row terms whose curvatures `H_i` are positive
+/// semi-definite with largest eigenvalue at most `L_max`, and `H` (largest
+/// eigenvalue `L`) their mean. A batch `B` estimates the gradient by its
+/// mean over `B`, `g_B`, of curvature `H_B = (1/b) sum_{i in B} H_i`. Row
+/// `i` is in `B` with probability `b / n` and two rows `i != j` with
+/// probability `b (b - 1) / (n (n - 1))`, so
+/// `E[H_B^2] = (n - b) / (b n (n - 1)) sum_i H_i^2 + n (b - 1) / (b (n - 1)) H^2`.
+/// As `H_i^2 <= L_max H_i` and `H^2 <= L H` (positive semi-definite order),
+/// `E[H_B^2] <= L_b H`, and for `d = w - w*` (`w*` the minimiser)
+/// `E |g_B(w) - g_B(w*)|^2 = d' E[H_B^2] d <= L_b d' H d = 2 L_b (f(w) - f(w*))`:
+/// the expected-smoothness inequality with constant `L_b`. It equals `L`
+/// for one batch of all rows (`b = n`) and `L_max` for single rows
+/// (`b = 1`), so the step shrinks for small batches, whose gradients are
+/// noisier.
 ///
 /// After each epoch the loss and gradient are evaluated on all rows (one
 /// more read of the design), for the stopping test, the observer and the

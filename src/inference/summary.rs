@@ -190,6 +190,10 @@ impl fmt::Display for Diagnostics {
 mod tests {
     use super::num;
 
+    /// Inputs of realistic size and precision: NIST StRD Longley.dat
+    /// certified values (residual standard deviation, |B2| and B0, 15
+    /// significant digits as NIST printed them). The expected strings are
+    /// their rounding to six significant digits, done by hand.
     #[test]
     fn numbers_keep_six_significant_digits() {
         assert_eq!(num(304.854073561965), "304.854");

@@ -6,8 +6,9 @@
 //! - For `z < 2` the central mass is `phi(z) sum_(n>=0) z^(2n+1) / (2n+1)!!`
 //!   with `(2n+1)!! = 1 3 5 ... (2n+1)` (Abramowitz and Stegun, Handbook of Mathematical Functions,
 //!   1964, eq. 26.2.11), a series of positive terms (at most 35 of them),
-//!   and the tail is `1/2` minus it (at least 0.0227, so at most 5 bits
-//!   are lost to the subtraction).
+//!   and the tail is `1/2` minus it (at least `P(Z > 2) = 0.0227`, as the
+//!   continued fraction below computes it, so at most 5 bits are lost to
+//!   the subtraction).
 //! - For `z >= 2` the tail is `z phi(z) / V(z)` with the continued fraction
 //!   `V(z) = z^2 + 1 - 2 / (z^2 + 5 - 12 / (z^2 + 9 - 30 / (z^2 + 13 - ...)))`
 //!   (partial numerators `2k (2k - 1)`): the even part of Laplace's
