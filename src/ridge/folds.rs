@@ -93,14 +93,18 @@ impl RowFolds {
 #[non_exhaustive]
 pub struct HeldOutError {
     /// Weighted mean squared prediction error of each held-out fold.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub fold_errors: Vec<f64>,
     /// Rows with non-zero weight held out in each fold.
     pub fold_rows: Vec<usize>,
     /// Mean of the fold errors.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub mean_error: f64,
     /// Sample standard deviation of the fold errors (divisor `k - 1`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub std_dev: f64,
     /// Standard error of the mean, `std_dev / sqrt(k)`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub std_error: f64,
 }
 
