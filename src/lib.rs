@@ -97,6 +97,36 @@
 #![warn(clippy::unwrap_used)]
 #![doc(test(attr(deny(warnings))))]
 
+/// Serde for a settings type (feature `serde`): written field by field
+/// (derive `Serialize` on the type), read through a shadow struct of the
+/// same fields and checked with the type's `check()` before it exists, so
+/// that a saved setting out of range is refused at load time with the
+/// message of the matching [`Error`].
+#[cfg(feature = "serde")]
+macro_rules! checked_settings {
+    ($ty:ident { $($(#[$m:meta])* $f:ident : $t:ty),* $(,)? }) => {
+        const _: () = {
+            #[derive(serde::Deserialize)]
+            #[serde(deny_unknown_fields)]
+            struct Shadow { $($(#[$m])* $f: $t),* }
+            impl<'de> serde::Deserialize<'de> for $ty {
+                fn deserialize<D: serde::Deserializer<'de>>(
+                    d: D,
+                ) -> std::result::Result<Self, D::Error> {
+                    let s = <Shadow as serde::Deserialize>::deserialize(d)?;
+                    let v = $ty { $($f: s.$f),* };
+                    v.check().map_err(<D::Error as serde::de::Error>::custom)?;
+                    Ok(v)
+                }
+            }
+        };
+    };
+}
+#[cfg(not(feature = "serde"))]
+macro_rules! checked_settings {
+    ($($t:tt)*) => {};
+}
+
 mod alloc;
 #[doc(hidden)]
 pub mod bench_support;

@@ -218,7 +218,10 @@ impl LinearModel {
     /// [`Error::NameCountMismatch`] when the count differs from the number
     /// of coefficients; [`Error::InvalidName`] for an empty name or one
     /// that repeats an earlier name (naming its position, from 0).
-    pub fn with_names<S: Into<String>>(mut self, names: impl IntoIterator<Item = S>) -> Result<Self> {
+    pub fn with_names<S: Into<String>>(
+        mut self,
+        names: impl IntoIterator<Item = S>,
+    ) -> Result<Self> {
         let names: Vec<String> = names.into_iter().map(Into::into).collect();
         check_names(&names, self.columns())?;
         self.names = names;
@@ -236,10 +239,18 @@ impl LinearModel {
         }
     }
 
-    /// Sets names already checked (those of a problem).
-    pub(crate) fn set_names(&mut self, names: Vec<String>) {
-        debug_assert_eq!(names.len(), self.columns());
-        self.names = names;
+    /// A fitted model (finite values) named after the problem's columns.
+    pub(crate) fn fitted(
+        problem: &crate::Problem<'_>,
+        coefficients: Array1<f64>,
+        intercept: f64,
+    ) -> Self {
+        let mut model = Self::from_parts(coefficients, intercept);
+        if let Some(names) = problem.names() {
+            debug_assert_eq!(names.len(), model.columns());
+            model.names = names.to_vec();
+        }
+        model
     }
 
     /// The name of each column (`x0`, `x1`, ... unless set).

@@ -56,7 +56,9 @@ impl Visitor<'_> for FloatVisitor {
     type Value = f64;
 
     fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str("a decimal number as a string (or a number), or one of \"inf\", \"-inf\", \"NaN\"")
+        f.write_str(
+            "a decimal number as a string (or a number), or one of \"inf\", \"-inf\", \"NaN\"",
+        )
     }
 
     fn visit_f64<E: de::Error>(self, v: f64) -> Result<f64, E> {
@@ -317,9 +319,7 @@ pub(crate) mod option_array2 {
         }
     }
 
-    pub fn deserialize<'de, D: Deserializer<'de>>(
-        d: D,
-    ) -> Result<Option<Array2<f64>>, D::Error> {
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<Array2<f64>>, D::Error> {
         Ok(Option::<Matrix>::deserialize(d)?.map(|m| m.0))
     }
 }

@@ -47,7 +47,10 @@ pub trait Solver: Send + Sync + Debug {
 /// as in the model's form.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[cfg_attr(feature = "serde", serde(try_from = "saved::FitData", into = "saved::FitData"))]
+#[cfg_attr(
+    feature = "serde",
+    serde(try_from = "saved::FitData", into = "saved::FitData")
+)]
 pub struct Fit {
     /// Coefficients and intercept in the caller's units.
     pub model: LinearModel,
@@ -304,7 +307,7 @@ pub(crate) fn finish_with_rss(
             .saturating_sub(rank + usize::from(problem.has_intercept()))
     });
     Ok(Fit {
-        model: LinearModel::from_parts(ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: solver.to_string(),
             rank,

@@ -214,12 +214,33 @@ impl CovarianceKind {
 /// assert_eq!(options.level(), 0.9);
 /// ```
 #[derive(Debug, Clone, Copy, PartialEq)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct InferenceOptions {
     /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
     pub(crate) covariance: CovarianceKind,
     /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) level: f64,
+}
+
+checked_settings!(InferenceOptions {
+    covariance: CovarianceKind,
+    #[serde(with = "crate::serde_float::float")]
+    level: f64,
+});
+
+impl InferenceOptions {
+    /// Checks the settings (as inference does), for reading saved settings.
+    pub(crate) fn check(&self) -> Result<()> {
+        if !(self.level > 0.0 && self.level < 1.0) {
+            return Err(Error::InvalidParameter {
+                name: "level",
+                value: self.level,
+                reason: "must lie strictly between 0 and 1",
+            });
+        }
+        Ok(())
+    }
 }
 
 impl Default for InferenceOptions {
@@ -956,7 +977,11 @@ impl Inference {
         Ok(Inference {
             options,
             solver: report.solver.clone(),
-            names: (0..p).map(|j| format!("x{j}")).collect(),
+            names: match problem.names() {
+                Some(names) => names.to_vec(),
+                None if fit.model.columns() == p => fit.model.names().to_vec(),
+                None => crate::model::default_names(p),
+            },
             coefficients,
             intercept,
             covariance,
@@ -973,21 +998,19 @@ impl Inference {
         })
     }
 
-    /// Replaces the column names used by the summary.
+    /// Replaces the column names used by the summary (an inference takes
+    /// those of its problem, see [`crate::ProblemBuilder::with_names`], or
+    /// else those of the fit's model; this overrides them).
     ///
     /// # Errors
-    /// [`Error::ColumnCountMismatch`] unless there is one name per column.
+    /// [`Error::NameCountMismatch`] unless there is one name per column;
+    /// [`Error::InvalidName`] for an empty or repeated name.
     pub fn with_names<S: Into<String>>(
         mut self,
         names: impl IntoIterator<Item = S>,
     ) -> Result<Self> {
         let names: Vec<String> = names.into_iter().map(Into::into).collect();
-        if names.len() != self.coefficients.len() {
-            return Err(Error::ColumnCountMismatch {
-                expected: self.coefficients.len(),
-                found: names.len(),
-            });
-        }
+        crate::model::check_names(&names, self.coefficients.len())?;
         self.names = names;
         Ok(self)
     }
@@ -1113,6 +1136,7 @@ mod serde_check {
 
         fn try_from(d: InferenceData) -> Result<Self> {
             crate::serde_float::check_tag("inference", FORMAT, VERSION, &d.format, d.version)?;
+            crate::model::check_names(&d.names, d.coefficients.len())?;
             let p = d.coefficients.len();
             let q = p + usize::from(d.intercept.is_some());
             let b = &d.basis;

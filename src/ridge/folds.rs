@@ -47,6 +47,7 @@ use crate::solver::Solver;
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct RowFolds {
     /// Number of folds, at least 2 and at most the usable rows.
     pub(crate) folds: usize,
@@ -58,6 +59,25 @@ impl Default for RowFolds {
     /// Five folds, seed 0.
     fn default() -> Self {
         RowFolds { folds: 5, seed: 0 }
+    }
+}
+
+checked_settings!(RowFolds {
+    folds: usize,
+    seed: u64,
+});
+
+impl RowFolds {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    pub(crate) fn check(&self) -> Result<()> {
+        if self.folds < 2 {
+            return Err(Error::InvalidParameter {
+                name: "folds",
+                value: self.folds as f64,
+                reason: "must be at least 2",
+            });
+        }
+        Ok(())
     }
 }
 
