@@ -91,6 +91,7 @@ checked_settings!(Accelerated {
 
 impl Accelerated {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> crate::Result<()> {
         self.common().check()
     }

@@ -139,6 +139,7 @@ checked_settings!(Stochastic {
 
 impl Stochastic {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         if self.batch_size == 0 {
             return Err(Error::InvalidParameter {

@@ -231,6 +231,7 @@ checked_settings!(InferenceOptions {
 
 impl InferenceOptions {
     /// Checks the settings (as inference does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         if !(self.level > 0.0 && self.level < 1.0) {
             return Err(Error::InvalidParameter {

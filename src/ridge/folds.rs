@@ -69,6 +69,7 @@ checked_settings!(RowFolds {
 
 impl RowFolds {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         if self.folds < 2 {
             return Err(Error::InvalidParameter {

@@ -192,6 +192,7 @@ checked_settings!(Ridge {
 
 impl Ridge {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         check_penalty("penalty", self.penalty)?;
         if self.penalty == 0.0 && self.factorization == RidgeFactorization::Dual {

@@ -77,6 +77,7 @@ checked_settings!(Qr {
 
 impl Qr {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         if let Some(t) = self.rank_tolerance {
             check_tolerance("rank_tolerance", t)?;

@@ -73,6 +73,7 @@ checked_settings!(Refinement {
 
 impl Refinement {
     /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
         if !self.tolerance.is_finite() || self.tolerance < 0.0 {
             return Err(Error::InvalidParameter {
