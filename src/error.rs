@@ -267,6 +267,39 @@ pub enum Error {
         /// The criterion that was scored.
         criterion: crate::ridge::Criterion,
     },
+    /// A saved form (feature `serde`) with another format tag or version
+    /// than this version of the crate reads.
+    #[error("the saved {what} has format {found:?} version {version}; this crate reads format {expected:?} version {supported}")]
+    SavedFormat {
+        /// What was being read ("model", "fit", "inference").
+        what: &'static str,
+        /// The format tag this crate writes and reads.
+        expected: &'static str,
+        /// The version this crate writes and reads.
+        supported: u32,
+        /// The format tag found.
+        found: String,
+        /// The version found.
+        version: u64,
+    },
+    /// A list of column names whose length is not the number of columns.
+    #[error("{found} column names were given for {expected} columns")]
+    NameCountMismatch {
+        /// Columns of the design (or coefficients of the model).
+        expected: usize,
+        /// Names given.
+        found: usize,
+    },
+    /// A column name that is empty or repeats an earlier one.
+    #[error("column name {name:?} at position {position} (counting from 0) is invalid: {reason}")]
+    InvalidName {
+        /// Position of the name in the list (0-based).
+        position: usize,
+        /// The offending name.
+        name: String,
+        /// What is wrong with it.
+        reason: &'static str,
+    },
 }
 
 /// Shorthand for results of this crate.

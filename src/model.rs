@@ -6,10 +6,13 @@ use crate::error::{Error, Input, Result};
 use crate::scaled::{exponent, ldexp};
 
 /// Coefficients and intercept of a fitted linear model, in the caller's units:
-/// `y_hat = intercept + x . coefficients`.
+/// `y_hat = intercept + x . coefficients`, with a name per column.
 ///
 /// Every coefficient and the intercept are finite: [`LinearModel::new`]
-/// checks them, and so does deserialisation (feature `serde`).
+/// checks them, and so does deserialisation (feature `serde`). The names
+/// are those of the [`crate::Problem`] the model was fitted to
+/// ([`crate::ProblemBuilder::with_names`]), or `x0`, `x1`, ... when it had
+/// none.
 ///
 /// ```
 /// use leastline::LinearModel;
@@ -17,34 +20,174 @@ use crate::scaled::{exponent, ldexp};
 ///
 /// let model = LinearModel::new(array![2.0, -1.0], 0.5)?;
 /// assert_eq!(model.predict_row(array![1.0, 3.0].view())?, -0.5);
+/// assert_eq!(model.names(), ["x0", "x1"]);
+/// # Ok::<(), leastline::Error>(())
+/// ```
+///
+/// # Saved form (feature `serde`)
+///
+/// A model is written as a JSON object of our own layout, version 1:
+///
+/// - `"format"`: the string `"leastline-model"`;
+/// - `"version"`: the number `1`;
+/// - `"intercept"`: the intercept;
+/// - `"coefficients"`: a list of `{"name": ..., "value": ...}`, one per
+///   column in the design's order.
+///
+/// Every number is a string holding the shortest decimal that Rust's
+/// `str::parse::<f64>` reads back to the same bits, so the round trip is
+/// exact with any JSON reader (a plain JSON number is accepted on the way
+/// in, and is then what the reader made of it). Reading checks the tag,
+/// the version, the names (non-empty, unique) and that every value is
+/// finite; a failure is the message of the matching [`Error`]
+/// ([`Error::SavedFormat`], [`Error::InvalidName`], [`Error::NonFinite`]).
+///
+/// ```
+/// # #[cfg(feature = "serde")] {
+/// use leastline::LinearModel;
+/// use ndarray::array;
+///
+/// let model = LinearModel::new(array![0.1, -2.5e-7], 3.0)?.with_names(["rainfall", "altitude"])?;
+/// let text = serde_json::to_string(&model).expect("a model is always written");
+/// assert_eq!(
+///     text,
+///     r#"{"format":"leastline-model","version":1,"intercept":"3","coefficients":[{"name":"rainfall","value":"0.1"},{"name":"altitude","value":"-2.5e-7"}]}"#
+/// );
+/// let back: LinearModel = serde_json::from_str(&text).expect("written by this crate");
+/// assert_eq!(back, model);
+/// // A saved form of another format or version is refused.
+/// let other = text.replace(r#""version":1"#, r#""version":2"#);
+/// assert!(serde_json::from_str::<LinearModel>(&other).is_err());
+/// # }
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[cfg_attr(feature = "serde", serde(try_from = "ModelData"))]
+#[cfg_attr(feature = "serde", derive(serde::Deserialize))]
+#[cfg_attr(feature = "serde", serde(try_from = "saved::ModelData"))]
 pub struct LinearModel {
     coefficients: Array1<f64>,
     intercept: f64,
+    names: Vec<String>,
 }
 
-/// The serialised form of a [`LinearModel`], checked on the way in.
-#[cfg(feature = "serde")]
-#[derive(serde::Deserialize)]
-struct ModelData {
-    coefficients: Array1<f64>,
-    intercept: f64,
+/// The default name of column `j`: `x0`, `x1`, ...
+pub(crate) fn default_name(j: usize) -> String {
+    format!("x{j}")
+}
+
+/// `x0`, `x1`, ... for `p` columns.
+pub(crate) fn default_names(p: usize) -> Vec<String> {
+    (0..p).map(default_name).collect()
+}
+
+/// Checks a list of column names for `columns` columns: the count, and
+/// that every name is non-empty and unlike every other.
+///
+/// # Errors
+/// [`Error::NameCountMismatch`]; [`Error::InvalidName`] naming the position.
+pub(crate) fn check_names(names: &[String], columns: usize) -> Result<()> {
+    if names.len() != columns {
+        return Err(Error::NameCountMismatch {
+            expected: columns,
+            found: names.len(),
+        });
+    }
+    if let Some(position) = names.iter().position(|n| n.trim().is_empty()) {
+        return Err(Error::InvalidName {
+            position,
+            name: names[position].clone(),
+            reason: "a name must hold a visible character",
+        });
+    }
+    let mut order: Vec<usize> = crate::alloc::with_capacity("column names", names.len())?;
+    order.extend(0..names.len());
+    order.sort_by(|&a, &b| names[a].cmp(&names[b]).then(a.cmp(&b)));
+    let repeat = order
+        .windows(2)
+        .filter(|w| names[w[0]] == names[w[1]])
+        .map(|w| w[1])
+        .min();
+    if let Some(position) = repeat {
+        return Err(Error::InvalidName {
+            position,
+            name: names[position].clone(),
+            reason: "names must be unique and this one repeats an earlier name",
+        });
+    }
+    Ok(())
 }
 
 #[cfg(feature = "serde")]
-impl TryFrom<ModelData> for LinearModel {
-    type Error = Error;
-    fn try_from(data: ModelData) -> Result<Self> {
-        LinearModel::new(data.coefficients, data.intercept)
+mod saved {
+    //! The documented saved form of a model (see [`LinearModel`]).
+    use super::*;
+    use serde::{Deserialize, Serialize};
+
+    pub(super) const FORMAT: &str = "leastline-model";
+    pub(super) const VERSION: u32 = 1;
+
+    #[derive(Serialize, Deserialize)]
+    pub(super) struct Coefficient {
+        pub name: String,
+        #[serde(with = "crate::serde_float::float")]
+        pub value: f64,
+    }
+
+    #[derive(Deserialize)]
+    pub(crate) struct ModelData {
+        format: String,
+        version: u64,
+        #[serde(with = "crate::serde_float::float")]
+        intercept: f64,
+        coefficients: Vec<Coefficient>,
+    }
+
+    #[derive(Serialize)]
+    struct ModelOut {
+        format: &'static str,
+        version: u32,
+        #[serde(with = "crate::serde_float::float")]
+        intercept: f64,
+        coefficients: Vec<Coefficient>,
+    }
+
+    impl Serialize for LinearModel {
+        fn serialize<S: serde::Serializer>(&self, s: S) -> std::result::Result<S::Ok, S::Error> {
+            ModelOut {
+                format: FORMAT,
+                version: VERSION,
+                intercept: self.intercept,
+                coefficients: self
+                    .names
+                    .iter()
+                    .zip(self.coefficients.iter())
+                    .map(|(name, &value)| Coefficient {
+                        name: name.clone(),
+                        value,
+                    })
+                    .collect(),
+            }
+            .serialize(s)
+        }
+    }
+
+    impl TryFrom<ModelData> for LinearModel {
+        type Error = Error;
+        fn try_from(data: ModelData) -> Result<Self> {
+            crate::serde_float::check_tag("model", FORMAT, VERSION, &data.format, data.version)?;
+            let (names, values): (Vec<String>, Vec<f64>) = data
+                .coefficients
+                .into_iter()
+                .map(|c| (c.name, c.value))
+                .unzip();
+            LinearModel::new(Array1::from(values), data.intercept)?.with_names(names)
+        }
     }
 }
 
 impl LinearModel {
-    /// A model with the given slopes and intercept (use 0 for none).
+    /// A model with the given slopes and intercept (use 0 for none), its
+    /// columns named `x0`, `x1`, ... (see [`Self::with_names`]).
     ///
     /// # Errors
     /// [`Error::NonFinite`] with [`Input::Coefficients`] for a NaN or
@@ -69,13 +212,50 @@ impl LinearModel {
         Ok(Self::from_parts(coefficients, intercept))
     }
 
+    /// The same model with the given column names, one per coefficient.
+    ///
+    /// # Errors
+    /// [`Error::NameCountMismatch`] when the count differs from the number
+    /// of coefficients; [`Error::InvalidName`] for an empty name or one
+    /// that repeats an earlier name (naming its position, from 0).
+    pub fn with_names<S: Into<String>>(
+        mut self,
+        names: impl IntoIterator<Item = S>,
+    ) -> Result<Self> {
+        let names: Vec<String> = names.into_iter().map(Into::into).collect();
+        check_names(&names, self.columns())?;
+        self.names = names;
+        Ok(self)
+    }
+
     /// A model from values already known to be finite (the solvers check).
     pub(crate) fn from_parts(coefficients: Array1<f64>, intercept: f64) -> Self {
         debug_assert!(coefficients.iter().all(|b| b.is_finite()) && intercept.is_finite());
+        let names = default_names(coefficients.len());
         LinearModel {
             coefficients,
             intercept,
+            names,
         }
+    }
+
+    /// A fitted model (finite values) named after the problem's columns.
+    pub(crate) fn fitted(
+        problem: &crate::Problem<'_>,
+        coefficients: Array1<f64>,
+        intercept: f64,
+    ) -> Self {
+        let mut model = Self::from_parts(coefficients, intercept);
+        if let Some(names) = problem.names() {
+            debug_assert_eq!(names.len(), model.columns());
+            model.names = names.to_vec();
+        }
+        model
+    }
+
+    /// The name of each column (`x0`, `x1`, ... unless set).
+    pub fn names(&self) -> &[String] {
+        &self.names
     }
 
     /// The slope of each column, in the caller's units.

@@ -43,6 +43,7 @@ pub struct Problem<'a> {
     target: ArrayView1<'a, f64>,
     weights: Option<ArrayView1<'a, f64>>,
     intercept: bool,
+    names: Option<Vec<String>>,
     pub(crate) stats: Stats,
 }
 
@@ -53,6 +54,7 @@ pub struct ProblemBuilder<'a> {
     target: ArrayView1<'a, f64>,
     weights: Option<ArrayView1<'a, f64>>,
     intercept: bool,
+    names: Option<Vec<String>>,
 }
 
 /// Per-column summaries computed during validation (internal).
@@ -92,6 +94,31 @@ impl<'a> ProblemBuilder<'a> {
         self
     }
 
+    /// A name for every column of the design, in its order. Fits, models,
+    /// inference and its summary use them (without names they use `x0`,
+    /// `x1`, ...). They are checked by [`Self::build`]: one per column,
+    /// each holding a visible character, no two alike.
+    ///
+    /// ```
+    /// use leastline::{Problem, Qr, Solver};
+    /// use ndarray::array;
+    ///
+    /// // Hours of sunshine and of irrigation against a greenhouse's yield.
+    /// let x = array![[6.0, 1.0], [7.5, 0.5], [5.0, 2.0], [8.0, 1.5], [6.5, 0.0]];
+    /// let y = array![12.1, 13.0, 11.8, 15.2, 10.9];
+    /// let problem = Problem::builder(x.view(), y.view())
+    ///     .with_names(["sunshine", "irrigation"])
+    ///     .build()?;
+    /// let fit = Qr::new().fit(&problem)?;
+    /// assert_eq!(fit.model.names(), ["sunshine", "irrigation"]);
+    /// assert_eq!(fit.inference(&problem)?.names, ["sunshine", "irrigation"]);
+    /// # Ok::<(), leastline::Error>(())
+    /// ```
+    pub fn with_names<S: Into<String>>(mut self, names: impl IntoIterator<Item = S>) -> Self {
+        self.names = Some(names.into_iter().map(Into::into).collect());
+        self
+    }
+
     /// Validates the inputs and computes the column summaries.
     ///
     /// # Errors
@@ -99,7 +126,10 @@ impl<'a> ProblemBuilder<'a> {
     /// entry per row; [`Error::NoRows`]; [`Error::NothingToFit`] for zero
     /// columns without an intercept; [`Error::NonFinite`] naming the input,
     /// row and column of the first NaN or infinity; [`Error::InvalidWeight`]
-    /// for a negative or non-finite weight; [`Error::AllWeightsZero`].
+    /// for a negative or non-finite weight; [`Error::AllWeightsZero`];
+    /// with names, [`Error::NameCountMismatch`] when their count is not
+    /// the number of columns and [`Error::InvalidName`] for an empty or
+    /// repeated name.
     pub fn build(self) -> Result<Problem<'a>> {
         let (n, p) = self.design.dim();
         if self.target.len() != n {
@@ -124,6 +154,9 @@ impl<'a> ProblemBuilder<'a> {
         if p == 0 && !self.intercept {
             return Err(Error::NothingToFit);
         }
+        if let Some(names) = &self.names {
+            crate::model::check_names(names, p)?;
+        }
         let weight_scale = match &self.weights {
             Some(w) => check_weights(w)?,
             None => 1.0,
@@ -141,6 +174,7 @@ impl<'a> ProblemBuilder<'a> {
             target: self.target,
             weights: self.weights,
             intercept: self.intercept,
+            names: self.names,
             stats,
         })
     }
@@ -155,6 +189,7 @@ impl<'a> Problem<'a> {
             target,
             weights: None,
             intercept: true,
+            names: None,
         }
     }
 
@@ -164,6 +199,11 @@ impl<'a> Problem<'a> {
     /// As [`ProblemBuilder::build`].
     pub fn new(design: ArrayView2<'a, f64>, target: ArrayView1<'a, f64>) -> Result<Self> {
         Self::builder(design, target).build()
+    }
+
+    /// The column names given to [`ProblemBuilder::with_names`], if any.
+    pub fn names(&self) -> Option<&[String]> {
+        self.names.as_deref()
     }
 
     /// The design matrix as given.

@@ -40,13 +40,99 @@ pub trait Solver: Send + Sync + Debug {
 }
 
 /// A fitted model and the report of how the fit went.
+///
+/// Saved form (feature `serde`): `{"format": "leastline-fit", "version": 1,
+/// "model": ..., "report": ...}` with the model in its own saved form (see
+/// [`LinearModel`]) and the report's fields by name, every number a string
+/// as in the model's form.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[cfg_attr(
+    feature = "serde",
+    serde(try_from = "saved::FitData", into = "saved::FitData")
+)]
 pub struct Fit {
     /// Coefficients and intercept in the caller's units.
     pub model: LinearModel,
     /// How the fit went.
     pub report: FitReport,
+}
+
+#[cfg(feature = "serde")]
+mod saved {
+    //! The saved form of a [`Fit`], tagged with its format and version.
+    use super::*;
+
+    const FORMAT: &str = "leastline-fit";
+    const VERSION: u32 = 1;
+
+    #[derive(serde::Serialize, serde::Deserialize)]
+    pub(super) struct FitData {
+        format: String,
+        version: u64,
+        model: LinearModel,
+        report: FitReport,
+    }
+
+    /// Every number of a saved report must be finite (as in a report the
+    /// solvers make), and the condition estimate at least 1.
+    fn check_report(r: &FitReport) -> Result<()> {
+        let it = r.iterations.as_ref();
+        let mut numbers: Vec<(&'static str, f64)> = vec![
+            ("report.residual_sum_of_squares", r.residual_sum_of_squares),
+            ("report.penalty", r.penalty),
+        ];
+        if let Some(c) = r.condition {
+            numbers.push(("report.condition", c));
+        }
+        if let Some(it) = it {
+            numbers.push(("report.iterations.final_loss", it.final_loss));
+            numbers.push(("report.iterations.gradient_norm", it.gradient_norm));
+            numbers.push(("report.iterations.step", it.step));
+        }
+        let history = it.into_iter().flat_map(|it| it.loss_history.iter());
+        let bad = numbers
+            .into_iter()
+            .chain(history.map(|&v| ("report.iterations.loss_history", v)))
+            .find(|(_, v)| !v.is_finite() || *v < 0.0);
+        if let Some((name, value)) = bad {
+            return Err(Error::InvalidParameter {
+                name,
+                value,
+                reason: "must be finite and >= 0 in a saved fit",
+            });
+        }
+        Ok(())
+    }
+
+    impl From<Fit> for FitData {
+        fn from(fit: Fit) -> Self {
+            FitData {
+                format: FORMAT.to_string(),
+                version: u64::from(VERSION),
+                model: fit.model,
+                report: fit.report,
+            }
+        }
+    }
+
+    impl TryFrom<FitData> for Fit {
+        type Error = Error;
+        fn try_from(d: FitData) -> Result<Fit> {
+            crate::serde_float::check_tag("fit", FORMAT, VERSION, &d.format, d.version)?;
+            check_report(&d.report)?;
+            if d.report.columns != d.model.columns() {
+                return Err(Error::ColumnCountMismatch {
+                    expected: d.report.columns,
+                    found: d.model.columns(),
+                });
+            }
+            Ok(Fit {
+                model: d.model,
+                report: d.report,
+            })
+        }
+    }
 }
 
 /// How a fit went: numbers a caller should look at before trusting it.
@@ -75,9 +161,11 @@ pub struct FitReport {
     /// the penalised system for ridge. The normal equations' Gram matrix
     /// has about its square. `None` when nothing was factored (the
     /// gradient solvers).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub condition: Option<f64>,
     /// Weighted residual sum of squares `sum w_i (y_i - y_hat_i)^2`, formed
     /// from the residuals of the centered problem in scaled units.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub residual_sum_of_squares: f64,
     /// Residual degrees of freedom: usable rows minus rank minus the
     /// intercept; `None` when the rank was not measured. (For a penalised
@@ -87,6 +175,7 @@ pub struct FitReport {
     /// Rows with non-zero weight.
     pub usable_rows: usize,
     /// The L2 penalty applied (0 for unpenalised solvers).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub penalty: f64,
     /// The factorisation a closed-form fit used: `"qr"`, `"cholesky"`,
     /// `"svd"`, or for [`crate::Ridge`] the one its
@@ -114,12 +203,16 @@ pub struct IterationReport {
     /// Whether an observer asked the fit to stop.
     pub stopped_by_observer: bool,
     /// Final value of the objective.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub final_loss: f64,
     /// Final relative gradient norm.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub gradient_norm: f64,
     /// Step size used (the first one for decaying schedules).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub step: f64,
     /// The objective at each iteration (possibly thinned).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub loss_history: Vec<f64>,
     /// Full reads of the design, including those spent estimating the step
     /// (an epoch of mini-batches counts as one).
@@ -214,7 +307,7 @@ pub(crate) fn finish_with_rss(
             .saturating_sub(rank + usize::from(problem.has_intercept()))
     });
     Ok(Fit {
-        model: LinearModel::from_parts(ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: solver.to_string(),
             rank,

@@ -560,7 +560,10 @@ fn arguments_are_checked() {
     ));
     assert!(matches!(
         inf.clone().with_names(["age"]),
-        Err(Error::ColumnCountMismatch { .. })
+        Err(Error::NameCountMismatch {
+            expected: 2,
+            found: 1
+        })
     ));
     // Diagnostics on another data set are refused.
     let y2 = y.mapv(|v| v * 2.0);

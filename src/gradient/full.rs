@@ -46,14 +46,18 @@ use crate::solver::{Fit, Solver};
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct GradientDescent {
     /// Stop when the relative gradient norm is at most this (default `1e-6`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) tolerance: f64,
     /// Most updates (default 10,000).
     pub(crate) max_iterations: usize,
     /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) step: Option<f64>,
     /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) penalty: f64,
     /// Starting slopes in caller units (its intercept is ignored); `None`
     /// starts from zero slopes.
@@ -77,6 +81,27 @@ impl Default for GradientDescent {
             history_stride: 1,
             fail_if_not_converged: false,
         }
+    }
+}
+
+checked_settings!(GradientDescent {
+    #[serde(with = "crate::serde_float::float")]
+    tolerance: f64,
+    max_iterations: usize,
+    #[serde(with = "crate::serde_float::option_float")]
+    step: Option<f64>,
+    #[serde(with = "crate::serde_float::float")]
+    penalty: f64,
+    start: Option<LinearModel>,
+    history_stride: usize,
+    fail_if_not_converged: bool,
+});
+
+impl GradientDescent {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> crate::Result<()> {
+        self.common().check()
     }
 }
 

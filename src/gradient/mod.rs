@@ -627,7 +627,7 @@ pub(crate) fn finish(
         return Err(Error::Overflow { what: "loss" });
     }
     Ok(Fit {
-        model: LinearModel::from_parts(ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: name.to_string(),
             // Nothing is factored: the rank and condition are not measured.

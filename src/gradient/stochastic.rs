@@ -80,15 +80,18 @@ use crate::solver::{Fit, Solver};
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Stochastic {
     /// Rows per batch (default 64; at least 1).
     pub(crate) batch_size: usize,
     /// Most epochs, each a shuffled pass over the rows (default 100).
     pub(crate) max_iterations: usize,
     /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) step: Option<f64>,
     /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
     /// finite and `>= 0`; 0 keeps the step constant).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) decay: f64,
     /// Seed of the shuffling (default 0).
     pub(crate) seed: u64,
@@ -97,8 +100,10 @@ pub struct Stochastic {
     pub(crate) average: bool,
     /// Stop when the relative gradient norm after an epoch is at most this
     /// (default `1e-6`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) tolerance: f64,
     /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) penalty: f64,
     /// Starting slopes in caller units (its intercept is ignored).
     pub(crate) start: Option<LinearModel>,
@@ -124,6 +129,46 @@ impl Default for Stochastic {
             history_stride: 1,
             fail_if_not_converged: false,
         }
+    }
+}
+
+checked_settings!(Stochastic {
+    batch_size: usize,
+    max_iterations: usize,
+    #[serde(with = "crate::serde_float::option_float")]
+    step: Option<f64>,
+    #[serde(with = "crate::serde_float::float")]
+    decay: f64,
+    seed: u64,
+    average: bool,
+    #[serde(with = "crate::serde_float::float")]
+    tolerance: f64,
+    #[serde(with = "crate::serde_float::float")]
+    penalty: f64,
+    start: Option<LinearModel>,
+    history_stride: usize,
+    fail_if_not_converged: bool,
+});
+
+impl Stochastic {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if self.batch_size == 0 {
+            return Err(Error::InvalidParameter {
+                name: "batch_size",
+                value: 0.0,
+                reason: "must be at least 1",
+            });
+        }
+        if !self.decay.is_finite() || self.decay < 0.0 {
+            return Err(Error::InvalidParameter {
+                name: "decay",
+                value: self.decay,
+                reason: "must be finite and >= 0",
+            });
+        }
+        self.common().check()
     }
 }
 

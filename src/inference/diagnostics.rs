@@ -36,14 +36,19 @@ use crate::scaled::ldexp;
 #[non_exhaustive]
 pub struct Diagnostics {
     /// Leverage (hat value) of every row.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub leverage: Array1<f64>,
     /// Residuals `y_i - y_hat_i` in the caller's units (unweighted).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub residuals: Array1<f64>,
     /// Internally studentized residuals.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats_or_none"))]
     pub studentized: Vec<Option<f64>>,
     /// Externally studentized (deleted) residuals.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats_or_none"))]
     pub deleted_studentized: Vec<Option<f64>>,
     /// Cook's distances.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats_or_none"))]
     pub cooks_distance: Vec<Option<f64>>,
     /// Parameters `k` (the leverages' sum).
     pub parameters: usize,

@@ -32,19 +32,24 @@ use crate::scaled::{exponent, ldexp};
 #[non_exhaustive]
 pub struct GoodnessOfFit {
     /// R², centered or uncentered (see `centered`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub r_squared: f64,
     /// `1 - (1 - R²) (n - i) / (n - k)` with `i = 1` for a centered and
     /// `i = 0` for an uncentered R².
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub adjusted_r_squared: f64,
     /// Whether the sums of squares are about the weighted mean (`true`,
     /// model with intercept) or about zero (`false`, no intercept).
     pub centered: bool,
     /// Total sum of squares (centered or not, as R²), weighted.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub total_sum_of_squares: f64,
     /// Sum of squares explained by the slopes, `||R gamma||^2` in caller
     /// units: equals `TSS - RSS` at the least-squares solution.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub regression_sum_of_squares: f64,
     /// Weighted residual sum of squares of the fit's coefficients.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub residual_sum_of_squares: f64,
     /// The test that every slope is zero; `None` without slopes, or when a
     /// sandwich middle matrix is singular.
@@ -83,6 +88,7 @@ pub struct OverallTest {
     /// Denominator degrees of freedom (residual).
     pub df_residual: usize,
     /// Upper-tail probability.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub p_value: f64,
 }
 
@@ -105,6 +111,7 @@ pub struct OverallTest {
 #[non_exhaustive]
 pub struct Collinearity {
     /// Variance inflation factor of every column.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub vif: Vec<f64>,
     /// 2-norm condition number of the unit-column design.
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]

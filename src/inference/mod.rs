@@ -214,12 +214,34 @@ impl CovarianceKind {
 /// assert_eq!(options.level(), 0.9);
 /// ```
 #[derive(Debug, Clone, Copy, PartialEq)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct InferenceOptions {
     /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
     pub(crate) covariance: CovarianceKind,
     /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) level: f64,
+}
+
+checked_settings!(InferenceOptions {
+    covariance: CovarianceKind,
+    #[serde(with = "crate::serde_float::float")]
+    level: f64,
+});
+
+impl InferenceOptions {
+    /// Checks the settings (as inference does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if !(self.level > 0.0 && self.level < 1.0) {
+            return Err(Error::InvalidParameter {
+                name: "level",
+                value: self.level,
+                reason: "must lie strictly between 0 and 1",
+            });
+        }
+        Ok(())
+    }
 }
 
 impl Default for InferenceOptions {
@@ -281,6 +303,7 @@ pub enum InferenceRefusal {
     /// sandwich intervals would not have their stated coverage.
     Penalised {
         /// The penalty of the fit.
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         penalty: f64,
     },
     /// An iterative fit that stopped before converging.
@@ -300,6 +323,7 @@ pub enum InferenceRefusal {
         /// Row index (0-based).
         row: usize,
         /// Its computed leverage.
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         leverage: f64,
     },
     /// The fit's report does not match the problem given (another data set?).
@@ -324,8 +348,10 @@ pub enum InferenceRefusal {
         /// The distance in standard errors (see [`Inference::fit_distance`];
         /// `+inf` when the exact solution fits the data exactly and the
         /// fit does not).
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         distance: f64,
         /// The bound, [`MAX_FIT_DISTANCE`].
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         bound: f64,
     },
 }
@@ -385,8 +411,10 @@ fn refuse(refusal: InferenceRefusal) -> Error {
 #[non_exhaustive]
 pub struct Estimate {
     /// The estimate, in the caller's units.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub value: f64,
     /// Its standard error under the selected covariance.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub std_error: f64,
     /// `value / std_error`, formed in scaled units (so it does not depend
     /// on the units of the data); `+inf` or `-inf` when the standard error
@@ -399,10 +427,13 @@ pub struct Estimate {
     pub t: f64,
     /// Two-sided p-value of `value = 0` against Student's t with the
     /// residual degrees of freedom.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub p_value: f64,
     /// Lower end of the confidence interval at the chosen level.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub lower: f64,
     /// Upper end of the confidence interval at the chosen level.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub upper: f64,
 }
 
@@ -424,28 +455,38 @@ pub(crate) fn ratio(a: f64, b: f64) -> f64 {
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 struct Basis {
     /// `p x p` upper-triangular factor of the scaled centered design.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array2"))]
     r: Array2<f64>,
     /// Column divisors (powers of two).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     scale: Vec<f64>,
     /// Target divisor (a power of two).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     target_scale: f64,
     /// Internal weight divisor (a power of two).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     weight_scale: f64,
     /// Sum of the scaled weights.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     total_weight: f64,
     /// Column means used for centering (zeros without intercept).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     means: Vec<f64>,
     /// Weighted mean of the target (zero without intercept).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     target_mean: f64,
     /// The middle matrix of a sandwich covariance in orthonormal
     /// coordinates (`q x q`, scaled units divided by `2^meat_exp`); `None`
     /// for the classical covariance, whose middle matrix is `sigma~^2 I`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_array2"))]
     meat: Option<Array2<f64>>,
     /// The power of two the middle matrix is divided by.
     meat_exp: i32,
     /// Residual standard deviation in scaled units.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     sigma_scaled: f64,
     /// Slopes in scaled coordinates.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     gamma: Vec<f64>,
     /// The fingerprint of the problem.
     fingerprint: u64,
@@ -459,7 +500,13 @@ struct Basis {
 /// (feature `serde`) are checked for consistent sizes and finite numbers.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[cfg_attr(feature = "serde", serde(try_from = "serde_check::InferenceData"))]
+#[cfg_attr(
+    feature = "serde",
+    serde(
+        try_from = "serde_check::InferenceData",
+        into = "serde_check::InferenceData"
+    )
+)]
 #[non_exhaustive]
 pub struct Inference {
     /// The settings used.
@@ -931,7 +978,11 @@ impl Inference {
         Ok(Inference {
             options,
             solver: report.solver.clone(),
-            names: (0..p).map(|j| format!("x{j}")).collect(),
+            names: match problem.names() {
+                Some(names) => names.to_vec(),
+                None if fit.model.columns() == p => fit.model.names().to_vec(),
+                None => crate::model::default_names(p),
+            },
             coefficients,
             intercept,
             covariance,
@@ -948,21 +999,19 @@ impl Inference {
         })
     }
 
-    /// Replaces the column names used by the summary.
+    /// Replaces the column names used by the summary (an inference takes
+    /// those of its problem, see [`crate::ProblemBuilder::with_names`], or
+    /// else those of the fit's model; this overrides them).
     ///
     /// # Errors
-    /// [`Error::ColumnCountMismatch`] unless there is one name per column.
+    /// [`Error::NameCountMismatch`] unless there is one name per column;
+    /// [`Error::InvalidName`] for an empty or repeated name.
     pub fn with_names<S: Into<String>>(
         mut self,
         names: impl IntoIterator<Item = S>,
     ) -> Result<Self> {
         let names: Vec<String> = names.into_iter().map(Into::into).collect();
-        if names.len() != self.coefficients.len() {
-            return Err(Error::ColumnCountMismatch {
-                expected: self.coefficients.len(),
-                found: names.len(),
-            });
-        }
+        crate::model::check_names(&names, self.coefficients.len())?;
         self.names = names;
         Ok(self)
     }
@@ -1014,24 +1063,61 @@ mod serde_check {
     //! checked before an [`Inference`] exists.
     use super::*;
 
-    #[derive(serde::Deserialize)]
+    pub(super) const FORMAT: &str = "leastline-inference";
+    pub(super) const VERSION: u32 = 1;
+
+    /// The saved form: the public fields, the private basis, and a format
+    /// tag and version at the head.
+    #[derive(serde::Serialize, serde::Deserialize)]
     pub(super) struct InferenceData {
+        format: String,
+        version: u64,
         options: InferenceOptions,
         solver: String,
         names: Vec<String>,
         coefficients: Vec<Estimate>,
         intercept: Option<Estimate>,
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array2"))]
         covariance: Array2<f64>,
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         residual_variance: f64,
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         residual_sd: f64,
         residual_df: usize,
         usable_rows: usize,
         parameters: usize,
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         critical_value: f64,
+        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         fit_distance: f64,
         goodness: GoodnessOfFit,
         collinearity: Collinearity,
         basis: Basis,
+    }
+
+    impl From<Inference> for InferenceData {
+        fn from(i: Inference) -> Self {
+            InferenceData {
+                format: FORMAT.to_string(),
+                version: u64::from(VERSION),
+                options: i.options,
+                solver: i.solver,
+                names: i.names,
+                coefficients: i.coefficients,
+                intercept: i.intercept,
+                covariance: i.covariance,
+                residual_variance: i.residual_variance,
+                residual_sd: i.residual_sd,
+                residual_df: i.residual_df,
+                usable_rows: i.usable_rows,
+                parameters: i.parameters,
+                critical_value: i.critical_value,
+                fit_distance: i.fit_distance,
+                goodness: i.goodness,
+                collinearity: i.collinearity,
+                basis: i.basis,
+            }
+        }
     }
 
     fn bad(reason: &'static str) -> Error {
@@ -1050,6 +1136,8 @@ mod serde_check {
         type Error = Error;
 
         fn try_from(d: InferenceData) -> Result<Self> {
+            crate::serde_float::check_tag("inference", FORMAT, VERSION, &d.format, d.version)?;
+            crate::model::check_names(&d.names, d.coefficients.len())?;
             let p = d.coefficients.len();
             let q = p + usize::from(d.intercept.is_some());
             let b = &d.basis;

@@ -28,20 +28,28 @@ use crate::scaled::{exponent, ldexp};
 #[non_exhaustive]
 pub struct Predictions {
     /// Confidence level of the intervals.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub level: f64,
     /// Predicted mean response `b0 + x0 . b` per row.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub fitted: Array1<f64>,
     /// Standard error of the mean response.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub mean_std_error: Array1<f64>,
     /// Lower end of the confidence interval of the mean response.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub mean_lower: Array1<f64>,
     /// Upper end of the confidence interval of the mean response.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub mean_upper: Array1<f64>,
     /// Standard error of a new observation (`sqrt(mean variance + sigma^2 / w0)`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub prediction_std_error: Array1<f64>,
     /// Lower end of the prediction interval of a new observation.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub prediction_lower: Array1<f64>,
     /// Upper end of the prediction interval of a new observation.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::array1"))]
     pub prediction_upper: Array1<f64>,
 }
 

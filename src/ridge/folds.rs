@@ -47,6 +47,7 @@ use crate::solver::Solver;
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct RowFolds {
     /// Number of folds, at least 2 and at most the usable rows.
     pub(crate) folds: usize,
@@ -58,6 +59,26 @@ impl Default for RowFolds {
     /// Five folds, seed 0.
     fn default() -> Self {
         RowFolds { folds: 5, seed: 0 }
+    }
+}
+
+checked_settings!(RowFolds {
+    folds: usize,
+    seed: u64,
+});
+
+impl RowFolds {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if self.folds < 2 {
+            return Err(Error::InvalidParameter {
+                name: "folds",
+                value: self.folds as f64,
+                reason: "must be at least 2",
+            });
+        }
+        Ok(())
     }
 }
 
@@ -93,14 +114,18 @@ impl RowFolds {
 #[non_exhaustive]
 pub struct HeldOutError {
     /// Weighted mean squared prediction error of each held-out fold.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub fold_errors: Vec<f64>,
     /// Rows with non-zero weight held out in each fold.
     pub fold_rows: Vec<usize>,
     /// Mean of the fold errors.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub mean_error: f64,
     /// Sample standard deviation of the fold errors (divisor `k - 1`).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub std_dev: f64,
     /// Standard error of the mean, `std_dev / sqrt(k)`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub std_error: f64,
 }
 

@@ -118,6 +118,7 @@ const AUTO_MIN_DIGITS: f64 = 8.0;
 /// How [`Ridge`] solves the penalised problem; see the
 /// [module docs](self#which-method-when).
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
 pub enum RidgeFactorization {
     /// Chosen by shape (and, for tall designs, by the Cholesky factor's
@@ -171,13 +172,38 @@ pub enum RidgeFactorization {
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Ridge {
     /// The penalty `lambda >= 0`, in the caller's units.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) penalty: f64,
     /// Penalise `sd_j * b_j` instead of `b_j` (default `false`).
     pub(crate) standardize: bool,
     /// How to solve (default [`RidgeFactorization::ByShape`]).
     pub(crate) factorization: RidgeFactorization,
+}
+
+checked_settings!(Ridge {
+    #[serde(with = "crate::serde_float::float")]
+    penalty: f64,
+    standardize: bool,
+    factorization: RidgeFactorization,
+});
+
+impl Ridge {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        check_penalty("penalty", self.penalty)?;
+        if self.penalty == 0.0 && self.factorization == RidgeFactorization::Dual {
+            return Err(Error::InvalidParameter {
+                name: "penalty",
+                value: 0.0,
+                reason: "the dual method needs a positive penalty",
+            });
+        }
+        Ok(())
+    }
 }
 
 impl Ridge {

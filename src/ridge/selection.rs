@@ -63,10 +63,13 @@ impl std::fmt::Display for Criterion {
 #[non_exhaustive]
 pub struct PenaltyCurve {
     /// The penalties scored, in the caller's order.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub penalties: Vec<f64>,
     /// Effective degrees of freedom of each fit (intercept counted as one).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub effective_df: Vec<f64>,
     /// Weighted residual sum of squares `sum_i w_i e_i^2` of each fit.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub residual_sum_of_squares: Vec<f64>,
     /// Generalized cross-validation score of each penalty (`+inf` where
     /// it is not determined; written as `"inf"` by serde).
@@ -83,6 +86,7 @@ pub struct PenaltyCurve {
     /// largest penalty).
     pub best_index: usize,
     /// The minimising penalty.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub best_penalty: f64,
 }
 

@@ -50,11 +50,14 @@ use super::dependent_columns;
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Cholesky {
     /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses
     /// `max(rows, columns) * eps`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) rank_tolerance: Option<f64>,
     /// Fewest correct significant digits the caller accepts (default 4).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) min_digits: f64,
 }
 
@@ -64,6 +67,31 @@ impl Default for Cholesky {
             rank_tolerance: None,
             min_digits: 4.0,
         }
+    }
+}
+
+checked_settings!(Cholesky {
+    #[serde(with = "crate::serde_float::option_float")]
+    rank_tolerance: Option<f64>,
+    #[serde(with = "crate::serde_float::float")]
+    min_digits: f64,
+});
+
+impl Cholesky {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if let Some(t) = self.rank_tolerance {
+            check_tolerance("rank_tolerance", t)?;
+        }
+        if !self.min_digits.is_finite() {
+            return Err(Error::InvalidParameter {
+                name: "min_digits",
+                value: self.min_digits,
+                reason: "must be finite",
+            });
+        }
+        Ok(())
     }
 }
 

@@ -59,12 +59,34 @@ use super::refine::{refine, Refinement};
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, Default, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Qr {
     /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) rank_tolerance: Option<f64>,
     /// Iterative refinement in extended precision; `None` (default) for
     /// plain QR.
     pub(crate) refinement: Option<Refinement>,
+}
+
+checked_settings!(Qr {
+    #[serde(with = "crate::serde_float::option_float")]
+    rank_tolerance: Option<f64>,
+    refinement: Option<Refinement>,
+});
+
+impl Qr {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if let Some(t) = self.rank_tolerance {
+            check_tolerance("rank_tolerance", t)?;
+        }
+        if let Some(r) = &self.refinement {
+            r.check()?;
+        }
+        Ok(())
+    }
 }
 
 impl Qr {
@@ -199,7 +221,7 @@ impl Solver for Qr {
             rss,
             0.0,
         )?;
-        fit.model = LinearModel::from_parts(Array1::from(refined.beta), refined.intercept);
+        fit.model = LinearModel::fitted(problem, Array1::from(refined.beta), refined.intercept);
         let loss_exp = 2 * scaling.target_exp;
         let losses: Vec<f64> = refined.losses.iter().map(|&l| ldexp(l, loss_exp)).collect();
         let final_loss = ldexp(

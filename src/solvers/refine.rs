@@ -46,11 +46,13 @@ use crate::scaled::{ldexp, pow2_scale};
 /// It cannot recover digits that the `f64` inputs no longer hold: it
 /// converges to the exact least-squares solution *of the data as given*.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Refinement {
     /// Most refinement steps (default 10).
     pub(crate) max_iterations: usize,
     /// Stop when no coefficient changes by more than this fraction of
     /// itself (default `4 * f64::EPSILON`, a few units in the last place).
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) tolerance: f64,
 }
 
@@ -60,6 +62,27 @@ impl Default for Refinement {
             max_iterations: 10,
             tolerance: 4.0 * f64::EPSILON,
         }
+    }
+}
+
+checked_settings!(Refinement {
+    max_iterations: usize,
+    #[serde(with = "crate::serde_float::float")]
+    tolerance: f64,
+});
+
+impl Refinement {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if !self.tolerance.is_finite() || self.tolerance < 0.0 {
+            return Err(Error::InvalidParameter {
+                name: "refinement.tolerance",
+                value: self.tolerance,
+                reason: "must be finite and >= 0",
+            });
+        }
+        Ok(())
     }
 }
 

@@ -38,9 +38,27 @@ use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
 /// # Ok::<(), leastline::Error>(())
 /// ```
 #[derive(Debug, Clone, Default, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Svd {
     /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
+    #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) rank_tolerance: Option<f64>,
+}
+
+checked_settings!(Svd {
+    #[serde(with = "crate::serde_float::option_float")]
+    rank_tolerance: Option<f64>,
+});
+
+impl Svd {
+    /// Checks the settings (as a fit does), for reading saved settings.
+    #[cfg_attr(not(feature = "serde"), allow(dead_code))]
+    pub(crate) fn check(&self) -> Result<()> {
+        if let Some(t) = self.rank_tolerance {
+            check_tolerance("rank_tolerance", t)?;
+        }
+        Ok(())
+    }
 }
 
 impl Svd {
