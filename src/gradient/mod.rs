@@ -623,6 +623,12 @@ pub(crate) fn finish(
         return Err(Error::Overflow { what: "intercept" });
     }
     let rss = crate::solver::caller_rss(problem, objective.loss_exp / 2, outcome.eval.sq)?;
+    let rss_parts = (
+        outcome.eval.sq,
+        crate::solver::rss_exponent(problem, objective.loss_exp / 2),
+    );
+    // No rank, so no residual degrees of freedom and no sigma.
+    let (_, r_squared) = crate::solver::spread_measures(problem, rss_parts, None);
     if !final_loss.is_finite() || history.iter().any(|l| !l.is_finite()) {
         return Err(Error::Overflow { what: "loss" });
     }
@@ -636,6 +642,8 @@ pub(crate) fn finish(
             condition: None,
             residual_sum_of_squares: rss,
             residual_df: None,
+            sigma: None,
+            r_squared,
             usable_rows: problem.usable_rows(),
             fingerprint: problem.fingerprint(),
             penalty: common.penalty,
