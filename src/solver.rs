@@ -133,13 +133,23 @@ pub struct FitReport {
     pub rank: Option<usize>,
     /// Columns of the design.
     pub columns: usize,
-    /// Condition estimate of the matrix the solver factored, after exact
-    /// power-of-two column scaling: the 1-norm condition number of the
-    /// triangular factor of the centered design for QR and Cholesky, the
-    /// ratio of the extreme retained singular values for SVD, and that of
-    /// the penalised system for ridge. The normal equations' Gram matrix
-    /// has about its square. `None` when nothing was factored (the
-    /// gradient solvers).
+    /// The condition number of the design, one definition for every
+    /// solver: the 2-norm condition number `s_max / s_min` (largest over
+    /// smallest singular value) of the weighted design, centered by its
+    /// weighted means when an intercept is fitted, after exact power-of-two
+    /// column scaling (each column divided by the power of two at or below
+    /// its largest centered magnitude). When the design is rank deficient
+    /// (the SVD solver, ridge), `s_min` is the smallest retained singular
+    /// value (above the rank tolerance times `s_max`).
+    ///
+    /// Each closed-form solver computes it from the `p x p` matrix it
+    /// already has (the triangle `R` for QR, the Cholesky factor of the
+    /// Gram matrix, which has the same singular values, the SVD's values;
+    /// for ridge the design's triangle or the eigenvalues of its Gram
+    /// matrix, not the penalised system's), and [`crate::Collinearity`]
+    /// reports the same number. The normal equations' Gram matrix has its
+    /// square. `None` when no `p x p` matrix of the design is factored: the
+    /// gradient solvers, and ridge through the dual (row) system.
     pub condition: Option<f64>,
     /// Weighted residual sum of squares `sum w_i (y_i - y_hat_i)^2`, formed
     /// from the residuals of the centered problem in scaled units.

@@ -170,7 +170,7 @@ impl Solver for Qr {
             .enumerate()
             .map(|(j, &g)| scaling.to_caller(j, g))
             .collect();
-        let condition = triangular::condition_upper(r11.as_ref());
+        let condition = crate::linalg::svd::condition(r11.as_ref(), 0.0)?;
         let Some(settings) = &self.refinement else {
             return finish_closed_form(
                 problem,
