@@ -203,13 +203,16 @@ pub struct IterationReport {
     pub converged: bool,
     /// Whether an observer asked the fit to stop.
     pub stopped_by_observer: bool,
-    /// Final value of the objective.
+    /// Final value of the crate's loss (the weighted mean squared residual,
+    /// plus the penalty term for penalised fits: see
+    /// [the crate docs](crate#the-loss)).
     pub final_loss: f64,
     /// Final relative gradient norm.
     pub gradient_norm: f64,
     /// Step size used (the first one for decaying schedules).
     pub step: f64,
-    /// The objective at each iteration (possibly thinned).
+    /// The loss (as [`IterationReport::final_loss`]) at each iteration
+    /// (possibly thinned).
     pub loss_history: Vec<f64>,
     /// Full reads of the design, including those spent estimating the step
     /// (an epoch of mini-batches counts as one).

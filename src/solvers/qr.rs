@@ -202,10 +202,8 @@ impl Solver for Qr {
         fit.model = LinearModel::from_parts(Array1::from(refined.beta), refined.intercept);
         let loss_exp = 2 * scaling.target_exp;
         let losses: Vec<f64> = refined.losses.iter().map(|&l| ldexp(l, loss_exp)).collect();
-        let final_loss = ldexp(
-            refined.rss_scaled / (2.0 * problem.stats.total_weight),
-            loss_exp,
-        );
+        // The crate's loss: the weighted mean squared residual.
+        let final_loss = ldexp(refined.rss_scaled / problem.stats.total_weight, loss_exp);
         if !final_loss.is_finite() || losses.iter().any(|l| !l.is_finite()) {
             return Err(Error::Overflow { what: "loss" });
         }
