@@ -91,6 +91,18 @@
 //! | [`Ridge`] | collinear predictors, prediction, wide designs | by shape: Cholesky, augmented QR, SVD path, dual | penalty chosen by [`RidgePath`] |
 //! | [`GradientDescent`], [`Accelerated`], [`Stochastic`] | huge p, warm starts, cancellable fits | one read of X per iteration | iterative; honest convergence report |
 //!
+//! ## The loss
+//!
+//! One loss is reported everywhere a loss appears: the **weighted mean
+//! squared residual** `sum_i w_i (y_i - y_hat_i)^2 / sum_i w_i` (weights 1
+//! when none were given), in the caller's units. Cross-validation fold
+//! errors ([`RowFolds::held_out_error`]) are this loss on the held-out
+//! rows; [`LinearModel::mean_squared_error`] is it with unit weights; the
+//! gradient solvers' [`Progress::loss`], [`IterationReport::final_loss`]
+//! and [`IterationReport::loss_history`], and the refined QR's losses, are
+//! it on the training rows. A penalised gradient fit adds its penalty term
+//! `lambda ||b||^2 / sum_i w_i` (the objective it minimises).
+//!
 //! ## Threads
 //!
 //! The passes over the design run in parallel on rayon's global pool, over

@@ -388,20 +388,26 @@ impl LinearModel {
             .collect())
     }
 
-    /// The squared loss `(1 / 2n) sum_i (y_hat_i - y_i)^2` on the given data.
+    /// The mean squared error `(1 / n) sum_i (y_i - y_hat_i)^2` on the given
+    /// data: the crate's loss (see [the crate docs](crate#the-loss)) with
+    /// every weight 1.
     ///
     /// # Errors
     /// As [`LinearModel::predict`], plus [`Error::LengthMismatch`] and
-    /// [`Error::NoRows`]; [`Error::Overflow`] when the loss exceeds the
+    /// [`Error::NoRows`]; [`Error::Overflow`] when the value exceeds the
     /// range of `f64`.
-    pub fn squared_loss(&self, x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Result<f64> {
+    pub fn mean_squared_error(
+        &self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView1<'_, f64>,
+    ) -> Result<f64> {
         let r = self.residual_parts(x, y)?;
         let (m, e) = sum_of_squares(&r);
         let n = r.len() as f64;
-        let loss = ldexp(m / (2.0 * n), e);
+        let loss = ldexp(m / n, e);
         if !loss.is_finite() {
             return Err(Error::Overflow {
-                what: "squared loss",
+                what: "mean squared error",
             });
         }
         Ok(loss)

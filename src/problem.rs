@@ -78,6 +78,9 @@ pub(crate) struct Stats {
     pub usable_rows: usize,
     /// See [`Problem::fingerprint`].
     pub fingerprint: u64,
+    /// The centered target sum of squares as `(mantissa, exponent)`,
+    /// formed on first use (see [`Problem::centered_target_squares`]).
+    pub target_squares: std::sync::OnceLock<(f64, i32)>,
 }
 
 impl<'a> ProblemBuilder<'a> {
@@ -292,6 +295,25 @@ impl<'a> Problem<'a> {
     /// the same fingerprint; a change of any value almost surely changes it.
     pub fn fingerprint(&self) -> u64 {
         self.stats.fingerprint
+    }
+
+    /// The weighted sum of squares of the target about its weighted mean
+    /// (about 0 without an intercept), `sum_i w_i (y_i - ybar)^2 = m 2^e`,
+    /// as `(m, e)`: formed once, on first use, from the target divided by
+    /// the power of two at or below its largest centered magnitude (no
+    /// overflow or underflow whatever the target's scale), and kept.
+    pub(crate) fn centered_target_squares(&self) -> (f64, i32) {
+        *self.stats.target_squares.get_or_init(|| {
+            let sy = pow2_scale(self.stats.target_centered_max);
+            let units = crate::linalg::extended::Units {
+                col: Vec::new(),
+                target: 1.0 / sy,
+            };
+            let m = crate::linalg::extended::centered_target_sum_of_squares(self, &units);
+            let e =
+                2 * crate::scaled::exponent(sy) + crate::scaled::exponent(self.stats.weight_scale);
+            (m, e)
+        })
     }
 
     /// The default relative rank tolerance: `max(usable rows, columns) * eps`.
@@ -728,6 +750,7 @@ fn compute_stats(
         total_weight,
         usable_rows: total.usable,
         fingerprint: hash.finish(),
+        target_squares: std::sync::OnceLock::new(),
     })
 }
 

@@ -2,6 +2,8 @@
 
 use std::fmt::Debug;
 
+use ndarray::{Array1, ArrayView2};
+
 use crate::error::{Error, Result};
 use crate::model::LinearModel;
 use crate::problem::Problem;
@@ -85,6 +87,18 @@ mod saved {
         if let Some(c) = r.condition {
             numbers.push(("report.condition", c));
         }
+        if let Some(sigma) = r.sigma {
+            numbers.push(("report.sigma", sigma));
+        }
+        if let Some(r2) = r.r_squared {
+            if !r2.is_finite() || r2 > 1.0 {
+                return Err(Error::InvalidParameter {
+                    name: "report.r_squared",
+                    value: r2,
+                    reason: "must be finite and at most 1 in a saved fit",
+                });
+            }
+        }
         if let Some(it) = it {
             numbers.push(("report.iterations.final_loss", it.final_loss));
             numbers.push(("report.iterations.gradient_norm", it.gradient_norm));
@@ -135,6 +149,69 @@ mod saved {
     }
 }
 
+impl Fit {
+    /// Predictions for every row of `x` (`m x p`, any layout): the model's
+    /// [`LinearModel::predict`].
+    ///
+    /// # Errors
+    /// As [`LinearModel::predict`].
+    pub fn predict(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>> {
+        self.model.predict(x)
+    }
+
+    /// The fitted values `y_hat_i = intercept + x_i . coefficients` of every
+    /// row of `problem` (rows of weight zero included), computed when
+    /// called; nothing is stored in the fit.
+    ///
+    /// ```
+    /// use leastline::{Problem, Qr, Solver};
+    /// use ndarray::array;
+    ///
+    /// // Loaves baked against oven hours at a village bakery.
+    /// let x = array![[1.0], [2.0], [3.0], [4.0]];
+    /// let y = array![12.0, 19.0, 31.0, 38.0];
+    /// let problem = Problem::new(x.view(), y.view())?;
+    /// let fit = Qr::new().fit(&problem)?;
+    /// let fitted = fit.fitted_values(&problem)?;
+    /// let residuals = fit.residuals(&problem)?;
+    /// for i in 0..4 {
+    ///     assert!((fitted[i] + residuals[i] - y[i]).abs() < 1e-12);
+    /// }
+    /// # Ok::<(), leastline::Error>(())
+    /// ```
+    ///
+    /// # Errors
+    /// [`Error::ColumnCountMismatch`] when the problem has another number
+    /// of columns than the model; [`Error::OverflowAt`] naming the first
+    /// row whose fitted value exceeds the range of `f64`.
+    pub fn fitted_values(&self, problem: &Problem<'_>) -> Result<Array1<f64>> {
+        self.model.predict(problem.design())
+    }
+
+    /// The residuals `y_i - y_hat_i` of every row of `problem` (rows of
+    /// weight zero included; unweighted), computed when called.
+    ///
+    /// # Errors
+    /// As [`Fit::fitted_values`]; [`Error::OverflowAt`] also names the
+    /// first row whose residual exceeds the range of `f64`.
+    pub fn residuals(&self, problem: &Problem<'_>) -> Result<Array1<f64>> {
+        let fitted = self.fitted_values(problem)?;
+        let y = problem.target();
+        let mut out = Array1::zeros(fitted.len());
+        for (i, (o, (&f, &v))) in out.iter_mut().zip(fitted.iter().zip(y)).enumerate() {
+            let r = v - f;
+            if !r.is_finite() {
+                return Err(Error::OverflowAt {
+                    what: "residual",
+                    row: i,
+                });
+            }
+            *o = r;
+        }
+        Ok(out)
+    }
+}
+
 /// How a fit went: numbers a caller should look at before trusting it.
 ///
 /// Every number here is finite: a value whose true size lies beyond the
@@ -154,13 +231,23 @@ pub struct FitReport {
     pub rank: Option<usize>,
     /// Columns of the design.
     pub columns: usize,
-    /// Condition estimate of the matrix the solver factored, after exact
-    /// power-of-two column scaling: the 1-norm condition number of the
-    /// triangular factor of the centered design for QR and Cholesky, the
-    /// ratio of the extreme retained singular values for SVD, and that of
-    /// the penalised system for ridge. The normal equations' Gram matrix
-    /// has about its square. `None` when nothing was factored (the
-    /// gradient solvers).
+    /// The condition number of the design, one definition for every
+    /// solver: the 2-norm condition number `s_max / s_min` (largest over
+    /// smallest singular value) of the weighted design, centered by its
+    /// weighted means when an intercept is fitted, after exact power-of-two
+    /// column scaling (each column divided by the power of two at or below
+    /// its largest centered magnitude). When the design is rank deficient
+    /// (the SVD solver, ridge), `s_min` is the smallest retained singular
+    /// value (above the rank tolerance times `s_max`).
+    ///
+    /// Each closed-form solver computes it from the `p x p` matrix it
+    /// already has (the triangle `R` for QR, the Cholesky factor of the
+    /// Gram matrix, which has the same singular values, the SVD's values;
+    /// for ridge the design's triangle or the eigenvalues of its Gram
+    /// matrix, not the penalised system's), and [`crate::Collinearity`]
+    /// reports the same number. The normal equations' Gram matrix has its
+    /// square. `None` when no `p x p` matrix of the design is factored: the
+    /// gradient solvers, and ridge through the dual (row) system.
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub condition: Option<f64>,
     /// Weighted residual sum of squares `sum w_i (y_i - y_hat_i)^2`, formed
@@ -172,6 +259,27 @@ pub struct FitReport {
     /// fit this counts the unpenalised parameters; the penalised count is
     /// [`crate::RidgePath::effective_df`].)
     pub residual_df: Option<usize>,
+    /// Residual standard error `sqrt(residual_sum_of_squares / residual_df)`
+    /// (weighted residuals, caller's units); `None` when the residual
+    /// degrees of freedom are unknown (gradient solvers) or zero (an exact
+    /// fit of as many rows as parameters).
+    #[cfg_attr(
+        feature = "serde",
+        serde(default, with = "crate::serde_float::option_float")
+    )]
+    pub sigma: Option<f64>,
+    /// Coefficient of determination `1 - RSS / TSS`, where TSS is the
+    /// weighted sum of squares of the target about its weighted mean (about
+    /// 0 for a fit without intercept), both formed from values divided by
+    /// exact powers of two, so that data at any scale give the same value.
+    /// It is the R² of [`crate::GoodnessOfFit::r_squared`]. `None` when TSS
+    /// is zero (a constant target with an intercept, an all-zero target
+    /// without) or when the ratio exceeds the range of `f64`.
+    #[cfg_attr(
+        feature = "serde",
+        serde(default, with = "crate::serde_float::option_float")
+    )]
+    pub r_squared: Option<f64>,
     /// Rows with non-zero weight.
     pub usable_rows: usize,
     /// The L2 penalty applied (0 for unpenalised solvers).
@@ -202,7 +310,9 @@ pub struct IterationReport {
     pub converged: bool,
     /// Whether an observer asked the fit to stop.
     pub stopped_by_observer: bool,
-    /// Final value of the objective.
+    /// Final value of the crate's loss (the weighted mean squared residual,
+    /// plus the penalty term for penalised fits: see
+    /// [the crate docs](crate#the-loss)).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub final_loss: f64,
     /// Final relative gradient norm.
@@ -211,7 +321,8 @@ pub struct IterationReport {
     /// Step size used (the first one for decaying schedules).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub step: f64,
-    /// The objective at each iteration (possibly thinned).
+    /// The loss (as [`IterationReport::final_loss`]) at each iteration
+    /// (possibly thinned).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub loss_history: Vec<f64>,
     /// Full reads of the design, including those spent estimating the step
@@ -239,9 +350,63 @@ pub(crate) fn finish_closed_form(
             what: "coefficient vector",
         });
     }
-    let rss = crate::linalg::residuals::centered_rss(problem, &beta, target_scale);
-    let rss = caller_rss(problem, exponent(target_scale), rss)?;
-    finish_with_rss(problem, solver, beta, rank, condition, rss, penalty)
+    let scaled = crate::linalg::residuals::centered_rss(problem, &beta, target_scale);
+    let parts = (scaled, rss_exponent(problem, exponent(target_scale)));
+    let rss = caller_rss(problem, exponent(target_scale), scaled)?;
+    finish_parts(
+        problem,
+        solver,
+        beta,
+        rank,
+        condition,
+        (rss, parts),
+        penalty,
+    )
+}
+
+/// The exponent `e` with caller-unit sums of squares `= scaled * 2^e`, for
+/// residuals in units of `2^target_exp` and the problem's weight scale.
+pub(crate) fn rss_exponent(problem: &Problem<'_>, target_exp: i32) -> i32 {
+    2 * target_exp + exponent(problem.stats.weight_scale)
+}
+
+/// The residual standard error and R² of a fit whose weighted residual sum
+/// of squares is `m 2^e` (caller's units), with `residual_df` degrees of
+/// freedom: see [`FitReport::sigma`] and [`FitReport::r_squared`].
+pub(crate) fn spread_measures(
+    problem: &Problem<'_>,
+    (m, e): (f64, i32),
+    residual_df: Option<usize>,
+) -> (Option<f64>, Option<f64>) {
+    let sigma = residual_df.filter(|&df| df > 0).map(|df| {
+        let v = m / df as f64;
+        if v == 0.0 {
+            return 0.0;
+        }
+        // sqrt(u 2^t) with u in [1, 4) and t even: no overflow or underflow
+        // of the square on the way.
+        let ev = exponent(v);
+        let (mut u, mut t) = (ldexp(v, -ev), e + ev);
+        if t.rem_euclid(2) == 1 {
+            u *= 2.0;
+            t -= 1;
+        }
+        ldexp(u.sqrt(), t / 2)
+    });
+    let sigma = sigma.filter(|s| s.is_finite());
+    let (tm, te) = problem.centered_target_squares();
+    let r_squared = if tm > 0.0 && tm.is_finite() {
+        if m == 0.0 {
+            Some(1.0)
+        } else {
+            let (a, b) = (exponent(m), exponent(tm));
+            let ratio = ldexp(ldexp(m, -a) / ldexp(tm, -b), a - b + e - te);
+            Some(1.0 - ratio).filter(|r| r.is_finite())
+        }
+    } else {
+        None
+    };
+    (sigma, r_squared)
 }
 
 /// The weighted residual sum of squares in the caller's units from its
@@ -272,6 +437,30 @@ pub(crate) fn finish_with_rss(
     rank: Option<usize>,
     condition: Option<f64>,
     rss: f64,
+    penalty: f64,
+) -> Result<Fit> {
+    finish_parts(
+        problem,
+        solver,
+        beta,
+        rank,
+        condition,
+        (rss, (rss, 0)),
+        penalty,
+    )
+}
+
+/// The common end of [`finish_closed_form`] and [`finish_with_rss`]: the
+/// residual sum of squares in caller's units and as `(m, e)` with value
+/// `m 2^e` (the scaled form keeps every digit of a value that would be
+/// subnormal in caller's units).
+fn finish_parts(
+    problem: &Problem<'_>,
+    solver: &str,
+    beta: Vec<f64>,
+    rank: Option<usize>,
+    condition: Option<f64>,
+    (rss, rss_parts): (f64, (f64, i32)),
     penalty: f64,
 ) -> Result<Fit> {
     if beta.iter().any(|b| !b.is_finite()) {
@@ -306,6 +495,7 @@ pub(crate) fn finish_with_rss(
             .usable_rows()
             .saturating_sub(rank + usize::from(problem.has_intercept()))
     });
+    let (sigma, r_squared) = spread_measures(problem, rss_parts, residual_df);
     Ok(Fit {
         model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
         report: FitReport {
@@ -315,6 +505,8 @@ pub(crate) fn finish_with_rss(
             condition,
             residual_sum_of_squares: rss,
             residual_df,
+            sigma,
+            r_squared,
             usable_rows: problem.usable_rows(),
             penalty,
             factorization: Some(factorization.to_string()),

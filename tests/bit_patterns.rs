@@ -255,7 +255,7 @@ proptest! {
             if let Ok(r2) = fit.model.r_squared(case.x.view(), case.y.view()) {
                 prop_assert!(r2.is_finite() || r2 == f64::NEG_INFINITY, "{name}: R^2 {r2}");
             }
-            if let Ok(loss) = fit.model.squared_loss(case.x.view(), case.y.view()) {
+            if let Ok(loss) = fit.model.mean_squared_error(case.x.view(), case.y.view()) {
                 prop_assert!(loss.is_finite());
             }
             for kind in [CovarianceKind::Classical, CovarianceKind::Hc3] {

@@ -442,7 +442,9 @@ fn every_validation_error_names_what_and_where() {
         }
     ));
     assert!(matches!(
-        fit.model.squared_loss(x.view(), short.view()).unwrap_err(),
+        fit.model
+            .mean_squared_error(x.view(), short.view())
+            .unwrap_err(),
         Error::LengthMismatch {
             input: Input::NewTarget,
             ..

@@ -150,7 +150,7 @@ fn sums_of_squares_beyond_the_range_are_typed_errors() {
     let r2_big = big.r_squared(x.view(), ys.view()).unwrap();
     assert!(close(r2_big, r2, 1e-14), "{r2_big} vs {r2}");
     assert!(matches!(
-        big.squared_loss(x.view(), ys.view()),
+        big.mean_squared_error(x.view(), ys.view()),
         Err(Error::Overflow { .. })
     ));
 }

@@ -589,13 +589,13 @@ fn warm_start_at_the_optimum_converges_at_once() {
 #[test]
 fn final_loss_and_residual_sum_of_squares_match_their_definitions() {
     // Identity: unweighted, unpenalised, the reported loss is the mean
-    // squared loss (1/2n) sum r^2 of LinearModel::squared_loss.
+    // squared error (1/n) sum r^2 of LinearModel::mean_squared_error.
     let case = generate(250, 3, 41, false, true, 0.4);
     let problem = case.problem();
     let fit = gd(1e-12, 0.0).fit(&problem).expect("fit");
     let direct = fit
         .model
-        .squared_loss(case.x.view(), case.y.view())
+        .mean_squared_error(case.x.view(), case.y.view())
         .expect("loss");
     let report = iterations(&fit);
     assert!((report.final_loss - direct).abs() <= 1e-12 * direct);
@@ -608,7 +608,7 @@ fn final_loss_and_residual_sum_of_squares_match_their_definitions() {
     assert_eq!(fit.report.rank, None);
     assert_eq!(fit.report.residual_df, None);
 
-    // Weighted and penalised: [(1/2) sum w r^2 + (lambda/2) ||b||^2] / sum w.
+    // Weighted and penalised: [sum w r^2 + lambda ||b||^2] / sum w.
     let case = generate(250, 3, 42, true, true, 0.4);
     let problem = case.problem();
     let lambda = penalty_for(&case, 0.5);
@@ -617,7 +617,7 @@ fn final_loss_and_residual_sum_of_squares_match_their_definitions() {
     let pred = fit.model.predict(case.x.view()).expect("predict");
     let rss: f64 = (0..250).map(|i| w[i] * (case.y[i] - pred[i]).powi(2)).sum();
     let norm2: f64 = fit.model.coefficients().iter().map(|b| b * b).sum();
-    let direct = (0.5 * rss + 0.5 * lambda * norm2) / w.sum();
+    let direct = (rss + lambda * norm2) / w.sum();
     let got = iterations(&fit).final_loss;
     assert!((got - direct).abs() <= 1e-10 * direct, "{got} vs {direct}");
     assert!((fit.report.residual_sum_of_squares - rss).abs() <= 1e-10 * rss);

@@ -151,7 +151,7 @@ fn gradient_reports_claim_no_rank() {
         }
     }
     // The closed forms measure both; ridge methods other than Svd measure
-    // the condition of their penalised system only.
+    // the design's condition (over its retained singular values) only.
     let svd = Svd::new().fit(&problem).unwrap();
     assert_eq!(svd.report.rank, Some(4));
     assert_eq!(svd.report.residual_df, Some(30 - 4 - 1));

@@ -44,11 +44,13 @@
 //!
 //! ## Losses reported
 //!
-//! Every loss in a report, an observer's [`Progress`] or an error is in the
-//! caller's units, per unit of weight:
-//! `[(1/2) sum_i w_i (y_i - y_hat_i)^2 + (lambda/2) ||b||^2] / sum_i w_i`.
-//! Unweighted and unpenalised, that is [`crate::LinearModel::squared_loss`]
-//! on the training data.
+//! Every loss in a report, an observer's [`Progress`] or an error is the
+//! crate's one loss (see [the crate docs](crate#the-loss)), in the
+//! caller's units: the weighted mean squared residual
+//! `sum_i w_i (y_i - y_hat_i)^2 / sum_i w_i`, plus `lambda ||b||^2 /
+//! sum_i w_i` for a penalised fit (the objective minimised, so that it
+//! falls as the fit proceeds). Unweighted and unpenalised, that is
+//! [`crate::LinearModel::mean_squared_error`] on the training data.
 //!
 //! ## Honest stopping
 //!
@@ -122,7 +124,9 @@ use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
 pub struct Progress {
     /// Updates made so far (epochs for [`Stochastic`]).
     pub iteration: usize,
-    /// Objective per unit weight at the current coefficients.
+    /// The crate's loss at the current coefficients (the weighted mean
+    /// squared residual, plus the penalty term: see
+    /// [the crate docs](crate#the-loss)).
     pub loss: f64,
     /// Relative gradient norm at the current coefficients.
     pub gradient_norm: f64,
@@ -302,10 +306,17 @@ impl<'p, 'a> Objective<'p, 'a> {
         self.mu.len()
     }
 
+    /// `log2` of the multiplier from an internal loss `f` (half the
+    /// weighted mean squared residual, in scaled units) to the crate's loss
+    /// in caller units (the weighted mean squared residual): `2 s_y^2`.
+    pub fn caller_loss_exp(&self) -> i32 {
+        self.loss_exp + 1
+    }
+
     /// Caller-unit loss for an internal loss (infinite when it exceeds the
-    /// range of `f64`).
+    /// range of `f64`): see the [module docs](self).
     pub fn caller_loss(&self, f: f64) -> f64 {
-        crate::scaled::ldexp(f, self.loss_exp)
+        crate::scaled::ldexp(f, self.caller_loss_exp())
     }
 
     fn set_coef(&mut self, g: &[f64]) {
@@ -516,7 +527,7 @@ impl<'o> Tracker<'o> {
                 1.0
             },
             limit: DIVERGENCE_FACTOR * reference,
-            loss_exp: objective.loss_exp,
+            loss_exp: objective.caller_loss_exp(),
             history: Vec::new(),
             last_recorded: None,
             last: None,
@@ -623,6 +634,12 @@ pub(crate) fn finish(
         return Err(Error::Overflow { what: "intercept" });
     }
     let rss = crate::solver::caller_rss(problem, objective.loss_exp / 2, outcome.eval.sq)?;
+    let rss_parts = (
+        outcome.eval.sq,
+        crate::solver::rss_exponent(problem, objective.loss_exp / 2),
+    );
+    // No rank, so no residual degrees of freedom and no sigma.
+    let (_, r_squared) = crate::solver::spread_measures(problem, rss_parts, None);
     if !final_loss.is_finite() || history.iter().any(|l| !l.is_finite()) {
         return Err(Error::Overflow { what: "loss" });
     }
@@ -636,6 +653,8 @@ pub(crate) fn finish(
             condition: None,
             residual_sum_of_squares: rss,
             residual_df: None,
+            sigma: None,
+            r_squared,
             usable_rows: problem.usable_rows(),
             fingerprint: problem.fingerprint(),
             penalty: common.penalty,

@@ -1,12 +1,11 @@
 //! Goodness of fit, the overall test and collinearity measures.
 
-use faer::{Mat, MatRef};
+use faer::MatRef;
 
 use super::distributions::f_upper_tail;
 use super::ratio;
 use crate::error::{Error, Result};
 use crate::linalg::products::{inverse_quadratic_form, upper_times};
-use crate::linalg::svd::singular_values;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
 
@@ -102,10 +101,13 @@ pub struct OverallTest {
 /// columns are not centered and the VIFs are of the uncentered cross
 /// products (`centered` is `false`); they are then not the usual ones.
 ///
-/// **Condition number:** the ratio of the largest to the smallest singular
-/// value of the (centered, weighted) design after scaling every column to
-/// unit length; values above about 30 to 100 are commonly read as strong
-/// collinearity.
+/// **Condition number:** the number of [`crate::FitReport::condition`]:
+/// the ratio of the largest to the smallest singular value of the
+/// (centered, weighted) design after exact power-of-two column scaling
+/// (every column divided by the power of two at or below its largest
+/// centered magnitude, so that column lengths stay within a factor of two
+/// of their largest entry). Each fit, its inference and its summary show
+/// the same value.
 #[derive(Debug, Clone, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
@@ -113,7 +115,8 @@ pub struct Collinearity {
     /// Variance inflation factor of every column.
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::floats"))]
     pub vif: Vec<f64>,
-    /// 2-norm condition number of the unit-column design.
+    /// 2-norm condition number of the power-of-two scaled design (see
+    /// [`crate::FitReport::condition`]).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub condition_number: f64,
     /// Whether the columns were centered (model with intercept).
@@ -264,19 +267,10 @@ fn column_norms(r: MatRef<'_, f64>) -> Vec<f64> {
         .collect()
 }
 
-/// The 2-norm condition number of the design with unit columns, from the
-/// singular values of `R D^-1` (`D` the column norms).
+/// The 2-norm condition number of the scaled design, from the singular
+/// values of its triangle `R`: the number of [`crate::FitReport::condition`].
 pub(super) fn condition_number(r: MatRef<'_, f64>) -> Result<f64> {
-    let p = r.ncols();
-    if p == 0 {
-        return Ok(1.0);
-    }
-    let col_norm = column_norms(r);
-    let unit = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] / col_norm[j]);
-    let s = singular_values(unit.as_ref())?;
-    let smax = s.first().copied().unwrap_or(1.0);
-    let smin = s.last().copied().unwrap_or(1.0);
-    Ok(ratio(smax, smin))
+    crate::linalg::svd::condition(r, 0.0)
 }
 
 /// The collinearity measures, from `R`, its inverse and the condition

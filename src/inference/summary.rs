@@ -142,7 +142,7 @@ impl fmt::Display for Inference {
         match worst {
             Some((j, v)) => writeln!(
                 f,
-                "  collinearity  condition {} (unit-length {}columns), largest VIF {} for {}",
+                "  collinearity  condition {} (2-norm, power-of-two scaled {}columns), largest VIF {} for {}",
                 num(c.condition_number),
                 if c.centered {
                     "centered "

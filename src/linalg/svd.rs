@@ -69,3 +69,52 @@ fn run(
     })?;
     Ok((0..r).map(|i| s[i]).collect())
 }
+
+/// The 2-norm condition number `s_max / s_min` from singular values in
+/// non-increasing order, over those above `cutoff * s_max` (the retained
+/// ones; a zero is never retained); 1 when there are none.
+pub(crate) fn condition_from_values(s: &[f64], cutoff: f64) -> f64 {
+    let smax = s.first().copied().unwrap_or(0.0);
+    if smax <= 0.0 || !smax.is_finite() {
+        return 1.0;
+    }
+    let smin = s
+        .iter()
+        .copied()
+        .take_while(|&v| v > cutoff * smax && v > 0.0)
+        .last()
+        .unwrap_or(smax);
+    smax / smin
+}
+
+/// The 2-norm condition number of `a` (a `p x p` triangle of the design,
+/// with the design's singular values) over the singular values above
+/// `cutoff` times the largest: see [`crate::FitReport::condition`].
+///
+/// # Errors
+/// [`Error::NoConvergence`] if the SVD iteration fails.
+pub(crate) fn condition(a: MatRef<'_, f64>, cutoff: f64) -> Result<f64> {
+    if a.ncols() == 0 {
+        return Ok(1.0);
+    }
+    Ok(condition_from_values(&singular_values(a)?, cutoff))
+}
+
+/// The same number from the design's Gram matrix `g = Z^T Z` (`p x p`,
+/// symmetric positive semi-definite, so its singular values are its
+/// eigenvalues, the squares of the design's singular values):
+/// `sqrt(l_max / l_min)` over the eigenvalues above `max(cutoff^2, 2 p eps)`
+/// times the largest (below `2 p eps` an eigenvalue of a rounded Gram
+/// matrix is noise).
+///
+/// # Errors
+/// [`Error::NoConvergence`] if the SVD iteration fails.
+pub(crate) fn condition_from_gram(g: MatRef<'_, f64>, cutoff: f64) -> Result<f64> {
+    let p = g.ncols();
+    if p == 0 {
+        return Ok(1.0);
+    }
+    let l = singular_values(g)?;
+    let floor = (cutoff * cutoff).max(2.0 * p as f64 * f64::EPSILON);
+    Ok(condition_from_values(&l, floor).sqrt())
+}

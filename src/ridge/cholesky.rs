@@ -27,6 +27,11 @@ pub(super) fn solve(
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let mu = map.scaled(lambda);
     let f = &map.factors;
+    // The design's condition from its Gram matrix (before the penalty).
+    let design_condition = crate::linalg::svd::condition_from_gram(
+        g.as_ref().submatrix(0, 0, p, p),
+        problem.default_rank_tolerance(),
+    )?;
     let mut a = Mat::<f64>::from_fn(p, p, |i, j| (f[i] * g[(i, j)]) * f[j]);
     for j in 0..p {
         // A column that takes no part has a zero row and column: a unit
@@ -47,7 +52,8 @@ pub(super) fn solve(
     triangular::solve_upper(l.as_ref().transpose(), &mut gamma);
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
-        condition: triangular::condition_lower(l.as_ref()),
+        design_condition: Some(design_condition),
+        system_condition: triangular::condition_lower(l.as_ref()),
         method: "cholesky",
     })
 }

@@ -60,7 +60,8 @@ pub(super) fn solve(
     let gamma = dual::transpose_times(problem, scaling, &map.factors, &rows, &alpha);
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
-        condition: triangular::condition_lower(l.as_ref()),
+        design_condition: None,
+        system_condition: triangular::condition_lower(l.as_ref()),
         method: "dual",
     })
 }

@@ -26,8 +26,9 @@ use crate::solver::Solver;
 /// zero weights is the same weighted least-squares problem as fitting the
 /// remaining rows alone.
 ///
-/// A fold's error is the weighted mean squared prediction error of its
-/// held-out rows, `sum w_i (y_i - y^_i)^2 / sum w_i`.
+/// A fold's error is the crate's loss (see [the crate docs](crate#the-loss))
+/// on its held-out rows: the weighted mean squared prediction error
+/// `sum w_i (y_i - y^_i)^2 / sum w_i`.
 ///
 /// ```
 /// use leastline::ridge::{RowFolds, Ridge};

@@ -258,7 +258,12 @@ impl Ridge {
 /// Slopes in caller units from one of the primal or dual methods.
 pub(crate) struct Solution {
     pub beta: Vec<f64>,
-    pub condition: f64,
+    /// 2-norm condition number of the scaled, centered design (see
+    /// [`crate::FitReport::condition`]); `None` from the dual route, which
+    /// factors no `p x p` matrix of the design.
+    pub design_condition: Option<f64>,
+    /// Condition estimate of the penalised system factored (routing only).
+    pub system_condition: f64,
     pub method: &'static str,
 }
 
@@ -309,7 +314,12 @@ impl Solver for Ridge {
                 } else {
                     let fast = cholesky::solve(problem, &scaling, self.standardize, lambda);
                     match fast {
-                        Ok(s) if digits(s.condition * s.condition) >= AUTO_MIN_DIGITS => s,
+                        Ok(s)
+                            if digits(s.system_condition * s.system_condition)
+                                >= AUTO_MIN_DIGITS =>
+                        {
+                            s
+                        }
                         _ => qr::solve(problem, &scaling, self.standardize, lambda)?,
                     }
                 }
@@ -320,7 +330,7 @@ impl Solver for Ridge {
             &format!("ridge-{}", sol.method),
             sol.beta,
             None,
-            Some(sol.condition),
+            sol.design_condition,
             scaling.target_scale,
             lambda,
         )

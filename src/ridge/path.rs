@@ -67,6 +67,10 @@ pub struct RidgePath<'p, 'a> {
     pub(super) scaling: Scaling,
     pub(super) map: PenaltyMap,
     pub(super) spectrum: Spectrum,
+    /// 2-norm condition number of the scaled, centered design (see
+    /// [`crate::FitReport::condition`]), from the triangle when rows >=
+    /// columns; `None` from the row side, which has no `p x p` factor.
+    pub(super) design_condition: Option<f64>,
 }
 
 /// Which side of the design the decomposition came from.
@@ -93,8 +97,6 @@ pub(super) struct Spectrum {
     pub kept: usize,
     /// `d_k = u_k . t`: the target on the left singular vectors.
     pub d: Vec<f64>,
-    /// Smallest `s^2` over all `p` directions of the augmented system.
-    pub smallest_sq: f64,
     pub side: Side,
 }
 
@@ -146,16 +148,26 @@ impl<'p, 'a> RidgePath<'p, 'a> {
             .iter()
             .take_while(|&&s2| s2 > 0.0 && s2.sqrt() > tol * top.sqrt())
             .count();
-        let smallest_sq = sq.last().copied().unwrap_or(0.0);
+        // R^ = R diag(f): the design's own triangle is R^ diag(1/f) (zero
+        // columns for those that take no part).
+        let f = &tri.map.factors;
+        let own = Mat::<f64>::from_fn(p, p, |i, j| {
+            if f[j] == 0.0 {
+                0.0
+            } else {
+                tri.rh[(i, j)] / f[j]
+            }
+        });
+        let design_condition = Some(crate::linalg::svd::condition(own.as_ref(), tol)?);
         Ok(RidgePath {
             problem,
             scaling,
+            design_condition,
             map: tri.map,
             spectrum: Spectrum {
                 sq,
                 kept,
                 d,
-                smallest_sq,
                 side: Side::Columns {
                     v,
                     rss0: tri.rss0,
@@ -207,12 +219,12 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         Ok(RidgePath {
             problem,
             scaling,
+            design_condition: None,
             map,
             spectrum: Spectrum {
                 sq,
                 kept,
                 d,
-                smallest_sq: 0.0,
                 side: Side::Rows { u, rows },
             },
         })
@@ -324,19 +336,12 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         let beta = self.map.to_caller(&self.scaling, &gamma);
         let rss = caller_rss(self.problem, self.scaling.target_exp, self.scaled_rss(mu))?;
         let sp = &self.spectrum;
-        let condition = if sp.kept == 0 {
-            1.0
-        } else if mu > 0.0 {
-            ((sp.sq[0] + mu) / (sp.smallest_sq + mu)).sqrt()
-        } else {
-            (sp.sq[0] / sp.sq[sp.kept - 1]).sqrt()
-        };
         finish_with_rss(
             self.problem,
             "ridge-svd",
             beta,
             Some(sp.kept),
-            Some(condition),
+            self.design_condition,
             rss,
             lambda,
         )

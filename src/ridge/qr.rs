@@ -34,13 +34,15 @@ pub(super) fn solve(
     let f = &map.factors;
     let tolerance = problem.default_rank_tolerance();
     let r11 = r.as_ref().submatrix(0, 0, p, p);
+    // The design's condition from its own triangle (before the penalty).
+    let design_condition = crate::linalg::svd::condition(r11, tolerance)?;
     if !crate::solvers::dependent_columns(problem, scaling, r11, tolerance).is_empty() {
         // Columns dependent to rounding: the triangle's smallest pivots are
         // rounding noise, which a small penalty would treat as information
         // (exactly duplicated columns would get unequal coefficients). Take
         // the SVD of the triangle instead and drop the noise directions, as
         // the `Svd` method does.
-        return spectral(scaling, &map, r.as_ref(), mu, tolerance);
+        return spectral(scaling, &map, r.as_ref(), mu, tolerance, design_condition);
     }
     let root = mu.sqrt();
     let mut stacked = Mat::<f64>::zeros(2 * p + 1, p + 1);
@@ -59,7 +61,8 @@ pub(super) fn solve(
     triangular::solve_upper(r11.as_ref(), &mut gamma);
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
-        condition: triangular::condition_upper(r11.as_ref()),
+        design_condition: Some(design_condition),
+        system_condition: triangular::condition_upper(r11.as_ref()),
         method: "qr",
     })
 }
@@ -74,6 +77,7 @@ fn spectral(
     r: MatRef<'_, f64>,
     mu: f64,
     tolerance: f64,
+    design_condition: f64,
 ) -> Result<Solution> {
     let p = r.ncols() - 1;
     let f = &map.factors;
@@ -97,7 +101,8 @@ fn spectral(
     let smin = dec.s.last().copied().unwrap_or(0.0);
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
-        condition: ((smax * smax + mu) / (smin * smin + mu)).sqrt(),
+        design_condition: Some(design_condition),
+        system_condition: ((smax * smax + mu) / (smin * smin + mu)).sqrt(),
         method: "qr",
     })
 }

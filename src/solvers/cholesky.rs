@@ -185,7 +185,8 @@ impl Solver for Cholesky {
                 ));
             }
         };
-        let condition = triangular::condition_lower(l.as_ref());
+        // L L^T = Z^T Z: L has the design's singular values.
+        let condition = crate::linalg::svd::condition(l.as_ref(), 0.0)?;
         let digits = expected_digits(condition * condition);
         if digits < self.min_digits {
             return Err(Error::IllConditioned {
@@ -236,7 +237,10 @@ impl Cholesky {
                 tolerance,
             };
         }
-        let condition = triangular::condition_upper(r.as_ref());
+        let condition = match crate::linalg::svd::condition(r.as_ref(), 0.0) {
+            Ok(c) => c,
+            Err(e) => return e,
+        };
         let gram_condition = condition * condition;
         let digits = expected_digits(gram_condition);
         if digits < self.min_digits || failed.is_none() {

@@ -192,7 +192,7 @@ impl Solver for Qr {
             .enumerate()
             .map(|(j, &g)| scaling.to_caller(j, g))
             .collect();
-        let condition = triangular::condition_upper(r11.as_ref());
+        let condition = crate::linalg::svd::condition(r11.as_ref(), 0.0)?;
         let Some(settings) = &self.refinement else {
             return finish_closed_form(
                 problem,
@@ -224,10 +224,8 @@ impl Solver for Qr {
         fit.model = LinearModel::fitted(problem, Array1::from(refined.beta), refined.intercept);
         let loss_exp = 2 * scaling.target_exp;
         let losses: Vec<f64> = refined.losses.iter().map(|&l| ldexp(l, loss_exp)).collect();
-        let final_loss = ldexp(
-            refined.rss_scaled / (2.0 * problem.stats.total_weight),
-            loss_exp,
-        );
+        // The crate's loss: the weighted mean squared residual.
+        let final_loss = ldexp(refined.rss_scaled / problem.stats.total_weight, loss_exp);
         if !final_loss.is_finite() || losses.iter().any(|l| !l.is_finite()) {
             return Err(Error::Overflow { what: "loss" });
         }

@@ -129,7 +129,7 @@ pub(crate) struct Refined {
     /// the centered columns `a_j` and the constant, at the start of the
     /// last step (or of the refinement, when no step was run).
     pub gradient: f64,
-    /// `sum w~ e^2 / (2 sum w~)` (scaled weights, residuals in units of the
+    /// `sum w~ e^2 / sum w~` (scaled weights, residuals in units of the
     /// target scale `s_y`) of the residual estimate at the start of each
     /// step: multiply by `s_y^2` for the caller's loss.
     pub losses: Vec<f64>,
@@ -245,7 +245,7 @@ pub(crate) fn refine(
         // Gradient measure for the report: |a_j^T W e| / (|a_j| |y - ybar|)
         // over the (weighted, centered) columns and the constant, in [0, 1].
         let e_ss = extended::weighted_sum_of_squares(problem, &e);
-        out.losses.push(e_ss / (2.0 * total_weight));
+        out.losses.push(e_ss / total_weight);
         out.gradient = if y_norm == 0.0 {
             0.0
         } else {
