@@ -135,6 +135,8 @@ pub use ridge::{
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
 pub use state::{CrossProductState, FitState, StateLayout, TriangleState};
+#[cfg(feature = "serde")]
+pub use state::{StateData, STATE_FORMAT, STATE_VERSION};
 
 /// The README's code blocks, run as doctests.
 #[cfg(doctest)]

@@ -654,3 +654,166 @@ fn data_near_the_ends_of_the_range() {
     let d = shared_digits(&st[0], &qr);
     assert!(d >= 12.0, "{d:.2} digits");
 }
+
+/// Identity: a state written as JSON reads back to the same bits, finishes
+/// into the same fits and merges as the original does.
+#[cfg(feature = "serde")]
+#[test]
+fn serde_round_trip_is_exact() {
+    let mut rng = gen::rng(31);
+    let (x, y) = problem(&mut rng, 300, 3, 2);
+    let w = gen::weights(&mut rng, 300);
+    let tri = blockwise(
+        TriangleState::new(3, 2, true)
+            .and_then(|s| s.with_names(vec!["heat".into(), "vent".into(), "lamp".into()]))
+            .expect("state"),
+        &x,
+        &y,
+        Some(&w),
+        4,
+    )
+    .expect("absorb");
+    let text = serde_json::to_string(&tri).expect("write");
+    let back: TriangleState = serde_json::from_str(&text).expect("read");
+    assert_eq!(back, tri);
+    assert_eq!(back.finish(), tri.finish());
+    let mut a = tri.clone();
+    let mut b = back.clone();
+    a.merge(&tri).expect("merge");
+    b.merge(&back).expect("merge");
+    assert_eq!(a, b);
+    let cross = blockwise(
+        CrossProductState::new(3, 2, false).expect("state"),
+        &x,
+        &y,
+        Some(&w),
+        4,
+    )
+    .expect("absorb");
+    let text = serde_json::to_string(&cross).expect("write");
+    let back: CrossProductState = serde_json::from_str(&text).expect("read");
+    assert_eq!(back, cross);
+    assert_eq!(back.finish(), cross.finish());
+    // An empty state (extremes still infinite) round-trips too.
+    let empty = TriangleState::new(2, 1, true).expect("state");
+    let text = serde_json::to_string(&empty).expect("write");
+    assert_eq!(
+        serde_json::from_str::<TriangleState>(&text).expect("read"),
+        empty
+    );
+}
+
+/// The serialised state does not grow with the rows absorbed.
+#[cfg(feature = "serde")]
+#[test]
+fn state_size_does_not_grow_with_rows() {
+    let mut rng = gen::rng(41);
+    let (x, y) = problem(&mut rng, 10_000, 4, 2);
+    let len = |n: usize| {
+        let tri = blockwise(
+            TriangleState::new(4, 2, true).expect("state"),
+            &x.slice(s![..n, ..]).to_owned(),
+            &y.slice(s![..n, ..]).to_owned(),
+            None,
+            3,
+        )
+        .expect("absorb");
+        let data = leastline::StateData::from(tri.clone());
+        assert_eq!(data.matrix.len(), 36);
+        assert_eq!(data.means.len(), 6);
+        serde_json::to_string(&tri).expect("write").len()
+    };
+    let (small, large) = (len(10), len(10_000));
+    // The same 36 + 4 * 6 numbers either way: only their printed digits
+    // (at most 24 characters each) and the row counts differ.
+    assert!(
+        large <= small + 24 * 60 + 8,
+        "10 rows: {small} bytes, 10,000 rows: {large} bytes"
+    );
+    assert!(large < 3000, "{large} bytes");
+}
+
+/// Corrupted states are typed errors naming the field.
+#[cfg(feature = "serde")]
+#[test]
+fn corrupted_states_are_typed_errors() {
+    use leastline::StateData;
+    let mut rng = gen::rng(51);
+    let (x, y) = problem(&mut rng, 50, 2, 1);
+    let tri = blockwise(
+        TriangleState::new(2, 1, true).expect("state"),
+        &x,
+        &y,
+        None,
+        2,
+    )
+    .expect("absorb");
+    let good = StateData::from(tri);
+    let field = |e: Result<TriangleState, Error>| match e {
+        Err(Error::InvalidState { field, index, .. }) => (field, index),
+        other => panic!("expected InvalidState, got {other:?}"),
+    };
+    let mut d = good.clone();
+    d.matrix.pop();
+    assert_eq!(field(TriangleState::try_from(d)), ("matrix", 8));
+    let mut d = good.clone();
+    d.matrix[4] = f64::NAN;
+    assert_eq!(field(TriangleState::try_from(d)), ("matrix", 4));
+    let mut d = good.clone();
+    d.matrix[3] = 0.5; // row 1, column 0: below the diagonal
+    assert_eq!(field(TriangleState::try_from(d)), ("matrix", 3));
+    let mut d = good.clone();
+    d.weight = -3.0;
+    assert_eq!(field(TriangleState::try_from(d)), ("weight", 0));
+    let mut d = good.clone();
+    d.means.push(1.0);
+    assert_eq!(field(TriangleState::try_from(d)), ("means", 4));
+    let mut d = good.clone();
+    d.means[1] = d.highs[1] + 1.0;
+    assert_eq!(field(TriangleState::try_from(d)), ("means", 1));
+    let mut d = good.clone();
+    d.usable_rows = d.rows + 1;
+    assert_eq!(field(TriangleState::try_from(d)), ("usable_rows", 0));
+    let mut d = good.clone();
+    d.exponents[0] = 5000;
+    assert_eq!(field(TriangleState::try_from(d)), ("exponents", 0));
+    let mut d = good.clone();
+    d.kind = "cross-product".into();
+    assert_eq!(field(TriangleState::try_from(d)), ("kind", 0));
+    let mut d = good.clone();
+    d.format = "something else".into();
+    assert_eq!(field(TriangleState::try_from(d)), ("format", 0));
+    let mut d = good.clone();
+    d.targets = 0;
+    assert!(matches!(
+        TriangleState::try_from(d),
+        Err(Error::InvalidParameter {
+            name: "targets",
+            ..
+        })
+    ));
+    // A cross-product state that is not symmetric.
+    let cross = blockwise(
+        CrossProductState::new(2, 1, true).expect("state"),
+        &x,
+        &y,
+        None,
+        2,
+    )
+    .expect("absorb");
+    let mut d = StateData::from(cross);
+    d.matrix[1] += 1.0;
+    assert!(matches!(
+        CrossProductState::try_from(d),
+        Err(Error::InvalidState {
+            field: "matrix",
+            index: 3,
+            ..
+        })
+    ));
+    // Read directly, a corrupted state fails with the format's error.
+    let mut d = good;
+    d.weight = -1.0;
+    let text = serde_json::to_string(&d).expect("write");
+    assert!(serde_json::from_str::<TriangleState>(&text).is_err());
+}

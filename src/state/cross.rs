@@ -80,7 +80,7 @@ impl CrossProductState {
                 let a = shifted(&self.c, &self_shift, self_wshift);
                 let b = shifted(other, &other_shift, other_wshift);
                 self.c = Mat::from_fn(width, width, |i, j| {
-                    a[(i, j)] + b[(i, j)] + factor * d[i] * d[j]
+                    a[(i, j)] + b[(i, j)] + factor * (d[i] * d[j])
                 });
             }
         }
@@ -204,6 +204,12 @@ impl FitState for CrossProductState {
             let z = row_major_ref(buf, len, width, ld);
             matmul(c.as_mut(), Accum::Add, z.transpose(), z, 1.0, Par::Seq);
         })?;
+        // The product's two halves may differ by rounding: keep one.
+        for j in 0..width {
+            for i in 0..j {
+                c[(j, i)] = c[(i, j)];
+            }
+        }
         self.fold(&block, &c);
         Ok(())
     }

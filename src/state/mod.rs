@@ -41,6 +41,13 @@
 //! row in the whole stream: the rows absorbed before the block plus its
 //! row in the block.
 //!
+//! **Serde** (feature `serde`): both states serialise to the plain form
+//! [`StateData`] (tag, version, shape, totals, means, extremes, exponents
+//! and the `(p + k)^2` stored matrix). Reading a state back validates it;
+//! deserialise a [`StateData`] and convert it with `TryFrom` to get the
+//! typed [`Error::InvalidState`] (deserialising a state directly reports
+//! the same text as the format's own error).
+//!
 //! **Reports.** A state's fits report the solver `"qr-state"`,
 //! `"cholesky-state"`, `"svd-state"` (minimum norm) or `"ridge-state"`,
 //! the factorisation used, and fingerprint 0: a state fit is not tied to
@@ -70,9 +77,13 @@
 
 mod cross;
 mod triangle;
+#[cfg(feature = "serde")]
+mod wire;
 
 pub use cross::CrossProductState;
 pub use triangle::TriangleState;
+#[cfg(feature = "serde")]
+pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
 
 use faer::MatMut;
 use ndarray::{Array1, ArrayView1, ArrayView2, Axis};
