@@ -817,3 +817,73 @@ fn corrupted_states_are_typed_errors() {
     let text = serde_json::to_string(&d).expect("write");
     assert!(serde_json::from_str::<TriangleState>(&text).is_err());
 }
+
+/// Reference: the in-memory `Svd` solver (minimum norm) and `Ridge` with
+/// the augmented QR, on the same data; a duplicated column makes the
+/// design rank deficient.
+#[test]
+fn min_norm_and_ridge_finishes_match_in_memory_solvers() {
+    use leastline::{Ridge, RidgeFactorization, Svd};
+    let mut rng = gen::rng(61);
+    let (mut x, y) = problem(&mut rng, 240, 4, 1);
+    let y1 = y.column(0).to_owned();
+    for deficient in [false, true] {
+        if deficient {
+            let c = x.column(0).mapv(|v| 2.0 * v);
+            x.column_mut(3).assign(&c);
+        }
+        let state = blockwise(
+            TriangleState::new(4, 1, true).expect("state"),
+            &x,
+            &y,
+            None,
+            9,
+        )
+        .expect("absorb");
+        let problem = Problem::new(x.view(), y1.view()).expect("problem");
+        let svd = Svd::new().fit(&problem).expect("svd");
+        let mn = &state.finish_min_norm(None).expect("min norm")[0];
+        assert_eq!(mn.report.rank, svd.report.rank);
+        assert_eq!(mn.report.rank, Some(if deficient { 3 } else { 4 }));
+        let d = shared_digits(mn, &svd);
+        assert!(d >= 12.0, "min norm (deficient {deficient}): {d:.2} digits");
+        let rss = digits(
+            mn.report.residual_sum_of_squares,
+            svd.report.residual_sum_of_squares,
+        );
+        assert!(rss >= 10.0, "min-norm RSS: {rss:.2} digits");
+        if deficient {
+            assert!(matches!(
+                state.finish(),
+                Err(Error::RankDeficient { rank: 3, .. })
+            ));
+        }
+        for lambda in [1e-3, 1.0, 250.0, 1e6] {
+            // A tiny penalty on a deficient design is ill-conditioned
+            // (condition about s_max / sqrt(lambda)): both solvers lose
+            // digits there, so compare at penalties it does not dominate.
+            if deficient && lambda < 1.0 {
+                continue;
+            }
+            let ridge = Ridge::new(lambda)
+                .with_standardize(false)
+                .with_factorization(RidgeFactorization::AugmentedQr)
+                .fit(&problem)
+                .expect("ridge");
+            let st = &state.finish_ridge(lambda).expect("ridge state")[0];
+            let d = shared_digits(st, &ridge);
+            assert!(d >= 12.0, "ridge {lambda} (deficient {deficient}): {d:.2}");
+            assert_eq!(st.report.penalty, lambda);
+            let rss = digits(
+                st.report.residual_sum_of_squares,
+                ridge.report.residual_sum_of_squares,
+            );
+            assert!(rss >= 10.0, "ridge {lambda} RSS: {rss:.2} digits");
+        }
+    }
+    let state = TriangleState::new(4, 1, true).expect("state");
+    assert!(matches!(
+        state.finish_ridge(-1.0),
+        Err(Error::InvalidParameter { .. })
+    ));
+}

@@ -182,6 +182,177 @@ impl TriangleState {
     }
 }
 
+impl TriangleState {
+    /// The minimum-norm fit of every target through the SVD of the
+    /// design's part of the triangle, as [`crate::Svd`]: singular values
+    /// above `cutoff` (`None`: `max(usable rows, columns) * eps`) times the
+    /// largest are kept, their count is the rank; columns constant beside
+    /// the intercept get coefficient 0; the solution is the one of minimum
+    /// Euclidean norm in the caller's units.
+    ///
+    /// # Errors
+    /// [`Error::NoRows`], [`Error::AllWeightsZero`], [`Error::TooFewRows`];
+    /// [`Error::InvalidParameter`] for a bad cutoff;
+    /// [`Error::NoConvergence`] if the SVD fails; [`Error::Overflow`].
+    pub fn finish_min_norm(&self, cutoff: Option<f64>) -> Result<Vec<Fit>> {
+        let core = &self.core;
+        let cutoff = match cutoff {
+            Some(t) => check_tolerance(t)?,
+            None => core.default_tolerance(),
+        };
+        let frame = core.frame(core.default_tolerance(), true)?;
+        let p = core.p;
+        let rf = self.framed(&frame);
+        let live: Vec<usize> = (0..p).filter(|&j| !frame.constant[j]).collect();
+        let q = live.len();
+        let r11 = Mat::<f64>::from_fn(p, q, |i, c| rf[(i, live[c])]);
+        let dec = if q > 0 {
+            Some(crate::linalg::svd::thin_svd(r11.as_ref())?)
+        } else {
+            None
+        };
+        let smax = dec
+            .as_ref()
+            .and_then(|d| d.s.first().copied())
+            .unwrap_or(0.0);
+        let rank = dec.as_ref().map_or(0, |d| {
+            d.s.iter()
+                .take_while(|&&s| s > cutoff * smax && s > 0.0)
+                .count()
+        });
+        if rank == 0 && q > 0 {
+            return Err(Error::NoConvergence {
+                what: "singular value decomposition",
+            });
+        }
+        let condition = dec
+            .as_ref()
+            .filter(|_| rank > 0)
+            .map_or(1.0, |d| smax / d.s[rank - 1]);
+        (0..core.k)
+            .map(|t| {
+                let c = p + t;
+                let rhs: Vec<f64> = (0..p).map(|i| rf[(i, c)]).collect();
+                let mut beta = vec![0.0; p];
+                let mut resid = rhs.clone();
+                if let Some(dec) = &dec {
+                    let mut gamma = vec![0.0; q];
+                    for i in 0..rank {
+                        let coef: f64 =
+                            (0..p).map(|r| dec.u[(r, i)] * rhs[r]).sum::<f64>() / dec.s[i];
+                        for (cc, g) in gamma.iter_mut().enumerate() {
+                            *g += dec.v[(cc, i)] * coef;
+                        }
+                    }
+                    for (i, r) in resid.iter_mut().enumerate() {
+                        *r -= (0..q).map(|cc| r11[(i, cc)] * gamma[cc]).sum::<f64>();
+                    }
+                    // Minimum norm in caller units (see `Svd`): work in a
+                    // common power of two so that the projection is exact.
+                    let e_max = live.iter().map(|&j| -frame.exps[j]).max().unwrap_or(0);
+                    let unit: Vec<i32> = live.iter().map(|&j| -frame.exps[j] - e_max).collect();
+                    let mut b: Vec<f64> = (0..q).map(|cc| ldexp(gamma[cc], unit[cc])).collect();
+                    if rank < q {
+                        crate::solvers::svd::project_off_null_space(&mut b, &dec.v, rank, &unit);
+                    }
+                    for (cc, &j) in live.iter().enumerate() {
+                        beta[j] = ldexp(b[cc], frame.exps[c] + e_max);
+                    }
+                }
+                let (tail, e) = residual_squares(&rf, p, c);
+                let head: f64 = resid.iter().map(|r| r * r).sum();
+                let rss = core.caller_rss(&frame, t, ldexp(tail, e) + head, 0)?;
+                let intercept = core.intercept_for(&frame, t, &beta);
+                core.fit(
+                    "svd-state",
+                    "svd",
+                    beta,
+                    intercept,
+                    Some(rank),
+                    Some(condition),
+                    rss,
+                    0.0,
+                )
+            })
+            .collect()
+    }
+
+    /// The ridge fit of every target at the penalty `lambda >= 0`, which
+    /// minimises `(1/2) sum_i w_i (y_i - b0 - x_i . b)^2 + (lambda / 2) |b|^2`
+    /// (the objective of [`crate::Ridge`] with unstandardised columns): the
+    /// triangle `R11` stacked over `sqrt(lambda_j) I` (the penalty in the
+    /// state's units) and re-triangularised, so that one state serves any
+    /// number of penalties. A penalty whose square root exceeds `2^500` in
+    /// the state's units is used as `2^500` (its coefficients are then
+    /// below about `1e-300` of their unpenalised size either way).
+    ///
+    /// The report carries `rank: None` and `residual_df: None` (a
+    /// penalised system has full rank), the penalty, and the residual sum of
+    /// squares of the penalised coefficients.
+    ///
+    /// # Errors
+    /// [`Error::NoRows`], [`Error::AllWeightsZero`];
+    /// [`Error::InvalidParameter`] for a negative or non-finite penalty;
+    /// [`Error::Overflow`] (at `lambda = 0` on a rank-deficient design
+    /// among others).
+    pub fn finish_ridge(&self, lambda: f64) -> Result<Vec<Fit>> {
+        let core = &self.core;
+        let lambda = crate::penalty::check_penalty("lambda", lambda)?;
+        let frame = core.frame(core.default_tolerance(), false)?;
+        let (p, width) = (core.p, core.width());
+        let rf = self.framed(&frame);
+        let mut r = rf.clone();
+        let ld = row_stride(width);
+        let mut buf = vec![0.0; p.max(1) * ld];
+        let root = lambda.sqrt();
+        for j in 0..p {
+            // A constant column (zero in the triangle) gets a unit
+            // penalty: its coefficient is then exactly 0.
+            let v = if frame.constant[j] {
+                1.0
+            } else {
+                ldexp(root, -frame.exps[j] - core.wexp)
+            };
+            buf[j * ld + j] = v.min(crate::scaled::pow2(500));
+        }
+        if p > 0 {
+            let mut work = StackedQrWork::new(width);
+            stacked_qr(r.as_mut(), &mut buf, ld, p, &mut work);
+        }
+        let r11 = r.as_ref().submatrix(0, 0, p, p);
+        let condition = triangular::condition_upper(r11);
+        (0..core.k)
+            .map(|t| {
+                let c = p + t;
+                let mut gamma: Vec<f64> = (0..p).map(|i| r[(i, c)]).collect();
+                triangular::solve_upper(r11, &mut gamma);
+                let resid: Vec<f64> = (0..p)
+                    .map(|i| rf[(i, c)] - (i..p).map(|l| rf[(i, l)] * gamma[l]).sum::<f64>())
+                    .collect();
+                let beta: Vec<f64> = gamma
+                    .iter()
+                    .enumerate()
+                    .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
+                    .collect();
+                let (tail, e) = residual_squares(&rf, p, c);
+                let head: f64 = resid.iter().map(|r| r * r).sum();
+                let rss = core.caller_rss(&frame, t, ldexp(tail, e) + head, 0)?;
+                let intercept = core.intercept_for(&frame, t, &beta);
+                core.fit(
+                    "ridge-state",
+                    "qr",
+                    beta,
+                    intercept,
+                    None,
+                    Some(condition),
+                    rss,
+                    lambda,
+                )
+            })
+            .collect()
+    }
+}
+
 /// `sum_{i = p}^{c} R_ic^2`: the squared norm of column `c` of the
 /// trailing block (the residuals of that target against the design), as
 /// `(mantissa, exponent)`.
