@@ -289,6 +289,7 @@ fn triangle_state_keeps_the_nist_floors() {
                 .zip(d.certified.estimates())
                 .map(|(c, r)| nist::lre(*c, r))
                 .fold(f64::INFINITY, f64::min);
+            eprintln!("{name} in {blocks} blocks: {got:.2} digits");
             assert!(
                 got >= floor,
                 "{name} in {blocks} blocks: {got:.2} < {floor}"
