@@ -300,6 +300,39 @@ pub enum Error {
         /// What is wrong with it.
         reason: &'static str,
     },
+    /// Two fit states (or a state and a block of rows) describe different
+    /// problems: their column counts, target counts, intercepts or column
+    /// names differ (for names, `left` and `right` are both the index of
+    /// the first differing name; for the intercept, 0 means off and 1 on).
+    #[error("the fit states differ in their {what}: {left} against {right}")]
+    StateMismatch {
+        /// What differs.
+        what: &'static str,
+        /// The value of the state being merged into (or absorbing).
+        left: usize,
+        /// The value of the other state (or of the block).
+        right: usize,
+    },
+    /// A block of targets has another number of columns than the state fits.
+    #[error("the state fits {expected} targets but the block has {found} target columns")]
+    TargetCountMismatch {
+        /// Targets of the state.
+        expected: usize,
+        /// Target columns of the block.
+        found: usize,
+    },
+    /// A fit state read back (feature `serde`) is inconsistent: a size that
+    /// does not match, a number that is not finite, a negative weight, a
+    /// non-zero entry below the diagonal of a triangle.
+    #[error("invalid fit state: {field} at index {index}: {reason}")]
+    InvalidState {
+        /// The field of the serialised form.
+        field: &'static str,
+        /// Index of the offending entry (0 for scalars).
+        index: usize,
+        /// What is wrong with it.
+        reason: &'static str,
+    },
 }
 
 /// Shorthand for results of this crate.

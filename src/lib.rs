@@ -239,6 +239,7 @@ mod scaled;
 mod serde_float;
 pub mod solver;
 mod solvers;
+pub mod state;
 
 /// The array crate of the public API, re-exported so that a program
 /// builds its arrays with exactly the version the crate was compiled
@@ -258,6 +259,9 @@ pub use ridge::{
 };
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
+pub use state::{CrossProductState, FitState, StateLayout, TriangleState};
+#[cfg(feature = "serde")]
+pub use state::{StateData, STATE_FORMAT, STATE_VERSION};
 
 /// The README's code blocks, run as doctests.
 #[cfg(doctest)]

@@ -3,7 +3,7 @@
 mod cholesky;
 mod qr;
 mod refine;
-mod svd;
+pub(crate) mod svd;
 
 pub use cholesky::Cholesky;
 pub use qr::Qr;

@@ -173,7 +173,7 @@ impl Solver for Svd {
 /// Makes `b` the minimum-norm member of `b + null space`, where the null
 /// space of the scaled problem is spanned by columns `rank..` of `v`; in
 /// the units of `b` a null vector `n` becomes `n_c 2^unit_c`.
-fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, unit: &[i32]) {
+pub(crate) fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, unit: &[i32]) {
     let q = b.len();
     let k = v.ncols() - rank;
     let mut a = Mat::<f64>::from_fn(q, k, |c, i| ldexp(v[(c, rank + i)], unit[c]));
