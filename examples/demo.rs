@@ -64,10 +64,6 @@ fn frostgate_records(days: usize, seed: u64) -> (Array2<f64>, Array1<f64>) {
 }
 
 /// Column headers: the first 14 characters of a solver's name.
-fn short(name: &str) -> String {
-    name.chars().take(14).collect()
-}
-
 /// Correct significant digits shared by `a` and `b` (15 when identical).
 fn digits(a: f64, b: f64) -> f64 {
     let scale = a.abs().max(b.abs());
@@ -138,21 +134,29 @@ fn main() {
         return;
     }
 
-    // Coefficients side by side.
+    // Coefficients side by side, each column as wide as the longest
+    // solver name (names are never cut).
+    let w = fits
+        .iter()
+        .map(|(n, _, _)| n.len())
+        .max()
+        .unwrap_or(0)
+        .max(14)
+        + 2;
     print!("{:<20}", "effect per unit");
     for (name, _, _) in &fits {
-        print!("{:>16}", short(name));
+        print!("{name:>w$}");
     }
     println!();
     print!("{:<20}", "base load");
     for (_, fit, _) in &fits {
-        print!("{:>16.4}", fit.model.intercept());
+        print!("{:>w$.4}", fit.model.intercept());
     }
     println!();
     for (j, label) in PREDICTORS.iter().enumerate() {
         print!("{label:<20}");
         for (_, fit, _) in &fits {
-            print!("{:>16.6}", fit.model.coefficients()[j]);
+            print!("{:>w$.6}", fit.model.coefficients()[j]);
         }
         println!();
     }

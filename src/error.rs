@@ -5,6 +5,8 @@
 
 use std::fmt;
 
+use crate::fmt::Num;
+
 /// Which input array a validation error refers to.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
@@ -72,7 +74,7 @@ pub enum Error {
     #[error("the design has no columns and the intercept is off: there is nothing to fit")]
     NothingToFit,
     /// A NaN or infinite value; `column` is `None` for vectors.
-    #[error("non-finite value {value} in the {input} at row {row}{}", column.map(|c| format!(", column {c}")).unwrap_or_default())]
+    #[error("non-finite value {} in the {input} at row {row}{} (rows and columns count from 0)", Num(*value), column.map(|c| format!(", {}", crate::fmt::column(c, column_name.as_deref()))).unwrap_or_default())]
     NonFinite {
         /// The array holding the value.
         input: Input,
@@ -80,11 +82,13 @@ pub enum Error {
         row: usize,
         /// Column index (0-based) for matrices.
         column: Option<usize>,
+        /// The column's name, when the problem or model has names.
+        column_name: Option<String>,
         /// The offending value.
         value: f64,
     },
     /// A weight that is negative (or not finite).
-    #[error("weight {value} at row {row} is invalid: weights must be finite and >= 0")]
+    #[error("weight {} at row {row} (counting from 0) is invalid: weights must be finite and >= 0", Num(*value))]
     InvalidWeight {
         /// Row index (0-based).
         row: usize,
@@ -96,7 +100,7 @@ pub enum Error {
     /// weight), it is no longer a normal `f64`: the row could not take its
     /// part in the fit with its own weight. Set it to 0 or rescale the
     /// weights so that they span less than about `1e307`.
-    #[error("weight {value:e} at row {row} is positive but too small beside the largest weight {largest:e} to be represented in scaled form: set it to 0 or narrow the range of the weights")]
+    #[error("weight {} at row {row} (counting from 0) is positive but too small beside the largest weight {} to be represented in scaled form: set it to 0 or narrow the range of the weights", Num(*value), Num(*largest))]
     WeightRange {
         /// Row index (0-based).
         row: usize,
@@ -109,12 +113,14 @@ pub enum Error {
     /// of `f64` about their weighted mean, so that the centered values the
     /// solvers work with (`x - mean`) cannot be represented: for example a
     /// column holding both `-1e308` and `1e308`.
-    #[error("the {input}{} spans more than the largest f64 about its mean: its centered values cannot be represented", column.map(|c| format!(" column {c}")).unwrap_or_default())]
+    #[error("the {input}{} spans more than the largest f64 about its mean: its centered values cannot be represented", column.map(|c| format!(" {} (counting from 0)", crate::fmt::column(c, column_name.as_deref()))).unwrap_or_default())]
     SpreadOverflow {
         /// The array holding the values.
         input: Input,
         /// Column index (0-based) for the design.
         column: Option<usize>,
+        /// The column's name, when the problem has names.
+        column_name: Option<String>,
     },
     /// Every weight is zero, so no row takes part in the fit.
     #[error("all {rows} weights are zero: no row takes part in the fit")]
@@ -132,7 +138,7 @@ pub enum Error {
     },
     /// Columns that are, to working precision, combinations of other columns
     /// (or constant beside the intercept).
-    #[error("the design is rank deficient: numerical rank {rank} of {columns} columns; dependent columns {dependent:?} (tolerance {tolerance:e}); the SVD solver gives the minimum-norm fit, a ridge penalty also resolves it")]
+    #[error("the design is rank deficient: numerical rank {rank} of {columns} columns (columns count from 0); {} (relative tolerance {}); the SVD solver gives the minimum-norm fit, a ridge penalty also resolves it", crate::fmt::dependence(dependent, combinations, names.as_deref()), Num(*tolerance))]
     RankDeficient {
         /// Numerical rank of the (centered) design.
         rank: usize,
@@ -142,9 +148,16 @@ pub enum Error {
         dependent: Vec<usize>,
         /// Relative tolerance that was applied.
         tolerance: f64,
+        /// For each entry of `dependent`, the independent columns (0-based)
+        /// it is, to working precision, a combination of (an empty list for
+        /// a column that is constant beside the intercept, or zero); the
+        /// whole vector is empty when the factor at hand cannot tell.
+        combinations: Vec<Vec<usize>>,
+        /// The design's column names, when the problem has names.
+        names: Option<Vec<String>>,
     },
     /// A Cholesky factorisation met a pivot that was not positive.
-    #[error("the Gram matrix is not positive definite: pivot {pivot} is {value:e}")]
+    #[error("the Gram matrix is not positive definite: pivot {pivot} (counting from 0) is {}", Num(*value))]
     NotPositiveDefinite {
         /// Index of the failed pivot (0-based column).
         pivot: usize,
@@ -152,7 +165,7 @@ pub enum Error {
         value: f64,
     },
     /// The method cannot deliver the accuracy asked of it on this problem.
-    #[error("the {method} method expects about {expected_digits:.1} correct digits here (condition estimate {condition:e}), fewer than the {required_digits} required; use the QR or SVD solver")]
+    #[error("the {method} method expects about {expected_digits:.1} correct digits here (condition number of the Gram matrix {}), fewer than the {} required; use the QR or SVD solver", Num(*condition), Num(*required_digits))]
     IllConditioned {
         /// The method that refused.
         method: &'static str,
@@ -164,7 +177,7 @@ pub enum Error {
         required_digits: f64,
     },
     /// A setting has a value outside its allowed range.
-    #[error("parameter `{name}` = {value} is invalid: {reason}")]
+    #[error("parameter `{name}` = {} is invalid: {reason}", Num(*value))]
     InvalidParameter {
         /// Name of the setting.
         name: &'static str,
@@ -180,7 +193,7 @@ pub enum Error {
         what: &'static str,
     },
     /// An iterative solver hit its iteration limit before meeting its tolerance.
-    #[error("not converged after {iterations} iterations: relative gradient norm {gradient_norm:e} > tolerance {tolerance:e}")]
+    #[error("not converged after {iterations} iterations: relative gradient norm {} > tolerance {}", Num(*gradient_norm), Num(*tolerance))]
     NotConverged {
         /// Iterations (or epochs) run.
         iterations: usize,
@@ -191,7 +204,7 @@ pub enum Error {
     },
     /// An iterative solver diverged: the loss grew without bound or became non-finite.
     #[error(
-        "diverged at iteration {iteration} with step {step:e}: loss {loss:e}; use a smaller step"
+        "diverged at iteration {iteration} with step {}: loss {}; use a smaller step", Num(*step), Num(*loss)
     )]
     Diverged {
         /// Iteration (or epoch) at which divergence was detected.
@@ -235,7 +248,7 @@ pub enum Error {
     },
     /// A penalty in a grid of penalties is negative or not finite.
     #[error(
-        "penalty {value} at grid position {index} is invalid: penalties must be finite and >= 0"
+        "penalty {} at grid position {index} (counting from 0) is invalid: penalties must be finite and >= 0", Num(*value)
     )]
     InvalidGridPenalty {
         /// Position in the grid (0-based).
@@ -283,7 +296,7 @@ pub enum Error {
         version: u64,
     },
     /// A list of column names whose length is not the number of columns.
-    #[error("{found} column names were given for {expected} columns")]
+    #[error("{found} names were given for {expected} coefficients (one name per design column; the intercept has none)")]
     NameCountMismatch {
         /// Columns of the design (or coefficients of the model).
         expected: usize,
@@ -333,6 +346,56 @@ pub enum Error {
         /// What is wrong with it.
         reason: &'static str,
     },
+}
+
+impl Error {
+    /// The same error with the column named where it points at a column
+    /// of a design (or of rows to predict) by index alone.
+    pub(crate) fn name_columns(self, names: Option<&[String]>) -> Error {
+        let Some(list) = names else {
+            return self;
+        };
+        match self {
+            Error::NonFinite {
+                input: input @ (Input::Design | Input::NewDesign),
+                row,
+                column: Some(c),
+                value,
+                column_name: None,
+            } => Error::NonFinite {
+                input,
+                row,
+                column: Some(c),
+                value,
+                column_name: list.get(c).cloned(),
+            },
+            Error::SpreadOverflow {
+                input: Input::Design,
+                column: Some(c),
+                column_name: None,
+            } => Error::SpreadOverflow {
+                input: Input::Design,
+                column: Some(c),
+                column_name: list.get(c).cloned(),
+            },
+            Error::RankDeficient {
+                rank,
+                columns,
+                dependent,
+                tolerance,
+                combinations,
+                names: None,
+            } => Error::RankDeficient {
+                rank,
+                columns,
+                dependent,
+                tolerance,
+                combinations,
+                names: Some(list.to_vec()),
+            },
+            other => other,
+        }
+    }
 }
 
 /// Shorthand for results of this crate.

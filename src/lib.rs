@@ -226,6 +226,7 @@ mod alloc;
 #[doc(hidden)]
 pub mod bench_support;
 pub mod error;
+mod fmt;
 pub mod gradient;
 pub mod inference;
 mod linalg;

@@ -206,6 +206,7 @@ impl LinearModel {
                 input: Input::Coefficients,
                 row: row.min(p),
                 column: None,
+                column_name: None,
                 value,
             });
         }
@@ -294,6 +295,7 @@ impl LinearModel {
                     input: Input::NewDesign,
                     row: 0,
                     column: Some(j),
+                    column_name: None,
                     value: v,
                 });
             }
@@ -334,21 +336,25 @@ impl LinearModel {
         }
         let mut out = Array1::zeros(x.nrows());
         for (i, row) in x.rows().into_iter().enumerate() {
-            out[i] = self.predict_row(row).map_err(|e| match e {
-                Error::NonFinite {
-                    input,
-                    column,
-                    value,
-                    ..
-                } => Error::NonFinite {
-                    input,
-                    row: i,
-                    column,
-                    value,
-                },
-                Error::OverflowAt { what, .. } => Error::OverflowAt { what, row: i },
-                other => other,
-            })?;
+            out[i] = self
+                .predict_row(row)
+                .map_err(|e| match e {
+                    Error::NonFinite {
+                        input,
+                        column,
+                        value,
+                        ..
+                    } => Error::NonFinite {
+                        input,
+                        row: i,
+                        column,
+                        column_name: None,
+                        value,
+                    },
+                    Error::OverflowAt { what, .. } => Error::OverflowAt { what, row: i },
+                    other => other,
+                })
+                .map_err(|e| e.name_columns(Some(&self.names)))?;
         }
         Ok(out)
     }
@@ -376,6 +382,7 @@ impl LinearModel {
                     input: Input::NewTarget,
                     row,
                     column: None,
+                    column_name: None,
                     value,
                 });
             }

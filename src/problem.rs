@@ -171,7 +171,8 @@ impl<'a> ProblemBuilder<'a> {
             self.weights.as_ref(),
             weight_scale,
             self.intercept,
-        )?;
+        )
+        .map_err(|e| e.name_columns(self.names.as_deref()))?;
         Ok(Problem {
             design: self.design,
             target: self.target,
@@ -360,6 +361,7 @@ fn check_vector(v: &ArrayView1<'_, f64>, input: Input) -> Result<()> {
                 input,
                 row,
                 column: None,
+                column_name: None,
                 value,
             });
         }
@@ -599,6 +601,7 @@ fn compute_stats(
                             input: Input::Design,
                             row: i,
                             column: Some(j),
+                            column_name: None,
                             value: v,
                         });
                     }
@@ -709,6 +712,7 @@ fn compute_stats(
             return Err(Error::SpreadOverflow {
                 input: Input::Design,
                 column: Some(j),
+                column_name: None,
             });
         }
         centered_max.push(spread(total.min[j], total.max[j], m));
@@ -717,6 +721,7 @@ fn compute_stats(
         return Err(Error::SpreadOverflow {
             input: Input::Target,
             column: None,
+            column_name: None,
         });
     }
     let target_centered_max = spread(total.ymin, total.ymax, target_mean);

@@ -175,7 +175,8 @@ fn spreads_beyond_the_range_are_typed_errors() {
         Problem::new(x.view(), y.view()).unwrap_err(),
         Error::SpreadOverflow {
             input: Input::Design,
-            column: Some(1)
+            column: Some(1),
+            column_name: None,
         }
     );
 }

@@ -402,7 +402,7 @@ fn row_errors_carry_global_row_numbers() {
         .absorb(x.slice(s![20..30, ..]), y.slice(s![20..30, ..]), None)
         .expect_err("NaN");
     assert!(
-        matches!(err, Error::NonFinite { input: Input::Design, row: 23, column: Some(1), value } if value.is_nan()),
+        matches!(err, Error::NonFinite { input: Input::Design, row: 23, column: Some(1), value, .. } if value.is_nan()),
         "{err:?}"
     );
     assert_eq!(st, before, "a refused block leaves the state unchanged");
@@ -421,6 +421,7 @@ fn row_errors_carry_global_row_numbers() {
             input: Input::Target,
             row: 27,
             column: None,
+            column_name: None,
             value: f64::INFINITY
         }
     );

@@ -774,13 +774,25 @@ impl Describe<'_> {
                 columns,
                 dependent,
                 tolerance,
+                combinations,
+                ..
             } => {
-                let named: Vec<String> = dependent.iter().map(|&j| self.column(j)).collect();
+                let said: Vec<String> = dependent
+                    .iter()
+                    .enumerate()
+                    .map(|(k, &j)| match combinations.get(k) {
+                        Some(list) if list.is_empty() => format!("{} is constant", self.column(j)),
+                        Some(list) => {
+                            let of: Vec<String> = list.iter().map(|&i| self.column(i)).collect();
+                            format!("{} is a combination of {}", self.column(j), of.join(", "))
+                        }
+                        None => format!("{} depends on the columns before it", self.column(j)),
+                    })
+                    .collect();
                 format!(
                     "the predictors are linearly dependent (numerical rank {rank} of {columns}, \
-                     relative tolerance {tolerance:.1e}): {} constant or a combination of the \
-                     columns before; drop it, or use --solver svd or ridge",
-                    named.join(", ") + if named.len() == 1 { " is" } else { " are each" }
+                     relative tolerance {tolerance:.1e}): {}; drop one, or use --solver svd or ridge",
+                    said.join("; ")
                 )
             }
             Error::NonFinite {

@@ -448,6 +448,7 @@ impl<'p, 'a> Objective<'p, 'a> {
                     input: Input::StartingPoint,
                     row: j,
                     column: None,
+                    column_name: None,
                     value: b,
                 });
             }

@@ -83,6 +83,7 @@ impl Inference {
     /// `f64`.
     pub fn predict(&self, x: ArrayView2<'_, f64>) -> Result<Predictions> {
         self.predict_inner(x, None)
+            .map_err(|e| e.name_columns(Some(&self.names)))
     }
 
     /// As [`Inference::predict`], with a weight (precision) per new row for
@@ -159,6 +160,7 @@ impl Inference {
                         input: Input::NewDesign,
                         row: i,
                         column: Some(j),
+                        column_name: None,
                         value: v,
                     });
                 }

@@ -26,11 +26,16 @@ fn num(v: f64) -> String {
     }
 }
 
+/// `p = 0.0312`, `p = 3.2e-9`, or a bound `p < 1e-300` where the tail
+/// probability is below the range where it keeps its digits (a printed 0
+/// would read as exactly zero).
 fn prob(p: f64) -> String {
-    if p < 1e-4 {
-        format!("{p:.2e}")
+    if p < 1e-300 {
+        "p < 1e-300".to_string()
+    } else if p < 1e-4 {
+        format!("p = {p:.2e}")
     } else {
-        format!("{p:.4}")
+        format!("p = {p:.4}")
     }
 }
 
@@ -51,7 +56,7 @@ fn estimate_line(
 ) -> fmt::Result {
     writeln!(
         f,
-        "  {name:<width$} = {:>12} +/- {:<12}  t = {:>8}  p = {:<9}  within [{}, {}]",
+        "  {name:<width$} = {:>12} +/- {:<12}  t = {:>8}  {:<13}  within [{}, {}]",
         num(e.value),
         num(e.std_error),
         format!("{:.3}", e.t),
@@ -111,7 +116,7 @@ impl fmt::Display for Inference {
         match &g.overall {
             Some(t) => writeln!(
                 f,
-                "  slopes all 0? F = {} with ({}, {}) degrees of freedom, p = {}",
+                "  slopes all 0? F = {} with ({}, {}) degrees of freedom, {}",
                 num(t.statistic),
                 t.df_model,
                 t.df_residual,

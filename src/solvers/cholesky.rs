@@ -233,8 +233,10 @@ impl Cholesky {
             return Error::RankDeficient {
                 rank: p - dependent.len(),
                 columns: p,
+                combinations: super::combinations(r.as_ref(), &dependent, &scaling.constant),
                 dependent,
                 tolerance,
+                names: problem.names().map(<[String]>::to_vec),
             };
         }
         let condition = match crate::linalg::svd::condition(r.as_ref(), 0.0) {

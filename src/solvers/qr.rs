@@ -177,11 +177,14 @@ impl Solver for Qr {
             tolerance,
         );
         if !dependent.is_empty() {
+            let r11 = r.as_ref().submatrix(0, 0, p, p);
             return Err(Error::RankDeficient {
                 rank: p - dependent.len(),
                 columns: p,
+                combinations: super::combinations(r11, &dependent, &scaling.constant),
                 dependent,
                 tolerance,
+                names: problem.names().map(<[String]>::to_vec),
             });
         }
         let r11: Mat<f64> = r.as_ref().submatrix(0, 0, p, p).to_owned();

@@ -131,8 +131,11 @@ impl CrossProductState {
             return Err(Error::RankDeficient {
                 rank: p - constant.len(),
                 columns: p,
+                // Constant columns combine nothing.
+                combinations: vec![Vec::new(); constant.len()],
                 dependent: constant,
                 tolerance,
+                names: core.names.clone(),
             });
         }
         let g11 = cf.as_ref().submatrix(0, 0, p, p);
@@ -206,7 +209,8 @@ impl FitState for CrossProductState {
         let block = self.core.reduce_block(x, y, w, |buf, ld, len| {
             let z = row_major_ref(buf, len, width, ld);
             matmul(c.as_mut(), Accum::Add, z.transpose(), z, 1.0, Par::Seq);
-        })?;
+        });
+        let block = block.map_err(|e| e.name_columns(self.core.names.as_deref()))?;
         // The product's two halves may differ by rounding: keep one.
         for j in 0..width {
             for i in 0..j {

@@ -397,6 +397,7 @@ impl Core {
                     input: Input::Design,
                     row: base.saturating_add(i),
                     column: Some(j),
+                    column_name: None,
                     value,
                 });
             }
@@ -407,6 +408,7 @@ impl Core {
                     input: Input::Target,
                     row: base.saturating_add(i),
                     column: (self.k > 1).then_some(t),
+                    column_name: None,
                     value,
                 });
             }
@@ -626,6 +628,7 @@ impl Core {
                     } else {
                         (self.k > 1).then_some(j - self.p)
                     },
+                    column_name: None,
                 });
             }
             let e = exponent(pow2_scale(centered));

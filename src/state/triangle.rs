@@ -150,8 +150,10 @@ impl TriangleState {
             return Err(Error::RankDeficient {
                 rank: p - dependent.len(),
                 columns: p,
+                combinations: crate::solvers::combinations(r11, &dependent, &frame.constant),
                 dependent,
                 tolerance,
+                names: core.names.clone(),
             });
         }
         let condition = crate::linalg::svd::condition(r11, 0.0)?;
@@ -395,7 +397,8 @@ impl FitState for TriangleState {
         let mut work = StackedQrWork::new(width);
         let block = self.core.reduce_block(x, y, w, |buf, ld, len| {
             stacked_qr(r.as_mut(), buf, ld, len, &mut work);
-        })?;
+        });
+        let block = block.map_err(|e| e.name_columns(self.core.names.as_deref()))?;
         self.fold(&block, &r);
         Ok(())
     }
