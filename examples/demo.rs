@@ -178,20 +178,23 @@ fn main() {
     // Reports.
     println!("\nhow each fit went");
     println!(
-        "  {:<22} {:>10} {:>5} {:>10} {:>14} {:>9} {:>11}",
-        "solver", "time (ms)", "rank", "condition", "residual SS", "penalty", "iterations"
+        "  {:<22} {:>10} {:>5} {:>10} {:>14} {:>9}  iterations",
+        "solver", "time (ms)", "rank", "condition", "residual SS", "penalty"
     );
     for (name, fit, seconds) in &fits {
         let r = &fit.report;
         let iterations = match &r.iterations {
             Some(it) if it.converged => format!("{}", it.iterations),
-            Some(it) => format!("{} (open)", it.iterations),
+            Some(it) if it.stopped_by_observer => {
+                format!("{}, stopped by the observer", it.iterations)
+            }
+            Some(it) => format!("{}, stopped at the iteration limit", it.iterations),
             None => "-".to_string(),
         };
         let rank = r.rank.map_or("-".to_string(), |k| k.to_string());
         let condition = r.condition.map_or("-".to_string(), |c| format!("{c:.2e}"));
         println!(
-            "  {:<22} {:>10.3} {:>5} {:>10} {:>14.6e} {:>9.3} {:>11}",
+            "  {:<22} {:>10.3} {:>5} {:>10} {:>14.6e} {:>9.3}  {}",
             name,
             seconds * 1e3,
             rank,
@@ -201,7 +204,7 @@ fn main() {
             iterations
         );
     }
-    println!("  (\"-\" = not measured: an iterative solver factors nothing; \"open\" = stopped before its tolerance)");
+    println!("  (\"-\" = not measured: an iterative solver factors nothing)");
     let fit = &fits[0].1;
     let df = fit.report.residual_df.unwrap_or(0).max(1) as f64;
     let rmse = (fit.report.residual_sum_of_squares / df).sqrt();

@@ -115,11 +115,15 @@ fn show(name: &str, w: Watched) {
         .map(|c| format!("{:>9}", c.map_or("-".to_string(), |k| k.to_string())))
         .collect();
     println!(
-        "  {name:<22} {cells}   {:>8} {:>8}  {:.1e}{}",
+        "  {name:<28} {cells}   {:>8} {:>8}  {:.1e}{}",
         w.passes,
         w.restarts,
         w.grad,
-        if w.converged { "" } else { "  (limit)" }
+        if w.converged {
+            ""
+        } else {
+            "  stopped at the iteration limit"
+        }
     );
 }
 
@@ -136,7 +140,7 @@ fn main() {
             standardised_condition(&x)
         );
         println!(
-            "  {:<22} {:>9}{:>9}{:>9}{:>9}   {:>8} {:>8}  last rel. gradient",
+            "  {:<28} {:>9}{:>9}{:>9}{:>9}   {:>8} {:>8}  last relative gradient",
             "method", "1e-2", "1e-4", "1e-6", "1e-8", "passes", "restarts"
         );
         let gd = GradientDescent::new()
@@ -160,5 +164,15 @@ fn main() {
                 watch(|o| sgd.fit_observed(&problem, o)),
             );
         }
+        let plain = Stochastic::new()
+            .with_tolerance(1e-8)
+            .with_max_iterations(300)
+            .with_batch_size(32)
+            .with_variance_reduction(false)
+            .with_history_stride(0);
+        show(
+            "plain stochastic (batch 32)",
+            watch(|o| plain.fit_observed(&problem, o)),
+        );
     }
 }

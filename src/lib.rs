@@ -86,7 +86,7 @@
 //! |---|---|---|---|
 //! | [`Qr`] (default) | general use; accurate | about 2 n p² | keeps cond(X) |
 //! | [`Cholesky`] | large, well-conditioned designs; fastest | about n p² | squares cond(X); refuses when too few digits would survive |
-//! | [`Svd`] | rank-deficient designs; minimum-norm solution and numerical rank | QR plus O(p³) | keeps cond(X) |
+//! | [`Svd`] | rank-deficient or wide designs; minimum-norm solution and numerical rank | QR plus O(p³); wide: an n x p copy and its SVD | keeps cond(X) |
 //! | [`Qr::refined()`] | every digit the data allow | 2–7 × QR | refinement with double-double residuals |
 //! | [`Ridge`] | collinear predictors, prediction, wide designs | by shape: Cholesky, augmented QR, SVD path, dual | penalty chosen by [`RidgePath`] |
 //! | [`GradientDescent`], [`Accelerated`], [`Stochastic`] | huge p, warm starts, cancellable fits | one read of X per iteration | iterative; honest convergence report |

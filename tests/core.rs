@@ -370,13 +370,23 @@ fn every_validation_error_names_what_and_where() {
             .unwrap_err(),
         Error::AllWeightsZero { rows: 4 }
     );
-    // Two usable rows cannot determine three parameters.
+    // Two usable rows cannot determine three parameters (Svd returns the
+    // minimum-norm solution instead).
     let w = array![1.0, 0.0, 0.0, 1.0];
     let problem = Problem::builder(x.view(), y.view())
         .with_weights(w.view())
         .build()
         .unwrap();
-    for solver in solvers() {
+    // Usable rows (1, 2) -> 1 and (1, 0) -> 4: the centered rows are
+    // (0, 1) and (0, -1), so the minimum-norm slopes are (0, -1.5) and the
+    // intercept 2.5 - (1, 1) . (0, -1.5) = 4, fitting both rows exactly.
+    let fit = Svd::new().fit(&problem).unwrap();
+    assert_eq!(fit.report.rank, Some(1));
+    assert_eq!(fit.report.residual_df, Some(0));
+    let b = fit.model.coefficients();
+    assert!(b[0].abs() < 1e-15 && (b[1] + 1.5).abs() < 1e-14, "{b}");
+    assert!((fit.model.intercept() - 4.0).abs() < 1e-14);
+    for solver in solvers().iter().filter(|s| s.name() != "svd") {
         assert_eq!(
             solver.fit(&problem).unwrap_err(),
             Error::TooFewRows {

@@ -371,6 +371,18 @@ impl<'p, 'a> Objective<'p, 'a> {
         self.assemble(g, pass, factor)
     }
 
+    /// Estimate of `H v` from the rows listed, scaled to the whole problem
+    /// as in [`Objective::eval_rows`] (the penalty's share is exact). For
+    /// this quadratic objective it equals the difference of the batch
+    /// gradients at two points `v` apart, without the cancellation of
+    /// subtracting them.
+    pub fn hess_rows(&mut self, v: &[f64], rows: &[usize]) -> Vec<f64> {
+        self.set_coef(v);
+        let pass = residual_rows(self.problem, &self.coef, self.pre.as_deref(), 0.0, rows);
+        let factor = self.problem.usable_rows() as f64 / rows.len().max(1) as f64;
+        self.assemble(v, pass, factor).grad
+    }
+
     /// `H v` with `H` the Hessian of `f` (one full pass).
     fn hess_vec(&mut self, v: &[f64]) -> Vec<f64> {
         self.set_coef(v);

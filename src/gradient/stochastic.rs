@@ -1,4 +1,4 @@
-//! Mini-batch stochastic gradient descent.
+//! Mini-batch stochastic gradient descent, variance-reduced by default.
 
 use rand_chacha::rand_core::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -9,16 +9,65 @@ use crate::model::LinearModel;
 use crate::problem::Problem;
 use crate::solver::{Fit, Solver};
 
-/// Mini-batch stochastic gradient descent with seeded shuffling and a
-/// decaying step.
+/// Mini-batch stochastic gradient descent with seeded shuffling; by default
+/// every batch gradient is corrected by a snapshot taken at the start of
+/// its epoch, so that the method converges to the tolerance asked for.
 ///
 /// Every epoch shuffles the rows with non-zero weight (Fisher-Yates driven
 /// by a ChaCha8 generator seeded with `seed`), cuts them into batches of
-/// `batch_size` rows and takes one step per batch along the batch's
-/// gradient estimate, scaled so that it is unbiased for the full gradient.
-/// In epoch `e` (from 0) the step is `step / (1 + decay * e)`.
+/// `batch_size` rows and takes one step per batch. After each epoch the
+/// loss and gradient are evaluated on all rows, for the stopping test, the
+/// observer and the history, so every number reported is exact, not a
+/// running estimate.
 ///
-/// The default first step is `1 / L_b`, where
+/// ## Variance reduction (default)
+///
+/// The point `s` reached at the end of an epoch is kept as a snapshot, and
+/// its full gradient `g(s)` is the one just evaluated for the stopping
+/// test. In the next epoch each batch `B` moves the coefficients `x` along
+///
+/// ```text
+/// v = g_B(x) - g_B(s) + g(s) = g(s) + H_B (x - s)
+/// ```
+///
+/// with a constant step, where `g_B` is the batch's gradient estimate
+/// (scaled to be unbiased for the full gradient) and `H_B` the batch's
+/// estimate of the Hessian. The objective is quadratic, so the difference
+/// of the two batch gradients is formed exactly as `H_B (x - s)`, from one
+/// read of the batch's rows, with no cancellation. `v` is unbiased for the
+/// full gradient `g(x)`, like a plain batch gradient, but its noise is
+/// `(H_B - H)(x - s)`: it shrinks as the iterate and the snapshot approach
+/// the optimum, instead of staying at the size of the single-row
+/// gradients there. That is why a constant step suffices and the error
+/// falls by a fixed factor per epoch (linear convergence) once an epoch
+/// holds enough batches for the condition number: on well-conditioned
+/// problems of 100,000 rows the default settings reach a relative gradient
+/// of `1e-6` in about 10 epochs; with one batch per epoch (`batch_size` at
+/// least the usable rows) each epoch is one step of full-batch gradient
+/// descent.
+///
+/// Cost: the batches of an epoch read each usable row once (the first
+/// batch of an epoch needs no read: its correction is zero), and the full
+/// gradient reads the design once more, so an epoch counts two passes in
+/// the report's `passes` (one when it has a single batch), exactly as a
+/// plain epoch. Setting up reads the design a few more times: column norms,
+/// the starting point, the curvature estimates below. Extra memory: the
+/// row permutation (`n` indices), the snapshot and a difference vector
+/// (`p` values each).
+///
+/// The default step is `1 / (2 L_b)` (`1 / L` with one batch), where
+/// `L_b = n (b - 1) / (b (n - 1)) L + (n - b) / (b (n - 1)) L_max` is the
+/// expected smoothness of sampling `b` of `n` rows without replacement:
+/// `L` is the full curvature (as for [`crate::GradientDescent`]) and
+/// `L_max` the largest single-row curvature. It equals `L` for one batch
+/// of all rows and grows for small batches, whose estimates are noisier.
+/// Half of `1 / L_b` keeps the expected squared step within the range
+/// where the correction's noise cannot undo the progress of an epoch.
+/// `decay` and `average` do not apply to this method.
+///
+/// ## Why `L_b`
+///
+/// The step bound uses
 /// `L_b = n (b - 1) / (b (n - 1)) L + (n - b) / (b (n - 1)) L_max`: `L` is
 /// the full curvature (as for [`crate::GradientDescent`]) and `L_max` the
 /// largest single-row curvature. `L_b` is the "expected smoothness" of a
@@ -39,33 +88,31 @@ use crate::solver::{Fit, Solver};
 /// (`b = 1`), so the step shrinks for small batches, whose gradients are
 /// noisier.
 ///
-/// After each epoch the loss and gradient are evaluated on all rows (one
-/// more read of the design), for the stopping test, the observer and the
-/// history, so every number reported is exact, not a running estimate. An
-/// epoch therefore reads the design twice: once in shuffled batches, once
-/// in order.
+/// ## Plain steps (`variance_reduction: false`)
 ///
-/// **Reproducible:** the same seed, settings, data and memory layout give
-/// identical coefficients, bit for bit, on any number of threads (batches
-/// larger than 1,024 rows are split into fixed chunks that run in parallel
-/// and are added in a fixed order). Different seeds reach the same optimum
-/// to within the tolerance reached.
+/// Each batch moves along its own gradient estimate `g_B(x)`. In epoch `e`
+/// (from 0) the step is `step / (1 + decay * e)`, the default first step
+/// `1 / L_b`. The noise of such steps does not shrink at the optimum, so
+/// they approach it only as the step decays: reaching a tight tolerance
+/// takes many epochs, and the report says whether it was reached.
 ///
-/// **Averaging** (on by default): the coefficients evaluated after each
-/// epoch, and returned, are the running average of the iterates since the
-/// start of the latest epoch whose number is a power of two (so the average
-/// spans at least the latest half of the run and drops the early
-/// transient); the iteration itself continues from the last iterate. This
-/// Polyak-Ruppert style averaging cancels much of the gradient noise of
-/// small batches: in the crate's conditioning example, with batches of 32
-/// rows, it reaches a relative gradient of 1e-2 in 2 or 3 epochs instead of
-/// 11 to 15 (with 256 rows it makes little difference). With
-/// `average = false` the last iterate is evaluated and returned.
+/// **Averaging** (on by default, plain steps only): the coefficients
+/// evaluated after each epoch, and returned, are the running average of
+/// the iterates since the start of the latest epoch whose number is a
+/// power of two (so the average spans at least the latest half of the run
+/// and drops the early transient); the iteration itself continues from the
+/// last iterate. This Polyak-Ruppert style averaging cancels much of the
+/// gradient noise of small batches. With `average = false` the last
+/// iterate is evaluated and returned. Extra memory: the row permutation
+/// and the average (`p` values).
 ///
-/// A stochastic method's gradient noise shrinks only as the step decays, so
-/// reaching a tight tolerance takes many epochs; the report says whether it
-/// was reached. Extra memory: the row permutation (`n` indices) and the
-/// average (`p` values).
+/// ## Reproducibility
+///
+/// The same seed, settings, data and memory layout give identical
+/// coefficients, bit for bit, on any number of threads (batches larger
+/// than 1,024 rows are split into fixed chunks that run in parallel and
+/// are added in a fixed order). Different seeds reach the same optimum to
+/// within the tolerance reached.
 ///
 /// ```
 /// use leastline::{Problem, Solver, Stochastic};
@@ -86,18 +133,25 @@ pub struct Stochastic {
     pub(crate) batch_size: usize,
     /// Most epochs, each a shuffled pass over the rows (default 100).
     pub(crate) max_iterations: usize,
-    /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
+    /// Step (plain steps: first step) in internal coordinates; `None`
+    /// (default) uses `1 / (2 L_b)` with variance reduction and more than
+    /// one batch, else `1 / L_b` (see the type's docs).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::option_float"))]
     pub(crate) step: Option<f64>,
-    /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
-    /// finite and `>= 0`; 0 keeps the step constant).
+    /// Step decay per epoch of plain steps: `step / (1 + decay * epoch)`
+    /// (default 0.5; finite and `>= 0`; 0 keeps the step constant). Not
+    /// used with `variance_reduction`, whose step is constant.
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
     pub(crate) decay: f64,
     /// Seed of the shuffling (default 0).
     pub(crate) seed: u64,
-    /// Report the average of the iterates instead of the last one
-    /// (default `true`; see the type's docs).
+    /// Plain steps only: report the average of the iterates instead of the
+    /// last one (default `true`; see the type's docs).
     pub(crate) average: bool,
+    /// Correct every batch gradient by the latest epoch's snapshot (default
+    /// `true`; see the type's docs). `false`: plain decaying steps with
+    /// optional averaging.
+    pub(crate) variance_reduction: bool,
     /// Stop when the relative gradient norm after an epoch is at most this
     /// (default `1e-6`).
     #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
@@ -123,6 +177,7 @@ impl Default for Stochastic {
             decay: 0.5,
             seed: 0,
             average: true,
+            variance_reduction: true,
             tolerance: 1e-6,
             penalty: 0.0,
             start: None,
@@ -131,6 +186,11 @@ impl Default for Stochastic {
         }
     }
 }
+
+/// Fraction of `1 / L_b` taken as the default step with variance
+/// reduction and more than one batch per epoch (with one batch the step is
+/// full-batch gradient descent's `1 / L`).
+const STEP_FRACTION: f64 = 0.5;
 
 checked_settings!(Stochastic {
     batch_size: usize,
@@ -141,6 +201,7 @@ checked_settings!(Stochastic {
     decay: f64,
     seed: u64,
     average: bool,
+    variance_reduction: bool,
     #[serde(with = "crate::serde_float::float")]
     tolerance: f64,
     #[serde(with = "crate::serde_float::float")]
@@ -239,8 +300,8 @@ impl Stochastic {
         self.seed
     }
 
-    /// Report the average of the iterates instead of the last one
-    /// (default `true`; see the type's docs).
+    /// Plain steps only: report the average of the iterates instead of the
+    /// last one (default `true`; see the type's docs).
     #[must_use]
     pub fn with_average(mut self, value: bool) -> Self {
         self.average = value;
@@ -250,6 +311,21 @@ impl Stochastic {
     /// The `average` setting (see [`Self::with_average`]).
     pub fn average(&self) -> bool {
         self.average
+    }
+
+    /// Correct every batch gradient by the latest epoch's snapshot (default
+    /// `true`; see the type's docs). `false`: plain decaying steps with
+    /// optional averaging.
+    #[must_use]
+    pub fn with_variance_reduction(mut self, value: bool) -> Self {
+        self.variance_reduction = value;
+        self
+    }
+
+    /// The `variance_reduction` setting (see
+    /// [`Self::with_variance_reduction`]).
+    pub fn variance_reduction(&self) -> bool {
+        self.variance_reduction
     }
 
     /// Stop when the relative gradient norm after an epoch is at most this
@@ -357,7 +433,9 @@ impl Stochastic {
     /// [`Error::InvalidParameter`] for `batch_size` 0 or a negative or
     /// non-finite `decay`. A non-finite coefficient inside an epoch is
     /// reported at once as [`Error::Diverged`] with that epoch's number
-    /// (counting from 1) and step.
+    /// (counting from 1) and step, and with the batch's loss estimate for
+    /// plain steps or an infinite loss with variance reduction (whose
+    /// batches form no loss).
     pub fn fit_observed(
         &self,
         problem: &Problem<'_>,
@@ -396,7 +474,11 @@ impl Stochastic {
                     nf * (bf - 1.0) / (bf * (nf - 1.0)) * l + (nf - bf) / (bf * (nf - 1.0)) * l_max
                 };
                 if lb > 0.0 && lb.is_finite() {
-                    1.0 / lb
+                    if self.variance_reduction && b < n {
+                        STEP_FRACTION / lb
+                    } else {
+                        1.0 / lb
+                    }
                 } else {
                     1.0
                 }
@@ -418,11 +500,60 @@ impl Stochastic {
         let mut step = step0;
         let mut avg = gamma.clone();
         let mut avg_count = 0.0_f64;
-        let averaging = self.average;
+        let reduced = self.variance_reduction;
+        let averaging = self.average && !reduced;
         let converged = loop {
             let verdict = tracker.observe(epoch, step, &eval)?;
             if verdict.converged || verdict.stop || epoch >= self.max_iterations {
                 break verdict.converged;
+            }
+            shuffle(&mut rng, &mut order);
+            if reduced {
+                // `gamma` is the snapshot and `eval.grad` its full
+                // gradient. Batch step: g_B(x) - g_B(snapshot) + g(snapshot)
+                // = g(snapshot) + H_B (x - snapshot) for this quadratic.
+                let snapshot = gamma.clone();
+                let mut diff = vec![0.0; gamma.len()];
+                let mut first = true;
+                let mut read = false;
+                for batch in order.chunks(b) {
+                    let correction = if first {
+                        // At the snapshot the correction is exactly zero.
+                        None
+                    } else {
+                        for ((d, g), s0) in diff.iter_mut().zip(&gamma).zip(&snapshot) {
+                            *d = g - s0;
+                        }
+                        read = true;
+                        Some(s.objective.hess_rows(&diff, batch))
+                    };
+                    first = false;
+                    match correction {
+                        Some(h) => {
+                            for ((g, d), c) in gamma.iter_mut().zip(&eval.grad).zip(&h) {
+                                *g -= step * (d + c);
+                            }
+                        }
+                        None => {
+                            for (g, d) in gamma.iter_mut().zip(&eval.grad) {
+                                *g -= step * d;
+                            }
+                        }
+                    }
+                    if gamma.iter().any(|g| !g.is_finite()) {
+                        return Err(Error::Diverged {
+                            iteration: epoch + 1,
+                            step,
+                            loss: f64::INFINITY,
+                        });
+                    }
+                }
+                if read {
+                    s.objective.passes += 1;
+                }
+                eval = s.objective.eval(&gamma);
+                epoch += 1;
+                continue;
             }
             step = step0 / (1.0 + self.decay * epoch as f64);
             if epoch.is_power_of_two() {
@@ -430,7 +561,6 @@ impl Stochastic {
                 // of the epochs run, never the early transient.
                 avg_count = 0.0;
             }
-            shuffle(&mut rng, &mut order);
             for batch in order.chunks(b) {
                 let est = s.objective.eval_rows(&gamma, batch);
                 for (g, d) in gamma.iter_mut().zip(&est.grad) {
