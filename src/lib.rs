@@ -105,6 +105,7 @@ pub mod gradient;
 pub mod inference;
 mod linalg;
 pub mod model;
+pub mod observe;
 mod penalty;
 mod prep;
 pub mod problem;
@@ -121,12 +122,13 @@ mod solvers;
 pub use ndarray;
 
 pub use error::{Error, Input, Result};
-pub use gradient::{Accelerated, Control, GradientDescent, Progress, Stochastic};
+pub use gradient::{Accelerated, GradientDescent, Stochastic};
 pub use inference::{
     Collinearity, CovarianceKind, Diagnostics, Estimate, GoodnessOfFit, Inference,
     InferenceOptions, InferenceRefusal, OverallTest, Predictions,
 };
 pub use model::LinearModel;
+pub use observe::{Control, Observer, Progress, Stage, Unobserved};
 pub use problem::{Problem, ProblemBuilder};
 pub use ridge::{
     Criterion, HeldOutError, PenaltyCurve, Ridge, RidgeFactorization, RidgePath, RowFolds,

@@ -2,6 +2,7 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{qr, svd::thin_svd};
+use crate::observe::{Observer, Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::ldexp;
@@ -70,7 +71,8 @@ impl Solver for Svd {
     /// # Errors
     /// [`Error::TooFewRows`]; [`Error::InvalidParameter`] for a bad cutoff;
     /// [`Error::NoConvergence`] if the SVD iteration fails; [`Error::Overflow`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         problem.require_determined()?;
         let cutoff = match self.rank_tolerance {
             Some(t) => check_tolerance("rank_tolerance", t)?,
@@ -80,7 +82,8 @@ impl Solver for Svd {
         // The cutoff applies to singular values only; constant columns are
         // found with the default tolerance, as in every other solver.
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-        let r = qr::tall_skinny_r(problem, &scaling, true);
+        watch.begin(Stage::Factor, problem.rows());
+        let r = qr::tall_skinny_r(problem, &scaling, true, &watch)?;
         // Keep only the informative (non-constant) columns.
         let live: Vec<usize> = (0..p).filter(|&j| !scaling.constant[j]).collect();
         let q = live.len();
@@ -148,6 +151,7 @@ impl Solver for Svd {
             Some(condition),
             scaling.target_scale,
             0.0,
+            &watch,
         )
     }
 }
