@@ -150,6 +150,7 @@ pub struct IterationReport {
 /// Turns slopes computed by a closed-form solver into a [`Fit`]: adds the
 /// intercept, computes the residual sum of squares from the centered
 /// residuals (one pass, watched) and refuses non-finite results.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn finish_closed_form(
     problem: &Problem<'_>,
     solver: &str,

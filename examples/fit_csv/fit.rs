@@ -494,7 +494,7 @@ impl Fitter {
                 result = if solver == SolverName::Ridge {
                     Ridge::new(0.0).fit(&problem)
                 } else {
-                    fit_one(&problem, &settings, &mut |_, _| {})
+                    fit_one(&problem, &settings, &|_, _| {})
                 };
                 let took = started.elapsed().as_secs_f64();
                 seconds = seconds.min(took);

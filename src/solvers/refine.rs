@@ -147,6 +147,7 @@ fn relative_change(theta: &[f64], delta: &[f64], floor: &[f64]) -> f64 {
 /// Everything runs in the scaled units of `scaling` (`x_ij / s_j`,
 /// `y_i / s_y`, exact powers of two; the intercept in units of `s_y`), so
 /// that data near the ends of the `f64` range refine like data near 1.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn refine(
     problem: &Problem<'_>,
     scaling: &Scaling,
