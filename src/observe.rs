@@ -69,8 +69,9 @@ impl fmt::Display for Stage {
 pub struct Progress {
     /// The part of the fit running.
     pub stage: Stage,
-    /// Passes over the design begun so far in this fit (the current one
-    /// included).
+    /// Row passes reported so far in this fit, the current one included
+    /// (the passes inside gradient iterations are reported as iterations
+    /// and not counted here; see [`crate::IterationReport::passes`]).
     pub pass: usize,
     /// Rows of the current pass done.
     pub rows_done: Option<usize>,
@@ -122,7 +123,9 @@ pub enum Control {
 ///
 /// Calls come from rayon's worker threads, one at a time within a fit (the
 /// fit holds a lock around each call, so `rows_done` never goes back within
-/// a pass): keep the method quick. Closures `Fn(&Progress) -> Control +
+/// a pass): keep the method quick, and start no rayon work inside it (a
+/// worker waiting for it could take up another block of the same pass and
+/// wait for the lock it holds). Closures `Fn(&Progress) -> Control +
 /// Sync` are observers; count with atomics:
 ///
 /// ```
