@@ -65,9 +65,9 @@
 //!
 //! Through [`crate::Solver::fit_observed`] (see [`crate::observe`]), an
 //! observer sees the setup passes (column norms, the loss at the start, the
-//! step estimate: [`Stage::Setup`](crate::Stage::Setup)) block by block,
+//! step estimate: [`Stage::Setup`]) block by block,
 //! then a [`Progress`](crate::Progress) of stage
-//! [`Stage::Iteration`](crate::Stage::Iteration) (iteration, loss, relative
+//! [`Stage::Iteration`] (iteration, loss, relative
 //! gradient norm, step) at the start and after every iteration or epoch.
 //! A stop during the setup is [`Error::Stopped`]; once iterating,
 //! [`Control::Stop`] ends the fit at once with the current coefficients
