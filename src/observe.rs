@@ -33,7 +33,8 @@ pub enum Stage {
     /// SVD, and the Cholesky solver's diagnosis of a failed factor), or the
     /// row Gram of a wide design (dual ridge).
     Factor,
-    /// The residual pass that forms the residual sum of squares.
+    /// A residual pass: the residual sum of squares of a fit, or the
+    /// leave-one-out errors of [`crate::RidgePath::curve_observed`].
     Residuals,
     /// A pass of an iterative-refinement step ([`crate::Qr::refined`]);
     /// [`Progress::iteration`] is the step.

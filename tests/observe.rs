@@ -9,8 +9,8 @@ use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
 
 use leastline::{
-    Accelerated, Cholesky, Control, Error, Fit, GradientDescent, Observer, Problem, Progress, Qr,
-    Ridge, RidgeFactorization, RidgePath, Solver, Stage, Stochastic, Svd,
+    Accelerated, Cholesky, Control, Criterion, Error, Fit, GradientDescent, Observer, Problem,
+    Progress, Qr, Ridge, RidgeFactorization, RidgePath, Solver, Stage, Stochastic, Svd,
 };
 use ndarray::{Array1, Array2, ArrayView2, ShapeBuilder};
 use proptest::prelude::*;
@@ -215,6 +215,34 @@ fn the_dual_ridge_and_the_path_report_their_passes() {
                 .fit(0.5)
                 .expect("fit")
         );
+    }
+}
+
+#[test]
+fn the_leave_one_out_curve_reports_its_pass_and_stops() {
+    let (x, y) = tall(30_000, 4, false);
+    let problem = Problem::new(x.view(), y.view()).expect("valid");
+    let path = RidgePath::new(&problem, true).expect("path");
+    let grid = path.default_grid(12).expect("grid");
+    let rec = Recorder::new(never);
+    let watched = path
+        .curve_observed(&grid, Criterion::LeaveOneOut, &rec)
+        .expect("curve");
+    let events = rec.events();
+    let passes = check_passes("curve", &events, problem.rows());
+    assert_eq!(passes.len(), 1);
+    assert!(passes[0] >= 30_000 / 4_096, "{passes:?}");
+    assert!(events.iter().all(|e| e.stage == Stage::Residuals));
+    let plain = path.curve(&grid, Criterion::LeaveOneOut).expect("curve");
+    let loo_bits = |c: &leastline::PenaltyCurve| -> Vec<u64> {
+        c.loo.iter().flatten().map(|v| v.to_bits()).collect()
+    };
+    assert_eq!(loo_bits(&watched), loo_bits(&plain));
+    assert_eq!(watched, plain);
+    let rec = Recorder::new(|_: &Progress, _| true);
+    match path.curve_observed(&grid, Criterion::LeaveOneOut, &rec) {
+        Err(Error::Stopped { stage, .. }) => assert_eq!(stage, Stage::Residuals),
+        other => panic!("expected a stop, got {other:?}"),
     }
 }
 
