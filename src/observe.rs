@@ -31,7 +31,9 @@ pub enum Stage {
     /// Reading the rows into the factorisation: the Gram matrix (Cholesky,
     /// ridge by Cholesky), the triangular factor (QR, SVD, ridge by QR or
     /// SVD, and the Cholesky solver's diagnosis of a failed factor), or the
-    /// row Gram of a wide design (dual ridge).
+    /// passes of the dual ridge on a wide design (column norms, the row
+    /// Gram, `Z^T alpha`), which read every row in each column block and
+    /// so report a pass's rows once, at its end.
     Factor,
     /// A residual pass: the residual sum of squares of a fit, or the
     /// leave-one-out errors of [`crate::RidgePath::curve_observed`].
