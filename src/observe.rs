@@ -32,8 +32,8 @@ pub enum Stage {
     /// ridge by Cholesky), the triangular factor (QR, SVD, ridge by QR or
     /// SVD, and the Cholesky solver's diagnosis of a failed factor), or the
     /// passes of the dual ridge on a wide design (column norms, the row
-    /// Gram, `Z^T alpha`), which read every row in each column block and
-    /// so report a pass's rows once, at its end.
+    /// Gram, `Z^T alpha`; the last two read every row in each column block
+    /// and so report their rows once, at the end of the pass).
     Factor,
     /// A residual pass: the residual sum of squares of a fit, or the
     /// leave-one-out errors of [`crate::RidgePath::curve_observed`].
