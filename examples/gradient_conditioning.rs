@@ -12,7 +12,11 @@
 //!
 //! Run: `cargo run --release --example gradient_conditioning`
 
-use leastline::{Accelerated, Control, GradientDescent, Problem, Progress, Stochastic};
+use std::sync::Mutex;
+
+use leastline::{
+    Accelerated, Control, GradientDescent, Observer, Problem, Progress, Solver, Stochastic,
+};
 use nalgebra::{DMatrix, SymmetricEigen};
 use ndarray::{Array1, Array2};
 use rand::{RngExt, SeedableRng};
@@ -76,19 +80,23 @@ fn standardised_condition(x: &Array2<f64>) -> f64 {
 }
 
 /// Watches a fit and records the first iteration below each threshold.
-fn watch(
-    run: impl FnOnce(&mut dyn FnMut(&Progress) -> Control) -> leastline::Result<leastline::Fit>,
-) -> Watched {
-    let mut first = vec![None; THRESHOLDS.len()];
-    let fit = run(&mut |p| {
-        for (slot, t) in first.iter_mut().zip(THRESHOLDS) {
-            if slot.is_none() && p.gradient_norm <= t {
-                *slot = Some(p.iteration);
+fn watch(run: impl FnOnce(&dyn Observer) -> leastline::Result<leastline::Fit>) -> Watched {
+    // The observer may be called from worker threads: the slots sit behind
+    // a lock (calls come one at a time, so it is never contended).
+    let first = Mutex::new(vec![None; THRESHOLDS.len()]);
+    let fit = run(&|p: &Progress| {
+        if let (Some(k), Some(g)) = (p.iteration, p.gradient_norm) {
+            let mut first = first.lock().expect("observer ran");
+            for (slot, t) in first.iter_mut().zip(THRESHOLDS) {
+                if slot.is_none() && g <= t {
+                    *slot = Some(k);
+                }
             }
         }
         Control::Continue
     })
     .expect("fit");
+    let first = first.into_inner().expect("observer ran");
     let report = fit.report.iterations.expect("iterative report");
     Watched {
         first,

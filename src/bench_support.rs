@@ -33,7 +33,10 @@ pub fn qr_flops(rows: usize, k: usize) -> f64 {
 /// be optimised away.
 pub fn gram_floor(problem: &Problem<'_>) -> f64 {
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-    let g = crate::linalg::gram::centered_gram(problem, &scaling, true);
+    let quiet = crate::observe::Watch::quiet();
+    let Ok(g) = crate::linalg::gram::centered_gram(problem, &scaling, true, &quiet) else {
+        return f64::NAN;
+    };
     (0..g.nrows()).map(|i| g[(i, i)]).sum()
 }
 
@@ -48,7 +51,10 @@ pub fn stream_floor(problem: &Problem<'_>) -> f64 {
 /// norm in scaled units.
 pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
-    let r = crate::linalg::qr::tall_skinny_r(problem, &scaling, true);
+    let quiet = crate::observe::Watch::quiet();
+    let Ok(r) = crate::linalg::qr::tall_skinny_r(problem, &scaling, true, &quiet) else {
+        return f64::NAN;
+    };
     let p = problem.columns();
     r[(p, p)].abs()
 }
@@ -56,7 +62,8 @@ pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
 /// The residual sum of squares pass of every closed-form fit, for slopes
 /// `beta` (caller's units).
 pub fn residual_pass(problem: &Problem<'_>, beta: &[f64]) -> f64 {
-    crate::linalg::residuals::centered_rss(problem, beta, 1.0)
+    let quiet = crate::observe::Watch::quiet();
+    crate::linalg::residuals::centered_rss(problem, beta, 1.0, &quiet).unwrap_or(f64::NAN)
 }
 
 /// Fills every transformed row block once (as the Gram pass does) without

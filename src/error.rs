@@ -346,6 +346,18 @@ pub enum Error {
         /// What is wrong with it.
         reason: &'static str,
     },
+    /// The observer asked a fit to stop before it had an answer (a
+    /// closed-form fit, or a gradient fit still in its setup passes).
+    #[error("stopped by the observer during the {stage} stage after {rows_done} of {rows_total} rows of the pass")]
+    Stopped {
+        /// The stage running when the observer asked to stop.
+        stage: crate::observe::Stage,
+        /// Rows of that stage's pass done when it asked (0 for an
+        /// iteration).
+        rows_done: usize,
+        /// Rows of the pass (0 for an iteration).
+        rows_total: usize,
+    },
 }
 
 impl Error {

@@ -89,7 +89,47 @@
 //! | [`Svd`] | rank-deficient or wide designs; minimum-norm solution and numerical rank | QR plus O(p³); wide: an n x p copy and its SVD | keeps cond(X) |
 //! | [`Qr::refined()`] | every digit the data allow | 2–7 × QR | refinement with double-double residuals |
 //! | [`Ridge`] | collinear predictors, prediction, wide designs | by shape: Cholesky, augmented QR, SVD path, dual | penalty chosen by [`RidgePath`] |
-//! | [`GradientDescent`], [`Accelerated`], [`Stochastic`] | huge p, warm starts, cancellable fits | one read of X per iteration | iterative; honest convergence report |
+//! | [`GradientDescent`], [`Accelerated`], [`Stochastic`] | huge p, warm starts | one read of X per iteration | iterative; honest convergence report |
+//!
+//! ## Watching and stopping a fit
+//!
+//! Every solver takes an [`Observer`] through
+//! [`Solver::fit_observed`]: a closure `Fn(&Progress) -> Control + Sync`
+//! called after every block of rows of every pass over the design (at
+//! most 4,096 rows, from the worker thread that finished it) and after
+//! every iteration of the gradient solvers. A [`Progress`] names the
+//! [`Stage`] and the rows of the current pass done; [`Control::Stop`] ends
+//! the fit within about one block per thread. A stopped closed-form fit is
+//! [`Error::Stopped`]; a gradient fit stopped while iterating keeps its
+//! current coefficients. Observing never changes a result.
+//!
+//! ```
+//! use std::sync::atomic::{AtomicUsize, Ordering};
+//! use leastline::{Control, Error, Problem, Progress, Qr, Solver, Stage};
+//! use ndarray::Array2;
+//!
+//! // A week of readings from a greenhouse's soil probes.
+//! let x = Array2::from_shape_fn((50_000, 3), |(i, j)| ((i * (2 * j + 3)) % 101) as f64);
+//! let y = x.column(0).mapv(|a| 0.2 * a) + x.column(2).mapv(|c| 0.7 * c - 1.0);
+//! let problem = Problem::new(x.view(), y.view())?;
+//!
+//! // Print the progress of each pass; give up after five blocks.
+//! let blocks = AtomicUsize::new(0);
+//! let bar = |p: &Progress| {
+//!     if let (Some(done), Some(total)) = (p.rows_done, p.rows_total) {
+//!         eprintln!("{} (pass {}): {:3.0}%", p.stage, p.pass, 100.0 * done as f64 / total as f64);
+//!     }
+//!     if blocks.fetch_add(1, Ordering::Relaxed) + 1 >= 5 { Control::Stop } else { Control::Continue }
+//! };
+//! match Qr::new().fit_observed(&problem, &bar) {
+//!     Err(Error::Stopped { stage, rows_done, rows_total }) => {
+//!         assert_eq!(stage, Stage::Factor);
+//!         assert!(rows_done < rows_total);
+//!     }
+//!     other => panic!("expected a stop, got {other:?}"),
+//! }
+//! # Ok::<(), leastline::Error>(())
+//! ```
 //!
 //! ## The loss
 //!
@@ -231,6 +271,7 @@ pub mod gradient;
 pub mod inference;
 mod linalg;
 pub mod model;
+pub mod observe;
 mod penalty;
 mod prep;
 pub mod problem;
@@ -248,12 +289,13 @@ pub mod state;
 pub use ndarray;
 
 pub use error::{Error, Input, Result};
-pub use gradient::{Accelerated, Control, GradientDescent, Progress, Stochastic};
+pub use gradient::{Accelerated, GradientDescent, Stochastic};
 pub use inference::{
     Collinearity, CovarianceKind, Diagnostics, Estimate, GoodnessOfFit, Inference,
     InferenceOptions, InferenceRefusal, OverallTest, Predictions,
 };
 pub use model::LinearModel;
+pub use observe::{Control, Observer, Progress, Stage, Unobserved};
 pub use problem::{Problem, ProblemBuilder};
 pub use ridge::{
     Criterion, HeldOutError, PenaltyCurve, Ridge, RidgeFactorization, RidgePath, RowFolds,

@@ -6,6 +6,7 @@ use ndarray::{Array1, ArrayView2};
 
 use crate::error::{Error, Result};
 use crate::model::LinearModel;
+use crate::observe::{Observer, Stage, Unobserved, Watch};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp, pow2_scale};
 
@@ -29,16 +30,34 @@ use crate::scaled::{exponent, ldexp, pow2_scale};
 /// }
 /// # Ok::<(), leastline::Error>(())
 /// ```
+///
+/// Every solver can be watched and stopped through
+/// [`fit_observed`](Solver::fit_observed) (see [`crate::observe`]).
 pub trait Solver: Send + Sync + Debug {
     /// A short name for reports ("qr", "cholesky", "svd", ...).
     fn name(&self) -> &str;
+
+    /// Fits the model, calling `observer` after every block of rows of
+    /// every pass over the design (and after every iteration of the
+    /// gradient solvers). Observing does not change the result: it is
+    /// bit for bit the one [`fit`](Solver::fit) returns.
+    ///
+    /// # Errors
+    /// As [`fit`](Solver::fit), and [`Error::Stopped`] when the observer
+    /// stops a fit that has no answer yet (a closed form, or a gradient
+    /// solver in its setup passes); a gradient solver stopped while
+    /// iterating returns its current coefficients instead, with
+    /// `stopped_by_observer` in the report.
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit>;
 
     /// Fits the model.
     ///
     /// # Errors
     /// Each solver documents its own; every one returns a typed [`Error`]
     /// rather than a model with non-finite coefficients.
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit>;
+    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+        self.fit_observed(problem, &Unobserved)
+    }
 }
 
 /// A fitted model and the report of how the fit went.
@@ -334,7 +353,8 @@ pub struct IterationReport {
 
 /// Turns slopes computed by a closed-form solver into a [`Fit`]: adds the
 /// intercept, computes the residual sum of squares from the centered
-/// residuals and refuses non-finite results.
+/// residuals (one pass, watched) and refuses non-finite results.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn finish_closed_form(
     problem: &Problem<'_>,
     solver: &str,
@@ -343,6 +363,7 @@ pub(crate) fn finish_closed_form(
     condition: Option<f64>,
     target_scale: f64,
     penalty: f64,
+    watch: &Watch<'_>,
 ) -> Result<Fit> {
     // Refuse before spending a pass over the design.
     if beta.iter().any(|b| !b.is_finite()) {
@@ -350,7 +371,8 @@ pub(crate) fn finish_closed_form(
             what: "coefficient vector",
         });
     }
-    let scaled = crate::linalg::residuals::centered_rss(problem, &beta, target_scale);
+    watch.begin(Stage::Residuals, problem.rows());
+    let scaled = crate::linalg::residuals::centered_rss(problem, &beta, target_scale, watch)?;
     let parts = (scaled, rss_exponent(problem, exponent(target_scale)));
     let rss = caller_rss(problem, exponent(target_scale), scaled)?;
     finish_parts(

@@ -48,15 +48,18 @@ fn every_route_reports_the_same_loss() {
         // least-squares minimum (beyond rounding).
         assert!(*l >= direct * (1.0 - 1e-12), "{l} vs {direct}");
     }
-    let mut last_seen = f64::NAN;
+    let last_seen = std::sync::Mutex::new(f64::NAN);
     let gd = GradientDescent::new()
         .with_tolerance(1e-13)
         .with_max_iterations(100_000)
-        .fit_observed(&problem, &mut |progress| {
-            last_seen = progress.loss;
+        .fit_observed(&problem, &|progress: &leastline::Progress| {
+            if let Some(loss) = progress.loss {
+                *last_seen.lock().unwrap() = loss;
+            }
             Control::Continue
         })
         .unwrap();
+    let last_seen = *last_seen.lock().unwrap();
     let it = gd.report.iterations.as_ref().unwrap();
     assert!(it.converged);
     let gd_direct = gd.model.mean_squared_error(x.view(), y.view()).unwrap();

@@ -15,10 +15,10 @@
 //! - `Problem::builder(x, y).with_weights(w).with_intercept(b).build()`, and
 //!   `Problem::{design, target, weights, rows, usable_rows}`;
 //! - `Solver::fit` of `Qr::new()`, `Qr::refined()`, `Cholesky`, `Svd`,
-//!   `Ridge::new(penalty).with_standardize(standardize)`; `fit_observed` of
+//!   `Ridge::new(penalty).with_standardize(standardize)`; `Solver::fit_observed` of
 //!   `GradientDescent`, `Accelerated`, `Stochastic` (fields `tolerance`,
 //!   `max_iterations`/`epochs`, `penalty`, `seed`; `Progress::iteration`,
-//!   `Control::Continue`);
+//!   `Control::Continue`; the observer is a `Fn + Sync` closure);
 //! - `RidgePath::{new, default_grid, curve, fit}` with `ridge::Criterion`,
 //!   and the `PenaltyCurve` fields;
 //! - `Inference::{with_options, with_names, diagnostics, predict}`,
@@ -131,8 +131,9 @@ pub struct Fitter {
     lines: Vec<u64>,
 }
 
-/// How an iterative fit is going: `(iteration, iteration limit)`.
-pub type Observer<'o> = &'o mut dyn FnMut(usize, usize);
+/// How an iterative fit is going: `(iteration, iteration limit)`. Called
+/// from the library's worker threads, hence `Sync`.
+pub type Observer<'o> = &'o (dyn Fn(usize, usize) + Sync);
 
 /// Iterations of an iterative fit.
 #[derive(Debug, Clone, PartialEq)]
@@ -493,7 +494,7 @@ impl Fitter {
                 result = if solver == SolverName::Ridge {
                     Ridge::new(0.0).fit(&problem)
                 } else {
-                    fit_one(&problem, &settings, &mut |_, _| {})
+                    fit_one(&problem, &settings, &|_, _| {})
                 };
                 let took = started.elapsed().as_secs_f64();
                 seconds = seconds.min(took);
@@ -592,9 +593,13 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
         Some(PenaltyArg::Fixed(v)) => v,
         _ => 0.0,
     };
+    // Only the iterations move the bar; the closed forms' row blocks and
+    // the gradient solvers' setup passes carry no iteration number.
     let watch = |limit: usize| {
         move |p: &leastline::Progress| {
-            observer(p.iteration, limit);
+            if let Some(iteration) = p.iteration {
+                observer(iteration, limit);
+            }
             Control::Continue
         }
     };
@@ -614,7 +619,7 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
             if let Some(m) = s.max_iterations {
                 g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.max_iterations()))
+            g.fit_observed(problem, &watch(g.max_iterations()))
         }
         SolverName::Accelerated => {
             let mut g = Accelerated::new().with_penalty(penalty);
@@ -624,7 +629,7 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
             if let Some(m) = s.max_iterations {
                 g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.max_iterations()))
+            g.fit_observed(problem, &watch(g.max_iterations()))
         }
         SolverName::Stochastic => {
             let mut g = Stochastic::new().with_penalty(penalty).with_seed(s.seed);
@@ -634,7 +639,7 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
             if let Some(m) = s.max_iterations {
                 g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &mut watch(g.max_iterations()))
+            g.fit_observed(problem, &watch(g.max_iterations()))
         }
     }
 }

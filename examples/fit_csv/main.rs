@@ -172,11 +172,13 @@ fn run(args: &Args) -> Result<(), Failure> {
         return print(&text);
     }
 
-    let mut iteration_bar: Option<Bar> = None;
+    // The observer runs on the library's worker threads: the bar is made
+    // once, on the first iteration, behind a `OnceLock`.
+    let iteration_bar: std::sync::OnceLock<Bar> = std::sync::OnceLock::new();
     let flag = args.solver.flag();
-    let fitted = fitter.finish(&names, &mut |iteration, limit| {
+    let fitted = fitter.finish(&names, &|iteration, limit| {
         iteration_bar
-            .get_or_insert_with(|| bars.iterations(limit as u64, flag))
+            .get_or_init(|| bars.iterations(limit as u64, flag))
             .set(iteration as u64);
     })?;
     drop(iteration_bar);

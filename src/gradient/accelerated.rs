@@ -1,8 +1,9 @@
 //! Accelerated gradient descent with adaptive restart.
 
-use super::{finish, keep_going, setup, Common, Control, Outcome, Progress, Tracker};
+use super::{finish, setup, Common, Outcome, Tracker};
 use crate::error::Result;
 use crate::model::LinearModel;
+use crate::observe::{Observer, Watch};
 use crate::problem::Problem;
 use crate::solver::{Fit, Solver};
 
@@ -200,23 +201,26 @@ impl Accelerated {
             fail_if_not_converged: self.fail_if_not_converged,
         }
     }
+}
+
+impl Solver for Accelerated {
+    fn name(&self) -> &str {
+        "accelerated"
+    }
 
     /// Fits the model, calling `observer` at the start and after every
-    /// accepted iteration; [`Control::Stop`] ends the fit at the current
-    /// coefficients (see [`crate::GradientDescent::fit_observed`]).
+    /// accepted iteration; [`crate::Control::Stop`] ends the fit at the current
+    /// coefficients (see [`crate::GradientDescent`]'s `fit_observed`).
     ///
     /// # Errors
-    /// As [`crate::GradientDescent::fit_observed`].
-    pub fn fit_observed(
-        &self,
-        problem: &Problem<'_>,
-        observer: &mut dyn FnMut(&Progress) -> Control,
-    ) -> Result<Fit> {
+    /// As [`crate::GradientDescent`]'s `fit_observed`.
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         let common = self.common();
-        let mut s = setup(problem, &common)?;
-        let step = s.full_batch_step(self.step);
+        let mut s = setup(problem, &common, &watch)?;
+        let step = s.full_batch_step(self.step)?;
         let mut tracker = Tracker::new(
-            observer,
+            &watch,
             &common,
             &s.objective,
             s.grad_zero,
@@ -288,19 +292,5 @@ impl Accelerated {
                 restarts,
             },
         )
-    }
-}
-
-impl Solver for Accelerated {
-    fn name(&self) -> &str {
-        "accelerated"
-    }
-
-    /// Fits without an observer; see [`Accelerated::fit_observed`].
-    ///
-    /// # Errors
-    /// As [`crate::GradientDescent::fit_observed`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
-        self.fit_observed(problem, &mut keep_going)
     }
 }

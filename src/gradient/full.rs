@@ -1,8 +1,9 @@
 //! Full-batch gradient descent.
 
-use super::{finish, keep_going, setup, Common, Control, Outcome, Progress, Tracker};
+use super::{finish, setup, Common, Outcome, Tracker};
 use crate::error::Result;
 use crate::model::LinearModel;
+use crate::observe::{Observer, Watch};
 use crate::problem::Problem;
 use crate::solver::{Fit, Solver};
 
@@ -210,27 +211,38 @@ impl GradientDescent {
             fail_if_not_converged: self.fail_if_not_converged,
         }
     }
+}
 
-    /// Fits the model, calling `observer` at the start and after every
-    /// iteration with the iteration number, loss and relative gradient
-    /// norm; the fit ends at once, with the current coefficients, when the
-    /// observer returns [`Control::Stop`].
+impl Solver for GradientDescent {
+    fn name(&self) -> &str {
+        "gradient-descent"
+    }
+
+    /// Fits the model, calling `observer` after every block of the setup
+    /// passes, then at the start and after every iteration with the
+    /// iteration number, loss and relative gradient norm; the fit ends at
+    /// once, with the current coefficients, when the observer returns
+    /// [`crate::Control::Stop`] while iterating (with
+    /// [`crate::Error::Stopped`] during the setup).
     ///
     /// ```
-    /// use leastline::{Control, GradientDescent, Problem};
+    /// use std::sync::Mutex;
+    /// use leastline::{Control, GradientDescent, Problem, Progress, Solver};
     /// use ndarray::array;
     ///
     /// let x = array![[1.0, 0.3], [2.0, 0.1], [3.0, 0.8], [4.0, 0.4], [5.0, 0.9]];
     /// let y = array![3.2, 4.1, 7.9, 8.2, 11.5];
     /// let problem = Problem::new(x.view(), y.view())?;
-    /// let mut losses = Vec::new();
-    /// let fit = GradientDescent::new().fit_observed(&problem, &mut |p| {
-    ///     losses.push(p.loss);
-    ///     if p.iteration == 3 { Control::Stop } else { Control::Continue }
+    /// let losses = Mutex::new(Vec::new());
+    /// let fit = GradientDescent::new().fit_observed(&problem, &|p: &Progress| {
+    ///     if let Some(loss) = p.loss {
+    ///         losses.lock().expect("no observer panicked").push(loss);
+    ///     }
+    ///     if p.iteration == Some(3) { Control::Stop } else { Control::Continue }
     /// })?;
     /// let report = fit.report.iterations.as_ref().expect("iterative solver");
     /// assert!(report.stopped_by_observer && report.iterations == 3);
-    /// assert_eq!(losses.len(), 4);
+    /// assert_eq!(losses.lock().expect("no observer panicked").len(), 4);
     /// # Ok::<(), leastline::Error>(())
     /// ```
     ///
@@ -244,17 +256,15 @@ impl GradientDescent {
     /// when `fail_if_not_converged`; [`crate::Error::TooFewRows`] without a
     /// penalty and with fewer usable rows than parameters;
     /// [`crate::Error::Overflow`] for a coefficient, the residual sum of
-    /// squares or a loss beyond the range of `f64`.
-    pub fn fit_observed(
-        &self,
-        problem: &Problem<'_>,
-        observer: &mut dyn FnMut(&Progress) -> Control,
-    ) -> Result<Fit> {
+    /// squares or a loss beyond the range of `f64`; [`crate::Error::Stopped`]
+    /// when the observer stops a setup pass.
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         let common = self.common();
-        let mut s = setup(problem, &common)?;
-        let step = s.full_batch_step(self.step);
+        let mut s = setup(problem, &common, &watch)?;
+        let step = s.full_batch_step(self.step)?;
         let mut tracker = Tracker::new(
-            observer,
+            &watch,
             &common,
             &s.objective,
             s.grad_zero,
@@ -289,19 +299,5 @@ impl GradientDescent {
                 restarts: 0,
             },
         )
-    }
-}
-
-impl Solver for GradientDescent {
-    fn name(&self) -> &str {
-        "gradient-descent"
-    }
-
-    /// Fits without an observer; see [`GradientDescent::fit_observed`].
-    ///
-    /// # Errors
-    /// As [`GradientDescent::fit_observed`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
-        self.fit_observed(problem, &mut keep_going)
     }
 }

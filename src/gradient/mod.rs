@@ -44,7 +44,7 @@
 //!
 //! ## Losses reported
 //!
-//! Every loss in a report, an observer's [`Progress`] or an error is the
+//! Every loss in a report, an observer's [`Progress`](crate::Progress) or an error is the
 //! crate's one loss (see [the crate docs](crate#the-loss)), in the
 //! caller's units: the weighted mean squared residual
 //! `sum_i w_i (y_i - y_hat_i)^2 / sum_i w_i`, plus `lambda ||b||^2 /
@@ -65,15 +65,20 @@
 //!
 //! ## Progress and cancellation
 //!
-//! Each solver has `fit_observed`, which calls an observer with a
-//! [`Progress`] (iteration, loss, relative gradient norm, step) at the start
-//! and after every iteration or epoch; returning [`Control::Stop`] ends the
-//! fit at once with the current coefficients. A program can show progress
-//! and cancel from another thread:
+//! Through [`crate::Solver::fit_observed`] (see [`crate::observe`]), an
+//! observer sees the setup passes (column norms, the loss at the start, the
+//! step estimate: [`Stage::Setup`]) block by block,
+//! then a [`Progress`](crate::Progress) of stage
+//! [`Stage::Iteration`] (iteration, loss, relative
+//! gradient norm, step) at the start and after every iteration or epoch.
+//! A stop during the setup is [`Error::Stopped`]; once iterating,
+//! [`Control::Stop`] ends the fit at once with the current coefficients
+//! (`stopped_by_observer`). A program can show progress and cancel from
+//! another thread:
 //!
 //! ```
 //! use std::sync::atomic::{AtomicBool, Ordering};
-//! use leastline::{Accelerated, Control, Problem};
+//! use leastline::{Accelerated, Control, Problem, Progress, Solver};
 //! use ndarray::Array2;
 //!
 //! // Hourly demand of a bakery's oven against three readings.
@@ -81,12 +86,15 @@
 //! let y = x.column(0).mapv(|a| 2.0 * a) + x.column(2).mapv(|c| 0.5 * c + 1.0);
 //! let problem = Problem::new(x.view(), y.view())?;
 //! let cancel = AtomicBool::new(false); // set by a user interface, say
-//! let fit = Accelerated::new().fit_observed(&problem, &mut |p| {
-//!     if p.iteration % 100 == 0 {
-//!         eprintln!("{}: loss {:.3e}, gradient {:.1e}", p.iteration, p.loss, p.gradient_norm);
+//! let watch = |p: &Progress| {
+//!     if let (Some(k), Some(loss), Some(g)) = (p.iteration, p.loss, p.gradient_norm) {
+//!         if k % 100 == 0 {
+//!             eprintln!("{k}: loss {loss:.3e}, gradient {g:.1e}");
+//!         }
 //!     }
 //!     if cancel.load(Ordering::Relaxed) { Control::Stop } else { Control::Continue }
-//! })?;
+//! };
+//! let fit = Accelerated::new().fit_observed(&problem, &watch)?;
 //! let report = fit.report.iterations.as_ref().expect("iterative solvers report iterations");
 //! assert!(report.converged && !report.stopped_by_observer);
 //! # Ok::<(), leastline::Error>(())
@@ -106,42 +114,10 @@ use rand_chacha::ChaCha8Rng;
 use crate::error::{Error, Input, Result};
 use crate::linalg::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
 use crate::model::LinearModel;
+use crate::observe::{Control, Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
-
-/// What an observer sees after each iteration (full-batch solvers) or epoch
-/// ([`Stochastic`]).
-///
-/// Iteration 0 is the starting point; iteration `k` is the point after `k`
-/// updates. The loss is in the caller's units (see the module docs) and the
-/// gradient norm is relative, as in the stopping test. The loss is `+inf`
-/// when its value in the caller's units exceeds the range of `f64` (targets
-/// near `1e300`); such a fit then ends with [`Error::Overflow`], since its
-/// report could not hold the loss.
-#[derive(Debug, Clone, Copy, PartialEq)]
-#[non_exhaustive]
-pub struct Progress {
-    /// Updates made so far (epochs for [`Stochastic`]).
-    pub iteration: usize,
-    /// The crate's loss at the current coefficients (the weighted mean
-    /// squared residual, plus the penalty term: see
-    /// [the crate docs](crate#the-loss)).
-    pub loss: f64,
-    /// Relative gradient norm at the current coefficients.
-    pub gradient_norm: f64,
-    /// Step size of the last update (the start step at iteration 0).
-    pub step: f64,
-}
-
-/// An observer's answer: go on, or end the fit at the current coefficients.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum Control {
-    /// Carry on.
-    Continue,
-    /// End the fit now; the report says `stopped_by_observer`.
-    Stop,
-}
 
 /// Columns whose power-of-two scale lies beyond `2^±480` are scaled inside
 /// the passes (see [`Objective`]).
@@ -238,19 +214,24 @@ pub(crate) struct Objective<'p, 'a> {
     /// Full passes over the design so far.
     pub passes: usize,
     coef: Vec<f64>,
+    /// Reports the setup passes block by block; `None` once iterating
+    /// (iterations are reported whole, by the [`Tracker`]).
+    watch: Option<&'p Watch<'p>>,
 }
 
 impl<'p, 'a> Objective<'p, 'a> {
     /// Sets up the coordinates: one pass over the design for the column
-    /// norms.
-    pub fn new(problem: &'p Problem<'a>, penalty: f64) -> Self {
+    /// norms (reported to `watch` as a setup pass; the caller checks for a
+    /// stop).
+    pub fn new(problem: &'p Problem<'a>, penalty: f64, watch: &'p Watch<'p>) -> Self {
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         let p = problem.columns();
         let weight = problem.stats.total_weight;
         let ws = problem.stats.weight_scale;
         // Squared norms of the columns after the exact power-of-two scaling
         // (no overflow: every scaled value is at most 2 in magnitude).
-        let norms = column_norms(problem, &scaling.inv_scale);
+        watch.begin(Stage::Setup, problem.rows());
+        let norms = column_norms(problem, &scaling.inv_scale, Some(watch));
         // Columns near the ends of the range: (x - m) k would leave the
         // range of f64 (or lose digits to underflow), so the passes scale
         // (x - m) by 1 / s_j first.
@@ -299,7 +280,35 @@ impl<'p, 'a> Objective<'p, 'a> {
             loss_exp: 2 * scaling.target_exp,
             passes: 1,
             coef: vec![0.0; p],
+            watch: Some(watch),
         }
+    }
+
+    /// Ends the setup: the passes from here on are not reported block by
+    /// block.
+    pub fn end_setup(&mut self) {
+        self.watch = None;
+    }
+
+    /// Begins a pass, reported when still in the setup.
+    fn begin_pass(&self) -> Option<&'p Watch<'p>> {
+        if let Some(w) = self.watch {
+            w.begin(Stage::Setup, self.problem.rows());
+        }
+        self.watch
+    }
+
+    /// [`crate::Error::Stopped`] when the observer stopped the setup.
+    pub fn check(&self) -> Result<()> {
+        match self.watch {
+            Some(w) => w.check(),
+            None => Ok(()),
+        }
+    }
+
+    /// Whether the observer stopped the setup.
+    fn stopped(&self) -> bool {
+        self.watch.is_some_and(|w| w.stopped())
     }
 
     pub fn dim(&self) -> usize {
@@ -345,11 +354,13 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// Loss and gradient at `g` (one full pass).
     pub fn eval(&mut self, g: &[f64]) -> Eval {
         self.set_coef(g);
+        let watch = self.begin_pass();
         let pass = residual_pass(
             self.problem,
             &self.coef,
             self.pre.as_deref(),
             1.0 / self.target_scale,
+            watch,
         );
         self.passes += 1;
         self.assemble(g, pass, 1.0)
@@ -386,7 +397,8 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// `H v` with `H` the Hessian of `f` (one full pass).
     fn hess_vec(&mut self, v: &[f64]) -> Vec<f64> {
         self.set_coef(v);
-        let pass = residual_pass(self.problem, &self.coef, self.pre.as_deref(), 0.0);
+        let watch = self.begin_pass();
+        let pass = residual_pass(self.problem, &self.coef, self.pre.as_deref(), 0.0, watch);
         self.passes += 1;
         let inv_w = 1.0 / self.weight;
         (0..self.dim())
@@ -418,6 +430,9 @@ impl<'p, 'a> Objective<'p, 'a> {
         let mut est = 0.0;
         for k in 0..POWER_MAX {
             let hv = self.hess_vec(&v);
+            if self.stopped() {
+                return est;
+            }
             norm = norm2(&hv);
             if norm == 0.0 || !norm.is_finite() {
                 return norm;
@@ -436,7 +451,8 @@ impl<'p, 'a> Objective<'p, 'a> {
     /// ||z_i||^2` plus the penalty's share (one full pass).
     pub fn row_lipschitz(&mut self) -> f64 {
         self.passes += 1;
-        let rows = max_row_norm(self.problem, &self.k, self.pre.as_deref());
+        let watch = self.begin_pass();
+        let rows = max_row_norm(self.problem, &self.k, self.pre.as_deref(), watch);
         let mu_max = self.mu.iter().fold(0.0_f64, |a, &b| a.max(b));
         (self.problem.usable_rows() as f64 * rows + mu_max) / self.weight
     }
@@ -504,7 +520,7 @@ pub(crate) struct Verdict {
 /// Records the history, calls the observer and applies the stopping and
 /// divergence tests.
 pub(crate) struct Tracker<'o> {
-    observer: &'o mut dyn FnMut(&Progress) -> Control,
+    watch: &'o Watch<'o>,
     tolerance: f64,
     stride: usize,
     /// Norm dividing the gradient norm.
@@ -522,7 +538,7 @@ impl<'o> Tracker<'o> {
     /// `f_zero` and `grad_zero` describe the objective at all-zero slopes,
     /// `f_start` the starting point.
     pub fn new(
-        observer: &'o mut dyn FnMut(&Progress) -> Control,
+        watch: &'o Watch<'o>,
         common: &Common<'_>,
         objective: &Objective<'_, '_>,
         grad_zero: f64,
@@ -531,7 +547,7 @@ impl<'o> Tracker<'o> {
     ) -> Self {
         let reference = f_zero.max(f_start).max(f64::MIN_POSITIVE);
         Tracker {
-            observer,
+            watch,
             tolerance: common.tolerance,
             stride: common.history_stride,
             denominator: if grad_zero > 0.0 && grad_zero.is_finite() {
@@ -578,12 +594,7 @@ impl<'o> Tracker<'o> {
             self.last_recorded = Some(iteration);
         }
         self.last = Some((iteration, loss, rel));
-        let control = (self.observer)(&Progress {
-            iteration,
-            loss,
-            gradient_norm: rel,
-            step,
-        });
+        let control = self.watch.iteration(iteration, loss, rel, step);
         let stop = control == Control::Stop;
         self.stopped |= stop;
         Ok(Verdict {
@@ -700,21 +711,37 @@ pub(crate) struct Setup<'p, 'a> {
 impl Setup<'_, '_> {
     /// The full-batch step: the caller's fixed step, else `1 / L` with `L`
     /// from power iteration (1 when `L` is not a positive finite number).
-    pub(crate) fn full_batch_step(&mut self, fixed: Option<f64>) -> f64 {
-        fixed.unwrap_or_else(|| {
-            let l = self.objective.lipschitz();
-            if l > 0.0 && l.is_finite() {
-                1.0 / l
-            } else {
-                1.0
+    /// Ends the setup.
+    ///
+    /// # Errors
+    /// [`Error::Stopped`] when the observer stopped the power iteration.
+    pub(crate) fn full_batch_step(&mut self, fixed: Option<f64>) -> Result<f64> {
+        let step = match fixed {
+            Some(step) => step,
+            None => {
+                let l = self.objective.lipschitz();
+                self.objective.check()?;
+                if l > 0.0 && l.is_finite() {
+                    1.0 / l
+                } else {
+                    1.0
+                }
             }
-        })
+        };
+        self.objective.end_setup();
+        Ok(step)
     }
 }
 
+/// The setup passes, reported to `watch` block by block.
+///
+/// # Errors
+/// [`Error::Stopped`] when the observer stops a setup pass, besides the
+/// settings' and the problem's errors.
 pub(crate) fn setup<'p, 'a>(
     problem: &'p Problem<'a>,
     common: &Common<'_>,
+    watch: &'p Watch<'p>,
 ) -> Result<Setup<'p, 'a>> {
     common.check()?;
     if common.penalty == 0.0 {
@@ -722,13 +749,16 @@ pub(crate) fn setup<'p, 'a>(
         // parameters, or the minimiser is not unique.
         problem.require_determined()?;
     }
-    let mut objective = Objective::new(problem, common.penalty);
+    let mut objective = Objective::new(problem, common.penalty, watch);
+    objective.check()?;
     let gamma = objective.start(common.start)?;
     let eval = objective.eval(&gamma);
+    objective.check()?;
     let (grad_zero, f_zero) = if gamma.iter().all(|&g| g == 0.0) {
         (norm2(&eval.grad), eval.f)
     } else {
         let zero = objective.eval(&vec![0.0; gamma.len()]);
+        objective.check()?;
         (norm2(&zero.grad), zero.f)
     };
     Ok(Setup {
@@ -738,9 +768,4 @@ pub(crate) fn setup<'p, 'a>(
         grad_zero,
         f_zero,
     })
-}
-
-/// A no-op observer for [`crate::Solver::fit`].
-pub(crate) fn keep_going(_: &Progress) -> Control {
-    Control::Continue
 }

@@ -3,9 +3,10 @@
 use rand_chacha::rand_core::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
-use super::{finish, keep_going, setup, Common, Control, Outcome, Progress, Tracker};
+use super::{finish, setup, Common, Outcome, Tracker};
 use crate::error::{Error, Result};
 use crate::model::LinearModel;
+use crate::observe::{Observer, Watch};
 use crate::problem::Problem;
 use crate::solver::{Fit, Solver};
 
@@ -423,24 +424,27 @@ impl Stochastic {
             fail_if_not_converged: self.fail_if_not_converged,
         }
     }
+}
+
+impl Solver for Stochastic {
+    fn name(&self) -> &str {
+        "stochastic"
+    }
 
     /// Fits the model, calling `observer` at the start and after every
     /// epoch (with the full-data loss and relative gradient norm);
-    /// [`Control::Stop`] ends the fit at the current coefficients.
+    /// [`crate::Control::Stop`] ends the fit at the current coefficients.
     ///
     /// # Errors
-    /// As [`crate::GradientDescent::fit_observed`], plus
+    /// As [`crate::GradientDescent`]'s `fit_observed`, plus
     /// [`Error::InvalidParameter`] for `batch_size` 0 or a negative or
     /// non-finite `decay`. A non-finite coefficient inside an epoch is
     /// reported at once as [`Error::Diverged`] with that epoch's number
     /// (counting from 1) and step, and with the batch's loss estimate for
-    /// plain steps or an infinite loss with variance reduction (whose
-    /// batches form no loss).
-    pub fn fit_observed(
-        &self,
-        problem: &Problem<'_>,
-        observer: &mut dyn FnMut(&Progress) -> Control,
-    ) -> Result<Fit> {
+    /// plain steps or no loss with variance reduction (whose batches form
+    /// no loss).
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         if self.batch_size == 0 {
             return Err(Error::InvalidParameter {
                 name: "batch_size",
@@ -456,7 +460,7 @@ impl Stochastic {
             });
         }
         let common = self.common();
-        let mut s = setup(problem, &common)?;
+        let mut s = setup(problem, &common, &watch)?;
         let rows: Vec<usize> = (0..problem.rows())
             .filter(|&i| problem.scaled_weight(i) > 0.0)
             .collect();
@@ -466,7 +470,9 @@ impl Stochastic {
             Some(step) => step,
             None => {
                 let l = s.objective.lipschitz();
+                s.objective.check()?;
                 let l_max = s.objective.row_lipschitz();
+                s.objective.check()?;
                 let lb = if b >= n || n < 2 {
                     l
                 } else {
@@ -484,8 +490,9 @@ impl Stochastic {
                 }
             }
         };
+        s.objective.end_setup();
         let mut tracker = Tracker::new(
-            observer,
+            &watch,
             &common,
             &s.objective,
             s.grad_zero,
@@ -600,19 +607,5 @@ impl Stochastic {
                 restarts: 0,
             },
         )
-    }
-}
-
-impl Solver for Stochastic {
-    fn name(&self) -> &str {
-        "stochastic"
-    }
-
-    /// Fits without an observer; see [`Stochastic::fit_observed`].
-    ///
-    /// # Errors
-    /// As [`Stochastic::fit_observed`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
-        self.fit_observed(problem, &mut keep_going)
     }
 }

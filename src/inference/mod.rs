@@ -686,7 +686,7 @@ impl Inference {
         // three of them the result's (see the module docs).
         crate::alloc::reserve_matrices("inference matrices", k + 1, k + 1, 5)?;
         let (basis_r, qty, rnorm) = {
-            let full = tall_skinny_r(problem, &scaling, true);
+            let full = tall_skinny_r(problem, &scaling, true, &crate::observe::Watch::quiet())?;
             (
                 Array2::from_shape_fn((p, p), |(i, j)| full[(i, j)]),
                 (0..p).map(|i| full[(i, p)]).collect::<Vec<f64>>(),

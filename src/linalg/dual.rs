@@ -12,6 +12,7 @@ use faer::{Accum, Mat, Par};
 use rayon::prelude::*;
 
 use super::as_faer;
+use crate::observe::{Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 
@@ -64,7 +65,9 @@ pub(crate) fn row_gram(
     scaling: &Scaling,
     factors: &[f64],
     rows: &[usize],
+    watch: &Watch<'_>,
 ) -> crate::error::Result<RowGram> {
+    watch.begin(Stage::Factor, problem.rows());
     let x = as_faer(&problem.design());
     let n = rows.len();
     let p = problem.columns();
@@ -92,6 +95,9 @@ pub(crate) fn row_gram(
             let mut acc = Mat::<f64>::zeros(n, n);
             let mut bt = Mat::<f64>::zeros(cb, n);
             for &(c0, c1) in chunk.iter() {
+                if !watch.go_on() {
+                    break;
+                }
                 let width = c1 - c0;
                 for (li, &i) in rows.iter().enumerate() {
                     let s = sw[li];
@@ -115,6 +121,9 @@ pub(crate) fn row_gram(
             acc
         })
         .collect();
+    // Every row is read by every column block: the rows are done together.
+    watch.rows_done(problem.rows());
+    watch.check()?;
     let mut gram = Mat::<f64>::zeros(n, n);
     for part in &partials {
         for j in 0..n {
@@ -143,13 +152,20 @@ pub(crate) fn row_gram(
 ///
 /// Parallel over fixed chunks of columns; each column's sum runs over the
 /// rows in order, so the result does not depend on the thread count.
+/// With a `watch`, a pass of the [`Stage::Factor`] stage that reports its
+/// rows once, when every column chunk is done (each reads every row); the
+/// caller checks for a stop.
 pub(crate) fn transpose_times(
     problem: &Problem<'_>,
     scaling: &Scaling,
     factors: &[f64],
     rows: &[usize],
     v: &[f64],
+    watch: Option<&Watch<'_>>,
 ) -> Vec<f64> {
+    if let Some(w) = watch {
+        w.begin(Stage::Factor, problem.rows());
+    }
     let x = as_faer(&problem.design());
     let p = problem.columns();
     let coef = column_coefficients(scaling, factors);
@@ -166,6 +182,9 @@ pub(crate) fn transpose_times(
             let c0 = c * COLUMN_CHUNK;
             let c1 = (c0 + COLUMN_CHUNK).min(p);
             let mut acc = vec![0.0; c1 - c0];
+            if watch.is_some_and(|w| !w.go_on()) {
+                return acc;
+            }
             for (li, &i) in rows.iter().enumerate() {
                 let ui = u[li];
                 if ui == 0.0 {
@@ -181,14 +200,25 @@ pub(crate) fn transpose_times(
             acc
         })
         .collect();
+    if let Some(w) = watch {
+        w.rows_done(problem.rows());
+    }
     parts.into_iter().flatten().collect()
 }
 
 /// Squared norms `||Z_j||^2 = sum_i w_i ((x_ij - m_j) / s_j)^2` of the
 /// columns of the centered, weighted, scaled design (0 for columns treated
 /// as constant). One pass over the design, in parallel over a fixed
-/// partition of the rows; partial sums are combined in order.
-pub(crate) fn column_sq_norms(problem: &Problem<'_>, scaling: &Scaling) -> Vec<f64> {
+/// partition of the rows; partial sums are combined in order. Reported to
+/// `watch` as a [`Stage::Factor`] pass.
+pub(crate) fn column_sq_norms(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    watch: &Watch<'_>,
+) -> crate::error::Result<Vec<f64>> {
+    watch.begin(Stage::Factor, problem.rows());
     // The gradient solvers need the same sums: one implementation serves both.
-    super::gradient::column_norms(problem, &scaling.inv_scale)
+    let norms = super::gradient::column_norms(problem, &scaling.inv_scale, Some(watch));
+    watch.check()?;
+    Ok(norms)
 }

@@ -21,6 +21,8 @@
 use ndarray::Axis;
 use rayon::prelude::*;
 
+use crate::error::Result;
+use crate::observe::Watch;
 use crate::problem::{Problem, STATS_CHUNK};
 
 /// `a + b = s + e` exactly, with `s = fl(a + b)` (Knuth's branch-free form).
@@ -146,21 +148,33 @@ fn row_residual(
 
 /// Residuals `y_i / s_y - b0 - sum_j (x_ij / s_j) beta_j` of the original
 /// problem (scaled units), each computed in extended precision and rounded
-/// once (every row, weighted or not).
-pub(crate) fn residuals(problem: &Problem<'_>, units: &Units, b0: f64, beta: &[f64]) -> Vec<f64> {
+/// once (every row, weighted or not). Reports every chunk to `watch`
+/// (whose pass the caller has begun).
+pub(crate) fn residuals(
+    problem: &Problem<'_>,
+    units: &Units,
+    b0: f64,
+    beta: &[f64],
+    watch: &Watch<'_>,
+) -> Result<Vec<f64>> {
     let x = problem.design();
     let y = problem.target();
     let mut out = vec![0.0; problem.rows()];
     out.par_chunks_mut(STATS_CHUNK)
         .enumerate()
         .for_each(|(c, chunk)| {
+            if !watch.go_on() {
+                return;
+            }
             let r0 = c * STATS_CHUNK;
             for (k, o) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 *o = row_residual(x.index_axis(Axis(0), i), y[i], units, b0, beta, 0.0);
             }
+            watch.rows_done(chunk.len());
         });
-    out
+    watch.check()?;
+    Ok(out)
 }
 
 /// Weighted sum of squares `sum_i w~_i r_i^2` (scaled weights), compensated.
@@ -256,13 +270,15 @@ struct DefectPart {
 
 /// One pass over the original data computing the [`Defects`] of the current
 /// solution `(b0, beta)` and residual estimate `e` (scaled units).
+/// Reports every chunk to `watch` (whose pass the caller has begun).
 pub(crate) fn defects(
     problem: &Problem<'_>,
     units: &Units,
     b0: f64,
     beta: &[f64],
     e: &[f64],
-) -> Defects {
+    watch: &Watch<'_>,
+) -> Result<Defects> {
     let x = problem.design();
     let y = problem.target();
     let p = problem.columns();
@@ -280,6 +296,9 @@ pub(crate) fn defects(
                 centered_xf: vec![0.0; p],
                 centered_x: vec![0.0; p],
             };
+            if !watch.go_on() {
+                return part;
+            }
             for (k, out) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 let row = x.index_axis(Axis(0), i);
@@ -301,9 +320,11 @@ pub(crate) fn defects(
                     part.centered_x[j] += w * d;
                 }
             }
+            watch.rows_done(chunk.len());
             part
         })
         .collect();
+    watch.check()?;
     let mut weighted_f = Accumulator::default();
     let mut g0 = Accumulator::default();
     let mut g = vec![Accumulator::default(); p];
@@ -318,18 +339,19 @@ pub(crate) fn defects(
             centered_x[j] += part.centered_x[j];
         }
     }
-    Defects {
+    Ok(Defects {
         f,
         weighted_f: weighted_f.value(),
         g0: g0.value(),
         g: g.into_iter().map(Accumulator::value).collect(),
         centered_xf,
         centered_x,
-    }
+    })
 }
 
 /// Applies a correction to the residual estimate:
 /// `e_i += (f_i - c) - (x_i - m) . d_beta` (working precision, scaled units).
+/// Reports every chunk to `watch` (whose pass the caller has begun).
 pub(crate) fn update_residuals(
     problem: &Problem<'_>,
     units: &Units,
@@ -337,12 +359,16 @@ pub(crate) fn update_residuals(
     f: &[f64],
     c: f64,
     d_beta: &[f64],
-) {
+    watch: &Watch<'_>,
+) -> Result<()> {
     let x = problem.design();
     let means = &problem.stats.means;
     e.par_chunks_mut(STATS_CHUNK)
         .enumerate()
         .for_each(|(ci, chunk)| {
+            if !watch.go_on() {
+                return;
+            }
             let r0 = ci * STATS_CHUNK;
             for (k, ei) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
@@ -353,7 +379,9 @@ pub(crate) fn update_residuals(
                 }
                 *ei += (f[i] - c) - fit;
             }
+            watch.rows_done(chunk.len());
         });
+    watch.check()
 }
 
 #[cfg(test)]

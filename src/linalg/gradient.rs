@@ -32,6 +32,7 @@ use ndarray::{s, ArrayView2, Axis};
 use rayon::prelude::*;
 
 use super::{block_groups, GROUPS};
+use crate::observe::Watch;
 use crate::problem::Problem;
 
 /// Sums from one residual pass (see the module docs).
@@ -88,6 +89,7 @@ pub(crate) fn residual_pass(
     coef: &[f64],
     pre: Option<&[f64]>,
     inv_sy: f64,
+    watch: Option<&Watch<'_>>,
 ) -> Pass {
     let x = problem.design();
     let (n, p) = x.dim();
@@ -110,12 +112,18 @@ pub(crate) fn residual_pass(
                 sq: 0.0,
             };
             for &(r0, r1) in group {
+                if watch.is_some_and(|w| !w.go_on()) {
+                    break;
+                }
                 if inputs.pre.is_some() {
                     rows_prescaled(&inputs, r0..r1, &mut out);
                 } else if column_major {
                     dispatch_block_cols(&inputs, r0, r1, &mut out);
                 } else if !dispatch_contiguous(&inputs, r0, r1, &mut out) {
                     dispatch_rows(&inputs, r0..r1, &mut out);
+                }
+                if let Some(w) = watch {
+                    w.rows_done(r1 - r0);
                 }
             }
             out
@@ -166,7 +174,12 @@ pub(crate) fn residual_rows(
 
 /// `max_i w_i sum_j ((x_ij - m_j) pre_j inv_scale_j)^2`: the largest squared
 /// norm of a row of the transformed design (zero-weight rows excluded).
-pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64], pre: Option<&[f64]>) -> f64 {
+pub(crate) fn max_row_norm(
+    problem: &Problem<'_>,
+    inv_scale: &[f64],
+    pre: Option<&[f64]>,
+    watch: Option<&Watch<'_>>,
+) -> f64 {
     let x = problem.design();
     let (n, p) = x.dim();
     let means = &problem.stats.means;
@@ -176,6 +189,9 @@ pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64], pre: Option
         .map(|group| {
             let mut best = 0.0_f64;
             for &(r0, r1) in group {
+                if watch.is_some_and(|w| !w.go_on()) {
+                    break;
+                }
                 for i in r0..r1 {
                     let w = problem.scaled_weight(i);
                     if w == 0.0 {
@@ -193,6 +209,9 @@ pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64], pre: Option
                     }
                     best = best.max(w * s);
                 }
+                if let Some(w) = watch {
+                    w.rows_done(r1 - r0);
+                }
             }
             best
         })
@@ -202,7 +221,11 @@ pub(crate) fn max_row_norm(problem: &Problem<'_>, inv_scale: &[f64], pre: Option
 /// `sum_i w_i ((x_ij - m_j) inv_scale_j)^2` for every column: the squared
 /// norms of the transformed columns (one pass, fixed partition, partial
 /// sums added in group order).
-pub(crate) fn column_norms(problem: &Problem<'_>, inv_scale: &[f64]) -> Vec<f64> {
+pub(crate) fn column_norms(
+    problem: &Problem<'_>,
+    inv_scale: &[f64],
+    watch: Option<&Watch<'_>>,
+) -> Vec<f64> {
     let x = problem.design();
     let (n, p) = x.dim();
     let means = &problem.stats.means;
@@ -212,6 +235,9 @@ pub(crate) fn column_norms(problem: &Problem<'_>, inv_scale: &[f64]) -> Vec<f64>
         .map(|group| {
             let mut acc = vec![0.0; p];
             for &(r0, r1) in group {
+                if watch.is_some_and(|w| !w.go_on()) {
+                    break;
+                }
                 for i in r0..r1 {
                     let w = problem.scaled_weight(i);
                     if w == 0.0 {
@@ -236,6 +262,9 @@ pub(crate) fn column_norms(problem: &Problem<'_>, inv_scale: &[f64]) -> Vec<f64>
                             }
                         }
                     }
+                }
+                if let Some(w) = watch {
+                    w.rows_done(r1 - r0);
                 }
             }
             acc

@@ -5,6 +5,8 @@ use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
 
 use super::{accumulator_groups, block_groups, block_rows, tree_reduce};
+use crate::error::Result;
+use crate::observe::Watch;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -20,11 +22,16 @@ use crate::problem::Problem;
 /// `k x rows`, for a row-major design) and sized to stay in the core's
 /// second-level cache. Extra memory: one block and one `k x k` matrix per
 /// thread and level of the tree (about `threads * (1 + log2 64)` matrices).
+///
+/// Reports every block to `watch` (whose pass the caller has begun); a
+/// stop skips the blocks not yet started and returns
+/// [`crate::Error::Stopped`].
 pub(crate) fn centered_gram(
     problem: &Problem<'_>,
     scaling: &Scaling,
     with_target: bool,
-) -> Mat<f64> {
+    watch: &Watch<'_>,
+) -> Result<Mat<f64>> {
     let k = problem.columns() + usize::from(with_target);
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, accumulator_groups(problem.rows(), k));
@@ -41,6 +48,9 @@ pub(crate) fn centered_gram(
             Mat::<f64>::zeros(k, b)
         };
         for &(r0, r1) in group {
+            if !watch.go_on() {
+                break;
+            }
             let len = r1 - r0;
             // `z` is the `len x k` block of Z, whatever its storage.
             let z = if by_columns {
@@ -60,6 +70,7 @@ pub(crate) fn centered_gram(
                 zt.into_const().transpose()
             };
             lower_gram_add(acc.as_mut(), z);
+            watch.rows_done(len);
         }
         acc
     };
@@ -73,12 +84,13 @@ pub(crate) fn centered_gram(
         a
     };
     let mut g = tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k));
+    watch.check()?;
     for j in 0..k {
         for i in (j + 1)..k {
             g[(j, i)] = g[(i, j)];
         }
     }
-    g
+    Ok(g)
 }
 
 /// Columns per panel of [`lower_gram_add`].
@@ -123,7 +135,7 @@ mod tests {
             let y = Array1::from_shape_fn(n, |i| (i % 13) as f64);
             let problem = Problem::new(x.view(), y.view()).expect("valid");
             let scaling = Scaling::new(&problem, 1e-12);
-            let g = centered_gram(&problem, &scaling, true);
+            let g = centered_gram(&problem, &scaling, true, &Watch::quiet()).expect("unstopped");
             let mut z = Mat::<f64>::zeros(n, p + 1);
             fill_block(&problem, &scaling, 0, n, true, z.as_mut());
             for i in 0..=p {

@@ -13,6 +13,7 @@ use faer::{Accum, Mat, MatRef, Par};
 use rayon::prelude::*;
 
 use super::{block_groups, block_rows, GROUPS};
+use crate::observe::Watch;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -36,10 +37,13 @@ pub(crate) struct LooSpectrum<'m> {
 /// residual of the full fit and `H_ii` the leverage including the
 /// intercept; `+inf` where some `1 - H_ii` is at rounding level (a row the
 /// fit interpolates, whose leave-one-out error is not determined).
+/// Reports every block to `watch` (whose pass the caller has begun; the
+/// caller checks for a stop).
 pub(crate) fn loo_sums(
     problem: &Problem<'_>,
     scaling: &Scaling,
     spec: &LooSpectrum<'_>,
+    watch: &Watch<'_>,
 ) -> Vec<f64> {
     let p = problem.columns();
     let r = spec.v.ncols();
@@ -60,6 +64,9 @@ pub(crate) fn loo_sums(
             let mut lev = Mat::<f64>::zeros(b, m);
             let mut fit = Mat::<f64>::zeros(b, m);
             for &(r0, r1) in group {
+                if !watch.go_on() {
+                    break;
+                }
                 let len = r1 - r0;
                 fill_block(
                     problem,
@@ -129,6 +136,7 @@ pub(crate) fn loo_sums(
                         }
                     }
                 }
+                watch.rows_done(len);
             }
             acc
         })

@@ -24,6 +24,8 @@ use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
 
 use super::{block_groups, kernels, tree_reduce};
+use crate::error::Result;
+use crate::observe::Watch;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -455,17 +457,22 @@ fn apply_panel(
 /// column when `with_target`: then `R[..p, p]` is `Q^T y` and `|R[p, p]|`
 /// the residual norm of the scaled problem). The signs of `R`'s rows are
 /// arbitrary (a Householder convention).
+///
+/// Reports every block to `watch` (whose pass the caller has begun); a
+/// stop skips the blocks not yet started and returns
+/// [`crate::Error::Stopped`].
 pub(crate) fn tall_skinny_r(
     problem: &Problem<'_>,
     scaling: &Scaling,
     with_target: bool,
-) -> Mat<f64> {
+    watch: &Watch<'_>,
+) -> Result<Mat<f64>> {
     let last = if with_target {
         LastColumn::Target
     } else {
         LastColumn::None
     };
-    factor_r(problem, scaling, last)
+    factor_r(problem, scaling, last, watch)
 }
 
 /// As [`tall_skinny_r`], with the last column `sqrt(w_i) v_i * inv_scale`
@@ -479,8 +486,9 @@ pub(crate) fn tall_skinny_r_with(
     scaling: &Scaling,
     v: &[f64],
     inv_scale: f64,
-) -> Mat<f64> {
-    factor_r(problem, scaling, LastColumn::Vector(v, inv_scale))
+    watch: &Watch<'_>,
+) -> Result<Mat<f64>> {
+    factor_r(problem, scaling, LastColumn::Vector(v, inv_scale), watch)
 }
 
 /// What the column after the design holds.
@@ -520,7 +528,12 @@ fn fill_with_last(
     }
 }
 
-fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> Mat<f64> {
+fn factor_r(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    last: LastColumn<'_>,
+    watch: &Watch<'_>,
+) -> Result<Mat<f64>> {
     let k = problem.columns() + usize::from(!matches!(last, LastColumn::None));
     let ld = row_stride(k);
     let b = qr_block_rows(k);
@@ -538,6 +551,9 @@ fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> M
         let mut buf = vec![0.0f64; b * ld.max(k)];
         let mut work = StackedQrWork::new(k);
         for &(r0, r1) in group {
+            if !watch.go_on() {
+                break;
+            }
             let len = r1 - r0;
             if by_columns {
                 let used = (k - 1) * b + len;
@@ -550,6 +566,7 @@ fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> M
                 fill_with_last(problem, scaling, r0, r1, last, out);
                 stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
             }
+            watch.rows_done(len);
         }
         r
     };
@@ -565,7 +582,9 @@ fn factor_r(problem: &Problem<'_>, scaling: &Scaling, last: LastColumn<'_>) -> M
         stacked_qr(a.as_mut(), &mut buf, ld, k, &mut work);
         a
     };
-    tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k))
+    let r = tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k));
+    watch.check()?;
+    Ok(r)
 }
 
 /// Thin `Q` of a small dense matrix (see [`super::householder::thin_q`]).

@@ -4,6 +4,8 @@ use ndarray::{s, Axis};
 use rayon::prelude::*;
 
 use super::kernels;
+use crate::error::Result;
+use crate::observe::Watch;
 use crate::problem::{Problem, STATS_CHUNK};
 
 /// Weighted residual sum of squares of the centered problem for slopes
@@ -19,11 +21,15 @@ use crate::problem::{Problem, STATS_CHUNK};
 /// of the design, in parallel over fixed row chunks; a row-major design is
 /// read row by row with a vectorised dot product, a column-major one column
 /// by column with a vectorised update of the chunk's residuals.
-pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f64 {
-    let x = problem.design();
-    let y = problem.target();
-    let means = &problem.stats.means[..];
-    let ym = problem.stats.target_mean;
+///
+/// Reports every chunk to `watch` (whose pass the caller has begun); a
+/// stop skips the chunks not yet started and returns [`crate::Error::Stopped`].
+pub(crate) fn centered_rss(
+    problem: &Problem<'_>,
+    beta: &[f64],
+    scale: f64,
+    watch: &Watch<'_>,
+) -> Result<f64> {
     let n = problem.rows();
     let p = problem.columns();
     let inv = 1.0 / scale;
@@ -34,6 +40,28 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
         .map(|&c| {
             let r0 = c * STATS_CHUNK;
             let r1 = (r0 + STATS_CHUNK).min(n);
+            if !watch.go_on() {
+                return 0.0;
+            }
+            let part = chunk_rss(problem, beta, inv, r0, r1);
+            watch.rows_done(r1 - r0);
+            part
+        })
+        .collect();
+    watch.check()?;
+    Ok(parts.iter().sum())
+}
+
+/// The part of [`centered_rss`] from rows `r0..r1`.
+fn chunk_rss(problem: &Problem<'_>, beta: &[f64], inv: f64, r0: usize, r1: usize) -> f64 {
+    let x = problem.design();
+    let y = problem.target();
+    let means = &problem.stats.means[..];
+    let ym = problem.stats.target_mean;
+    let p = problem.columns();
+    let beta = &beta[..p];
+    {
+        {
             let xb = x.slice(s![r0..r1, ..]);
             let strides = xb.strides();
             if p > 1 && strides[0] == 1 && strides[1] != 1 {
@@ -109,9 +137,8 @@ pub(crate) fn centered_rss(problem: &Problem<'_>, beta: &[f64], scale: f64) -> f
                     acc
                 },
             )
-        })
-        .collect();
-    parts.iter().sum()
+        }
+    }
 }
 
 /// Sum of every element of the design: one streaming read, parallel over

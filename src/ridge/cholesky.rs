@@ -4,6 +4,7 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, gram::centered_gram, triangular};
+use crate::observe::{Stage, Watch};
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -18,11 +19,13 @@ pub(super) fn solve(
     scaling: &Scaling,
     standardize: bool,
     lambda: f64,
+    watch: &Watch<'_>,
 ) -> Result<Solution> {
     let p = problem.columns();
     // The Gram matrix, its penalised copy and the factor.
     crate::alloc::reserve_matrices("penalised Gram matrix", p + 1, p + 1, 3)?;
-    let g = centered_gram(problem, scaling, true);
+    watch.begin(Stage::Factor, problem.rows());
+    let g = centered_gram(problem, scaling, true, watch)?;
     let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let mu = map.scaled(lambda);

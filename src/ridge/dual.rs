@@ -3,6 +3,7 @@
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, dual, triangular};
+use crate::observe::Watch;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -23,6 +24,7 @@ pub(super) fn solve(
     scaling: &Scaling,
     standardize: bool,
     lambda: f64,
+    watch: &Watch<'_>,
 ) -> Result<Solution> {
     let nu = problem.usable_rows();
     let p = problem.columns();
@@ -38,10 +40,14 @@ pub(super) fn solve(
     let rows: Vec<usize> = (0..problem.rows())
         .filter(|&i| problem.scaled_weight(i) > 0.0)
         .collect();
-    let norms = standardize.then(|| dual::column_sq_norms(problem, scaling));
+    let norms = match standardize {
+        true => Some(dual::column_sq_norms(problem, scaling, watch)?),
+        false => None,
+    };
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let mu = map.scaled(lambda);
-    let dual::RowGram { mut gram, target } = dual::row_gram(problem, scaling, &map.factors, &rows)?;
+    let dual::RowGram { mut gram, target } =
+        dual::row_gram(problem, scaling, &map.factors, &rows, watch)?;
     for i in 0..rows.len() {
         gram[(i, i)] += mu;
     }
@@ -57,7 +63,8 @@ pub(super) fn solve(
     let mut alpha = target;
     triangular::solve_lower(l.as_ref(), &mut alpha);
     triangular::solve_upper(l.as_ref().transpose(), &mut alpha);
-    let gamma = dual::transpose_times(problem, scaling, &map.factors, &rows, &alpha);
+    let gamma = dual::transpose_times(problem, scaling, &map.factors, &rows, &alpha, Some(watch));
+    watch.check()?;
     Ok(Solution {
         beta: map.to_caller(scaling, &gamma),
         design_condition: None,

@@ -106,6 +106,7 @@ pub use path::RidgePath;
 pub use selection::{Criterion, PenaltyCurve};
 
 use crate::error::{Error, Result};
+use crate::observe::{Observer, Watch};
 use crate::penalty::check_penalty;
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -279,13 +280,14 @@ impl Solver for Ridge {
     /// fails to factor (a penalty at rounding level of the design's scale);
     /// [`Error::NoConvergence`] if an SVD or eigen iteration fails;
     /// [`Error::Overflow`] if a result is not representable.
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
         let lambda = check_penalty("penalty", self.penalty)?;
         if lambda == 0.0 {
-            return self.unpenalised(problem);
+            return self.unpenalised(problem, observer);
         }
+        let watch = Watch::new(observer);
         if self.factorization == RidgeFactorization::Svd {
-            return RidgePath::new(problem, self.standardize)?.fit(lambda);
+            return RidgePath::build(problem, self.standardize, &watch)?.fit(lambda);
         }
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         let p = problem.columns();
@@ -298,29 +300,33 @@ impl Solver for Ridge {
                 Some(1.0),
                 scaling.target_scale,
                 lambda,
+                &watch,
             );
         }
         let sol = match self.factorization {
             RidgeFactorization::Cholesky => {
-                cholesky::solve(problem, &scaling, self.standardize, lambda)?
+                cholesky::solve(problem, &scaling, self.standardize, lambda, &watch)?
             }
             RidgeFactorization::AugmentedQr => {
-                qr::solve(problem, &scaling, self.standardize, lambda)?
+                qr::solve(problem, &scaling, self.standardize, lambda, &watch)?
             }
-            RidgeFactorization::Dual => dual::solve(problem, &scaling, self.standardize, lambda)?,
+            RidgeFactorization::Dual => {
+                dual::solve(problem, &scaling, self.standardize, lambda, &watch)?
+            }
             _ => {
                 if problem.usable_rows() < p {
-                    dual::solve(problem, &scaling, self.standardize, lambda)?
+                    dual::solve(problem, &scaling, self.standardize, lambda, &watch)?
                 } else {
-                    let fast = cholesky::solve(problem, &scaling, self.standardize, lambda);
+                    let fast = cholesky::solve(problem, &scaling, self.standardize, lambda, &watch);
                     match fast {
+                        Err(stopped @ Error::Stopped { .. }) => return Err(stopped),
                         Ok(s)
                             if digits(s.system_condition * s.system_condition)
                                 >= AUTO_MIN_DIGITS =>
                         {
                             s
                         }
-                        _ => qr::solve(problem, &scaling, self.standardize, lambda)?,
+                        _ => qr::solve(problem, &scaling, self.standardize, lambda, &watch)?,
                     }
                 }
             }
@@ -333,6 +339,7 @@ impl Solver for Ridge {
             sol.design_condition,
             scaling.target_scale,
             lambda,
+            &watch,
         )
     }
 }
@@ -344,7 +351,7 @@ fn digits(condition: f64) -> f64 {
 
 impl Ridge {
     /// Penalty 0: ordinary least squares by the matching plain solver.
-    fn unpenalised(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn unpenalised(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
         let mut fit = match self.factorization {
             RidgeFactorization::Dual => {
                 return Err(Error::InvalidParameter {
@@ -353,9 +360,9 @@ impl Ridge {
                     reason: "the dual method needs a positive penalty",
                 })
             }
-            RidgeFactorization::Cholesky => Cholesky::new().fit(problem)?,
-            RidgeFactorization::Svd => Svd::new().fit(problem)?,
-            _ => Qr::new().fit(problem)?,
+            RidgeFactorization::Cholesky => Cholesky::new().fit_observed(problem, observer)?,
+            RidgeFactorization::Svd => Svd::new().fit_observed(problem, observer)?,
+            _ => Qr::new().fit_observed(problem, observer)?,
         };
         fit.report.solver = self.name().to_string();
         Ok(fit)

@@ -8,6 +8,7 @@ use crate::linalg::{
     cholesky as chol, dense, dual, gram::centered_gram, qr::tall_skinny_r, residuals,
     svd::thin_svd, triangular,
 };
+use crate::observe::{Observer, Stage, Watch};
 use crate::penalty::{check_penalty, PenaltyMap};
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -119,19 +120,46 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// # Errors
     /// [`Error::NoConvergence`] if the SVD or eigen iteration fails.
     pub fn new(problem: &'p Problem<'a>, standardize: bool) -> Result<Self> {
+        Self::build(problem, standardize, &Watch::quiet())
+    }
+
+    /// As [`RidgePath::new`], calling `observer` after every block of rows
+    /// of the passes over the design (see [`crate::observe`]).
+    ///
+    /// # Errors
+    /// As [`RidgePath::new`], and [`Error::Stopped`] when the observer
+    /// stops a pass.
+    pub fn new_observed(
+        problem: &'p Problem<'a>,
+        standardize: bool,
+        observer: &dyn Observer,
+    ) -> Result<Self> {
+        Self::build(problem, standardize, &Watch::new(observer))
+    }
+
+    pub(super) fn build(
+        problem: &'p Problem<'a>,
+        standardize: bool,
+        watch: &Watch<'_>,
+    ) -> Result<Self> {
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         if problem.usable_rows() >= problem.columns() {
-            Self::from_columns(problem, scaling, standardize)
+            Self::from_columns(problem, scaling, standardize, watch)
         } else {
-            Self::from_rows(problem, scaling, standardize)
+            Self::from_rows(problem, scaling, standardize, watch)
         }
     }
 
-    fn from_columns(problem: &'p Problem<'a>, scaling: Scaling, standardize: bool) -> Result<Self> {
+    fn from_columns(
+        problem: &'p Problem<'a>,
+        scaling: Scaling,
+        standardize: bool,
+        watch: &Watch<'_>,
+    ) -> Result<Self> {
         let p = problem.columns();
-        let tri = match gram_triangle(problem, &scaling, standardize) {
+        let tri = match gram_triangle(problem, &scaling, standardize, watch)? {
             Some(t) => t,
-            None => qr_triangle(problem, &scaling, standardize),
+            None => qr_triangle(problem, &scaling, standardize, watch)?,
         };
         let (sq, d, v) = if p == 0 {
             (Vec::new(), Vec::new(), Mat::<f64>::zeros(0, 0))
@@ -177,14 +205,22 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         })
     }
 
-    fn from_rows(problem: &'p Problem<'a>, scaling: Scaling, standardize: bool) -> Result<Self> {
+    fn from_rows(
+        problem: &'p Problem<'a>,
+        scaling: Scaling,
+        standardize: bool,
+        watch: &Watch<'_>,
+    ) -> Result<Self> {
         let rows: Vec<usize> = (0..problem.rows())
             .filter(|&i| problem.scaled_weight(i) > 0.0)
             .collect();
-        let norms = standardize.then(|| dual::column_sq_norms(problem, &scaling));
+        let norms = match standardize {
+            true => Some(dual::column_sq_norms(problem, &scaling, watch)?),
+            false => None,
+        };
         let map = PenaltyMap::new(problem, &scaling, norms.as_deref());
         let dual::RowGram { mut gram, target } =
-            dual::row_gram(problem, &scaling, &map.factors, &rows)?;
+            dual::row_gram(problem, &scaling, &map.factors, &rows, watch)?;
         let nu = rows.len();
         let intercept = problem.has_intercept();
         if intercept {
@@ -283,7 +319,14 @@ impl<'p, 'a> RidgePath<'p, 'a> {
                         *wi += u[(i, k)] * c;
                     }
                 }
-                dual::transpose_times(self.problem, &self.scaling, &self.map.factors, rows, &w)
+                dual::transpose_times(
+                    self.problem,
+                    &self.scaling,
+                    &self.map.factors,
+                    rows,
+                    &w,
+                    None,
+                )
             }
         }
     }
@@ -407,9 +450,15 @@ struct Triangle {
 }
 
 /// The triangle from the block Householder QR of `[Z t]` (no `Z^T Z`).
-fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Triangle {
+fn qr_triangle(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    standardize: bool,
+    watch: &Watch<'_>,
+) -> Result<Triangle> {
     let p = problem.columns();
-    let r = tall_skinny_r(problem, scaling, true);
+    watch.begin(Stage::Factor, problem.rows());
+    let r = tall_skinny_r(problem, scaling, true, watch)?;
     let norms: Option<Vec<f64>> = standardize.then(|| {
         (0..p)
             .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum())
@@ -417,13 +466,13 @@ fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> T
     });
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let rh = Mat::<f64>::from_fn(p, p, |i, j| r[(i, j)] * map.factors[j]);
-    Triangle {
+    Ok(Triangle {
         rh,
         r: (0..p).map(|i| r[(i, p)]).collect(),
         rss0: r[(p, p)] * r[(p, p)],
         map,
         source: "householder-qr",
-    }
+    })
 }
 
 /// The triangle from the Cholesky factor of the Gram matrix, when that
@@ -431,9 +480,18 @@ fn qr_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> T
 /// when the factorisation fails). The squared residual outside the span is
 /// measured by a pass over the data at the least-squares solution (not by
 /// `t^T t - |r|^2`, which would cancel).
-fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) -> Option<Triangle> {
+///
+/// # Errors
+/// [`Error::Stopped`] when the observer stops a pass.
+fn gram_triangle(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    standardize: bool,
+    watch: &Watch<'_>,
+) -> Result<Option<Triangle>> {
     let p = problem.columns();
-    let mut g = centered_gram(problem, scaling, true);
+    watch.begin(Stage::Factor, problem.rows());
+    let mut g = centered_gram(problem, scaling, true, watch)?;
     let norms: Option<Vec<f64>> = standardize.then(|| (0..p).map(|j| g[(j, j)]).collect());
     let map = PenaltyMap::new(problem, scaling, norms.as_deref());
     let f = &map.factors;
@@ -449,12 +507,12 @@ fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) ->
     }
     let mut l = g.as_mut().submatrix_mut(0, 0, q, q);
     if chol::factor_in_place(l.rb_mut()).is_err() {
-        return None;
+        return Ok(None);
     }
     let l = l.into_const();
     let condition = triangular::condition_lower(l);
     if super::digits(condition * condition) < super::AUTO_MIN_DIGITS {
-        return None;
+        return Ok(None);
     }
     triangular::solve_lower(l, &mut rl);
     let mut rh = Mat::<f64>::zeros(p, p);
@@ -472,14 +530,15 @@ fn gram_triangle(problem: &Problem<'_>, scaling: &Scaling, standardize: bool) ->
     }
     let beta = map.to_caller(scaling, &gamma);
     let sy = scaling.target_scale;
-    let rss0 = residuals::centered_rss(problem, &beta, sy);
+    watch.begin(Stage::Residuals, problem.rows());
+    let rss0 = residuals::centered_rss(problem, &beta, sy, watch)?;
     let mut r = vec![0.0; p];
     r[..q].copy_from_slice(&rl);
-    Some(Triangle {
+    Ok(Some(Triangle {
         rh,
         r,
         rss0,
         map,
         source: "gram-cholesky",
-    })
+    }))
 }

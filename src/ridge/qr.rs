@@ -5,6 +5,7 @@ use faer::{Mat, MatRef};
 
 use crate::error::Result;
 use crate::linalg::{dense, qr::tall_skinny_r, svd::thin_svd, triangular};
+use crate::observe::{Stage, Watch};
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -19,11 +20,13 @@ pub(super) fn solve(
     scaling: &Scaling,
     standardize: bool,
     lambda: f64,
+    watch: &Watch<'_>,
 ) -> Result<Solution> {
     let p = problem.columns();
     // The triangle, the stacked system and its factor.
     crate::alloc::reserve_matrices("augmented system", 2 * p + 1, p + 1, 2)?;
-    let r = tall_skinny_r(problem, scaling, true);
+    watch.begin(Stage::Factor, problem.rows());
+    let r = tall_skinny_r(problem, scaling, true, watch)?;
     let norms: Option<Vec<f64>> = standardize.then(|| {
         (0..p)
             .map(|j| (0..=j).map(|i| r[(i, j)] * r[(i, j)]).sum())

@@ -5,6 +5,7 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{dense, loo};
+use crate::observe::{Observer, Stage, Watch};
 use crate::scaled::ldexp;
 use crate::solver::caller_rss;
 
@@ -124,6 +125,31 @@ impl RidgePath<'_, '_> {
     /// [`Error::InvalidGridPenalty`] for a negative or non-finite entry;
     /// [`Error::NoFiniteScore`] when no penalty has a finite score.
     pub fn curve(&self, grid: &[f64], criterion: Criterion) -> Result<super::PenaltyCurve> {
+        self.score(grid, criterion, &Watch::quiet())
+    }
+
+    /// As [`RidgePath::curve`], calling `observer` after every block of
+    /// rows of the leave-one-out pass (the only pass over the design the
+    /// curve makes; see [`crate::observe`]).
+    ///
+    /// # Errors
+    /// As [`RidgePath::curve`], and [`Error::Stopped`] when the observer
+    /// stops the pass.
+    pub fn curve_observed(
+        &self,
+        grid: &[f64],
+        criterion: Criterion,
+        observer: &dyn Observer,
+    ) -> Result<super::PenaltyCurve> {
+        self.score(grid, criterion, &Watch::new(observer))
+    }
+
+    fn score(
+        &self,
+        grid: &[f64],
+        criterion: Criterion,
+        watch: &Watch<'_>,
+    ) -> Result<super::PenaltyCurve> {
         check_grid(grid)?;
         let problem = self.problem;
         let loss_exp = 2 * self.scaling.target_exp;
@@ -162,7 +188,7 @@ impl RidgePath<'_, '_> {
         }
         let loo = match criterion {
             Criterion::LeaveOneOut => Some(
-                self.loo_sums(&mus)
+                self.loo_sums(&mus, watch)?
                     .into_iter()
                     .map(|s| caller(s / wt, "leave-one-out error"))
                     .collect::<Result<Vec<f64>>>()?,
@@ -198,7 +224,7 @@ impl RidgePath<'_, '_> {
     }
 
     /// `sum_i (r_i / (1 - H_ii))^2` in scaled units for each `mu`.
-    fn loo_sums(&self, mus: &[f64]) -> Vec<f64> {
+    fn loo_sums(&self, mus: &[f64], watch: &Watch<'_>) -> Result<Vec<f64>> {
         let sp = &self.spectrum;
         let problem = self.problem;
         let m = mus.len();
@@ -215,7 +241,8 @@ impl RidgePath<'_, '_> {
                     sp.sq[k].sqrt() * sp.d[k] / (sp.sq[k] + mus[c])
                 });
                 let vk = v.as_ref().subcols(0, r);
-                loo::loo_sums(
+                watch.begin(Stage::Residuals, problem.rows());
+                let sums = loo::loo_sums(
                     problem,
                     &self.scaling,
                     &loo::LooSpectrum {
@@ -225,7 +252,10 @@ impl RidgePath<'_, '_> {
                         fitted: fitted.as_ref(),
                         intercept_share: share,
                     },
-                )
+                    watch,
+                );
+                watch.check()?;
+                Ok(sums)
             }
             Side::Rows { u, .. } => {
                 // Every eigenvector but the intercept's is in `u`, so
@@ -239,7 +269,7 @@ impl RidgePath<'_, '_> {
                 let one_minus = dense::product(u2.as_ref(), keep.as_ref());
                 let resid = dense::product(u.as_ref(), res_coef.as_ref());
                 let tiny = 16.0 * f64::EPSILON * (q.max(1) as f64);
-                (0..m)
+                Ok((0..m)
                     .map(|c| {
                         let mut acc = 0.0;
                         for i in 0..nu {
@@ -252,7 +282,7 @@ impl RidgePath<'_, '_> {
                         }
                         acc
                     })
-                    .collect()
+                    .collect())
             }
         }
     }

@@ -2,6 +2,7 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, gram::centered_gram, qr::tall_skinny_r, triangular};
+use crate::observe::{Observer, Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
@@ -142,7 +143,8 @@ impl Solver for Cholesky {
     /// [`Error::IllConditioned`]; [`Error::NotPositiveDefinite`] if a pivot
     /// fails without rank deficiency or ill-conditioning to explain it;
     /// [`Error::InvalidParameter`] for bad settings; [`Error::Overflow`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         problem.require_determined()?;
         let tolerance = match self.rank_tolerance {
             Some(t) => check_tolerance("rank_tolerance", t)?,
@@ -157,7 +159,8 @@ impl Solver for Cholesky {
         }
         let p = problem.columns();
         let scaling = Scaling::new(problem, tolerance);
-        let g = centered_gram(problem, &scaling, true);
+        watch.begin(Stage::Factor, problem.rows());
+        let g = centered_gram(problem, &scaling, true, &watch)?;
         let g11: Mat<f64> = g.as_ref().submatrix(0, 0, p, p).to_owned();
         let constant: Vec<usize> = (0..p).filter(|&j| scaling.constant[j]).collect();
         let factor = if constant.is_empty() {
@@ -171,7 +174,7 @@ impl Solver for Cholesky {
                 let noise =
                     (0..p).any(|j| l[(j, j)] * l[(j, j)] <= 4.0 * f64::EPSILON * g11[(j, j)]);
                 if noise {
-                    return Err(self.diagnose(problem, &scaling, tolerance, p, None));
+                    return Err(self.diagnose(problem, &scaling, tolerance, p, None, &watch));
                 }
                 l
             }
@@ -182,6 +185,7 @@ impl Solver for Cholesky {
                     tolerance,
                     p,
                     Some((pivot, g11[(pivot, pivot)])),
+                    &watch,
                 ));
             }
         };
@@ -212,6 +216,7 @@ impl Solver for Cholesky {
             Some(condition),
             scaling.target_scale,
             0.0,
+            &watch,
         )
     }
 }
@@ -226,8 +231,13 @@ impl Cholesky {
         tolerance: f64,
         p: usize,
         failed: Option<(usize, f64)>,
+        watch: &Watch<'_>,
     ) -> Error {
-        let r = tall_skinny_r(problem, scaling, false);
+        watch.begin(Stage::Factor, problem.rows());
+        let r = match tall_skinny_r(problem, scaling, false, watch) {
+            Ok(r) => r,
+            Err(stopped) => return stopped,
+        };
         let dependent = dependent_columns(problem, scaling, r.as_ref(), tolerance);
         if !dependent.is_empty() {
             return Error::RankDeficient {

@@ -4,6 +4,7 @@ use ndarray::Array1;
 use crate::error::{Error, Result};
 use crate::linalg::{qr::tall_skinny_r, triangular};
 use crate::model::LinearModel;
+use crate::observe::{Observer, Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::ldexp;
@@ -161,7 +162,8 @@ impl Solver for Qr {
     /// [`Error::Overflow`] if a coefficient is not representable. With
     /// refinement, [`Error::InvalidParameter`] for a bad refinement
     /// tolerance.
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         problem.require_determined()?;
         let tolerance = match self.rank_tolerance {
             Some(t) => check_tolerance("rank_tolerance", t)?,
@@ -169,7 +171,8 @@ impl Solver for Qr {
         };
         let p = problem.columns();
         let scaling = Scaling::new(problem, tolerance);
-        let r = tall_skinny_r(problem, &scaling, true);
+        watch.begin(Stage::Factor, problem.rows());
+        let r = tall_skinny_r(problem, &scaling, true, &watch)?;
         let dependent = dependent_columns(
             problem,
             &scaling,
@@ -205,10 +208,13 @@ impl Solver for Qr {
                 Some(condition),
                 scaling.target_scale,
                 0.0,
+                &watch,
             );
         };
         let start = intercept_for(problem, &beta);
-        let refined = refine(problem, &scaling, &r11, condition, settings, start, beta)?;
+        let refined = refine(
+            problem, &scaling, &r11, condition, settings, start, beta, &watch,
+        )?;
         if !refined.intercept.is_finite() {
             return Err(Error::Overflow { what: "intercept" });
         }

@@ -9,6 +9,7 @@ use crate::linalg::{
     qr::tall_skinny_r_with,
     triangular,
 };
+use crate::observe::{Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{ldexp, pow2_scale};
@@ -169,6 +170,7 @@ fn relative_change(theta: &[f64], delta: &[f64], floor: &[f64]) -> f64 {
 /// Everything runs in the scaled units of `scaling` (`x_ij / s_j`,
 /// `y_i / s_y`, exact powers of two; the intercept in units of `s_y`), so
 /// that data near the ends of the `f64` range refine like data near 1.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn refine(
     problem: &Problem<'_>,
     scaling: &Scaling,
@@ -177,6 +179,7 @@ pub(crate) fn refine(
     settings: &Refinement,
     intercept: f64,
     beta: Vec<f64>,
+    watch: &Watch<'_>,
 ) -> Result<Refined> {
     if !settings.tolerance.is_finite() || settings.tolerance < 0.0 {
         return Err(Error::InvalidParameter {
@@ -210,7 +213,9 @@ pub(crate) fn refine(
         .collect();
 
     let y_norm = extended::centered_target_sum_of_squares(problem, &units).sqrt();
-    let mut e = extended::residuals(problem, &units, b0, &gamma);
+    let n = problem.rows();
+    watch.begin_step(Stage::Refinement, Some(0), n);
+    let mut e = extended::residuals(problem, &units, b0, &gamma, watch)?;
     let mut prev = f64::INFINITY;
     // The rounding level of a correction: sums over the usable rows in
     // working precision lose about eps sqrt(n) of their size.
@@ -227,7 +232,8 @@ pub(crate) fn refine(
     };
     let mut step = 0;
     loop {
-        let d = extended::defects(problem, &units, b0, &gamma, &e);
+        watch.begin_step(Stage::Refinement, Some(step), n);
+        let d = extended::defects(problem, &units, b0, &gamma, &e, watch)?;
         out.passes += 1;
         if !d.is_finite() {
             break;
@@ -289,7 +295,8 @@ pub(crate) fn refine(
         } else {
             // d = R^-1 (Q^T h - R^-T g), Q^T h from a QR with h as last column.
             let fc: Vec<f64> = d.f.iter().map(|&fi| fi - c).collect();
-            let rf = tall_skinny_r_with(problem, scaling, &fc, 1.0 / t);
+            watch.begin_step(Stage::Refinement, Some(step), n);
+            let rf = tall_skinny_r_with(problem, scaling, &fc, 1.0 / t, watch)?;
             out.passes += 1;
             let r = rf.as_ref().submatrix(0, 0, p, p);
             let mut u = gcs;
@@ -344,11 +351,13 @@ pub(crate) fn refine(
             out.converged = change <= noise;
             break;
         }
-        extended::update_residuals(problem, &units, &mut e, &d.f, c, &d_gamma);
+        watch.begin_step(Stage::Refinement, Some(step), n);
+        extended::update_residuals(problem, &units, &mut e, &d.f, c, &d_gamma, watch)?;
         out.passes += 1;
         prev = change;
     }
-    let residuals = extended::residuals(problem, &units, b0, &gamma);
+    watch.begin(Stage::Residuals, n);
+    let residuals = extended::residuals(problem, &units, b0, &gamma, watch)?;
     out.passes += 1;
     out.rss_scaled = extended::weighted_sum_of_squares(problem, &residuals);
     out.intercept = ldexp(b0, scaling.target_exp);

@@ -2,6 +2,7 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{qr, svd::thin_svd};
+use crate::observe::{Observer, Stage, Watch};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -105,7 +106,8 @@ impl Solver for Svd {
     /// [`Error::InvalidParameter`] for a bad cutoff; [`Error::TooLarge`]
     /// when the copy of a wide design cannot be allocated;
     /// [`Error::NoConvergence`] if the SVD iteration fails; [`Error::Overflow`].
-    fn fit(&self, problem: &Problem<'_>) -> Result<Fit> {
+    fn fit_observed(&self, problem: &Problem<'_>, observer: &dyn Observer) -> Result<Fit> {
+        let watch = Watch::new(observer);
         let cutoff = match self.rank_tolerance {
             Some(t) => check_tolerance("rank_tolerance", t)?,
             None => problem.default_rank_tolerance(),
@@ -115,9 +117,10 @@ impl Solver for Svd {
         // found with the default tolerance, as in every other solver.
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         if problem.usable_rows() < problem.parameters() {
-            return fit_wide(problem, self.name(), &scaling, cutoff);
+            return fit_wide(problem, self.name(), &scaling, cutoff, &watch);
         }
-        let r = qr::tall_skinny_r(problem, &scaling, true);
+        watch.begin(Stage::Factor, problem.rows());
+        let r = qr::tall_skinny_r(problem, &scaling, true, &watch)?;
         // Keep only the informative (non-constant) columns.
         let live: Vec<usize> = (0..p).filter(|&j| !scaling.constant[j]).collect();
         let q = live.len();
@@ -185,6 +188,7 @@ impl Solver for Svd {
             Some(condition),
             scaling.target_scale,
             0.0,
+            &watch,
         )
     }
 }
@@ -217,7 +221,13 @@ pub(crate) fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, u
 /// The minimum-norm solution of a wide problem (fewer usable rows than
 /// parameters) from a thin SVD of the transformed design itself (see the
 /// type's docs).
-fn fit_wide(problem: &Problem<'_>, name: &str, scaling: &Scaling, cutoff: f64) -> Result<Fit> {
+fn fit_wide(
+    problem: &Problem<'_>,
+    name: &str,
+    scaling: &Scaling,
+    cutoff: f64,
+    watch: &Watch<'_>,
+) -> Result<Fit> {
     let p = problem.columns();
     let usable: Vec<usize> = (0..problem.rows())
         .filter(|&i| problem.scaled_weight(i) > 0.0)
@@ -237,6 +247,7 @@ fn fit_wide(problem: &Problem<'_>, name: &str, scaling: &Scaling, cutoff: f64) -
             Some(1.0),
             scaling.target_scale,
             0.0,
+            watch,
         );
     }
     // The copy of the usable rows and the thin SVD's `U` (n x n) and `V`
@@ -332,6 +343,7 @@ fn fit_wide(problem: &Problem<'_>, name: &str, scaling: &Scaling, cutoff: f64) -
         Some(condition),
         scaling.target_scale,
         0.0,
+        watch,
     )
 }
 
