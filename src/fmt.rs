@@ -3,7 +3,7 @@
 use std::fmt;
 
 /// A number for a message: up to six significant digits between `1e-4`
-/// and `1e6` (`0.1`, `2.5`, `123456.8`), otherwise four significant
+/// and `1e6` (`0.1`, `2.5`, `12.3457`), otherwise four significant
 /// digits in scientific form (`2.824e9`, `1e-12`); trailing zeros dropped.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Num(pub f64);
@@ -106,7 +106,8 @@ mod tests {
             (1e-1, "0.1"),
             (2.824036625785946e9, "2.824e9"),
             (2.5, "2.5"),
-            (123456.789, "123456.8"),
+            (123456.789, "123457"),
+            (12.345678, "12.3457"),
             (1e-12, "1e-12"),
             (4.440892098500626e-16, "4.441e-16"),
             (-3.0, "-3"),
