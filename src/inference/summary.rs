@@ -166,7 +166,7 @@ impl fmt::Display for Diagnostics {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         writeln!(
             f,
-            "Row diagnostics: {} rows ({} used), leverages sum to {} (mean {})",
+            "Row diagnostics: {} rows ({} used; rows count from 0), leverages sum to {} (mean {})",
             self.leverage.len(),
             self.usable_rows,
             self.parameters,
