@@ -1450,3 +1450,31 @@ fn a_streamed_model_predicts_and_saves_without_intervals() {
         assert!(digits(row[5], v) >= 12.0, "{} vs {v}", row[5]);
     }
 }
+
+#[test]
+fn a_streamed_refusal_of_a_row_names_its_file_line() {
+    // The fit state refuses a positive weight too small beside the largest
+    // one seen; the row it names (counted over the whole stream) comes back
+    // as its file line, here in the third block of two rows.
+    let scratch = Scratch::new("stream-line");
+    let text = "a,w,y\n1,1e300,2\n2,1,3\n3,1,5\n# a note\n4,1,6\n5,1e-300,8\n6,1,9\n";
+    let file = scratch.write("weights.csv", text);
+    let out = run(&[
+        file.to_str().unwrap(),
+        "--target",
+        "y",
+        "--weights",
+        "w",
+        "--stream",
+        "--block-rows",
+        "2",
+    ]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains(
+            "line 7: weight 1e-300 is positive but too small beside the largest weight 1e300"
+        ),
+        "{err}"
+    );
+}

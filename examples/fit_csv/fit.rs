@@ -996,6 +996,15 @@ impl Describe<'_> {
             Error::InvalidWeight { row, value } => {
                 format!("{}: weight {value} is not valid ({e})", self.line(*row))
             }
+            Error::WeightRange {
+                row,
+                value,
+                largest,
+            } => format!(
+                "{}: weight {value:e} is positive but too small beside the largest weight \
+                 {largest:e} to be held with it; set it to 0 or narrow the range of the weights",
+                self.line(*row)
+            ),
             _ => e.to_string(),
         }
     }
