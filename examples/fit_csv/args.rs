@@ -108,7 +108,7 @@ pub struct Args {
         requires = "predict",
         conflicts_with_all = [
             "file", "target", "predictors", "weights", "no_intercept", "penalty",
-            "standardize", "tolerance", "max_iterations", "compare", "plots", "save",
+            "standardize", "tolerance", "max_iterations", "compare", "plots", "save", "stream",
         ]
     )]
     pub model: Option<PathBuf>,

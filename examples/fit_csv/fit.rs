@@ -377,7 +377,7 @@ impl Fitter {
                 lines: &[],
                 first_row: 0,
             };
-            let refused = |e: Error| describe.refused("the fit state", &e);
+            let refused = |e: Error| describe.refused("the data", &e);
             Some(if settings.solver == SolverName::Cholesky {
                 Streaming::Cross(
                     CrossProductState::new(cols, 1, settings.intercept).map_err(refused)?,
