@@ -32,7 +32,7 @@
 //! - `LinearModel::{coefficients, intercept, predict, cols}`, the `Fit` and
 //!   `FitReport` fields (`rank`, `condition` and `residual_df` are `None`
 //!   when the solver does not measure them), `IterationReport` fields;
-//! - `Error::{RankDeficient, NonFinite, InvalidWeight, InferenceRefused}`
+//! - `Error::{RankDeficient, NonFinite, InvalidWeight, WeightRange, InferenceRefused}`
 //!   (turned into column names and file lines);
 //! - the crate's serde impls of `Fit` and `Inference` for the saved model
 //!   (the library validates a deserialised `Inference` on the way in);
@@ -248,8 +248,8 @@ pub struct Summary {
     /// Streamed fits: the number of blocks absorbed (`None` when the rows
     /// were held in memory).
     pub streamed_blocks: Option<usize>,
-    /// The residual standard deviation and R² of the solver's own report
-    /// (shown when the inference is not available).
+    /// The residual standard deviation of the solver's own report (shown
+    /// for streamed fits, which have no inference).
     pub sigma: Option<f64>,
     /// R² of the solver's own report.
     pub r_squared: Option<f64>,
@@ -364,7 +364,8 @@ pub struct Predicted {
 }
 
 impl Fitter {
-    /// A fitter for rows of `cols` predictors, with or without weights.
+    /// A fitter for rows of the predictors of `names`, with or without
+    /// weights; with `settings.stream` it holds a fit state instead of rows.
     ///
     /// # Errors
     /// The library's refusal of an empty fit state (`--stream` with no
@@ -648,6 +649,12 @@ impl Fitter {
     /// Fits with every solver (unpenalised; ridge at penalty 0) and measures
     /// each against the refined QR fit (plain QR if that one fails).
     pub fn compare(self, names: &Names) -> Result<CompareRun, FitError> {
+        if self.state.is_some() {
+            return Err(FitError::Refused {
+                what: "the comparison".into(),
+                message: "it needs every row, and --stream keeps none".into(),
+            });
+        }
         let g = self.gather()?;
         let describe = Describe {
             names,
