@@ -1478,3 +1478,32 @@ fn a_streamed_refusal_of_a_row_names_its_file_line() {
         "{err}"
     );
 }
+
+#[test]
+fn the_streamed_report_says_how_the_rows_were_read_and_keeps_sigma_and_r_squared() {
+    let scratch = Scratch::new("stream-text");
+    let records = vineyard(240, 2026);
+    let file = scratch.write("vineyard.csv", &records.csv);
+    let file = file.to_str().unwrap();
+    let base = [file, "--target", "water", "--weights", "meter_weight"];
+    let with = |extra: &[&str]| -> Vec<String> {
+        base.iter().chain(extra).map(|s| s.to_string()).collect()
+    };
+    let out = run(&with(&["--stream", "--block-rows", "50"]));
+    assert!(out.status.success());
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(text.contains("240 read, 231 used"), "{text}");
+    assert!(text.contains("streamed in 5 block(s), not kept"), "{text}");
+    assert!(text.contains("no standard errors or intervals"), "{text}");
+    assert!(text.contains("sigma ") && text.contains("R^2 "), "{text}");
+    // sigma and R² of the state's report against the in-memory inference
+    // of the same file (another computation of the same definitions).
+    let streamed = run_json(&with(&["--stream", "--json"]));
+    let held = run_json(&with(&["--json"]));
+    for key in ["sigma", "r_squared"] {
+        let (a, b) = (streamed[key].as_f64().unwrap(), held[key].as_f64().unwrap());
+        assert!(digits(a, b) >= 12.0, "{key}: {a} streamed vs {b} in memory");
+    }
+    assert_eq!(held["streamed"], Value::Bool(false));
+    assert!(held["blocks"].is_null());
+}
