@@ -1086,3 +1086,424 @@ fn the_shipped_sample_is_its_generators_output_and_the_readme_command_runs() {
     let text = String::from_utf8(out.stdout).unwrap();
     assert!(text.contains("240 read, 231 used"), "{text}");
 }
+
+/// The streamed JSON (`--stream`) agrees with the in-memory `fit` to `min`
+/// digits in every slope, the intercept and the RSS, and says how it was
+/// read.
+fn assert_streamed(json: &Value, fit: &Fit, intercept: bool, min: f64, blocks: u64, case: &str) {
+    for (j, name) in PREDICTORS.iter().enumerate() {
+        let got = json["coefficients"][name]
+            .as_f64()
+            .unwrap_or_else(|| panic!("{case}: no coefficient for {name} in {json}"));
+        let want = fit.model.coefficients()[j];
+        assert!(
+            digits(got, want) >= min,
+            "{case}: {name} = {got} but the library gives {want} ({:.1} digits)",
+            digits(got, want)
+        );
+    }
+    if intercept {
+        let got = json["intercept"].as_f64().expect("intercept");
+        let want = fit.model.intercept();
+        assert!(
+            digits(got, want) >= min,
+            "{case}: intercept {got} vs {want} ({:.1} digits)",
+            digits(got, want)
+        );
+    } else {
+        assert!(json["intercept"].is_null(), "{case}: intercept not null");
+    }
+    let rss = json["rss"].as_f64().expect("rss");
+    let want = fit.report.residual_sum_of_squares;
+    assert!(
+        digits(rss, want) >= min,
+        "{case}: rss {rss} vs {want} ({:.1} digits)",
+        digits(rss, want)
+    );
+    assert_eq!(
+        json["rows_used"].as_u64(),
+        Some(fit.report.usable_rows as u64),
+        "{case}"
+    );
+    assert_eq!(json["streamed"], Value::Bool(true), "{case}");
+    assert_eq!(json["blocks"].as_u64(), Some(blocks), "{case}");
+    // The state's solver name: the in-memory solver's family with
+    // `-state` (`ridge-svd` -> `ridge-state`).
+    let solver = json["solver"].as_str().expect("solver");
+    let family = fit.report.solver.split('-').next().unwrap_or_default();
+    assert_eq!(solver, format!("{family}-state"), "{case}");
+    assert!(
+        json["standard_errors"].is_null() && json["no_inference_because"].is_string(),
+        "{case}: a streamed fit has no standard errors: {json}"
+    );
+}
+
+/// Rows in the streamed tests: four blocks of the default 8,192 rows, the
+/// last one short.
+const STREAM_DAYS: usize = 30_000;
+
+#[test]
+fn a_streamed_fit_of_many_blocks_equals_the_in_memory_fit() {
+    let scratch = Scratch::new("stream");
+    let records = vineyard(STREAM_DAYS, 19);
+    let file = scratch.write("vineyard_long.csv", &records.csv);
+    let (x, y, w) = arrays(&records);
+    let weighted = Problem::builder(x.view(), y.view())
+        .with_weights(w.view())
+        .build()
+        .unwrap();
+    let plain = Problem::builder(x.view(), y.view()).build().unwrap();
+    let through_origin = Problem::builder(x.view(), y.view())
+        .with_weights(w.view())
+        .with_intercept(false)
+        .build()
+        .unwrap();
+    let file = file.to_str().unwrap();
+    let base = [
+        file,
+        "--target",
+        "water",
+        "--predictors",
+        "air_temp,wind,soil_moisture,canopy",
+        "--json",
+        "--stream",
+    ];
+    let blocks = STREAM_DAYS.div_ceil(8192) as u64;
+    let with = |extra: &[&str]| -> Vec<String> {
+        base.iter()
+            .chain(extra)
+            .map(|s| s.to_string())
+            .collect::<Vec<_>>()
+    };
+    // QR on the same numbers is the reference (Householder QR, the
+    // library's in-memory answer); weighted, unweighted and without an
+    // intercept.
+    let cases: Vec<(&str, Vec<String>, Fit, bool, u64)> = vec![
+        (
+            "qr weighted",
+            with(&["--weights", "meter_weight"]),
+            Qr::new().fit(&weighted).unwrap(),
+            true,
+            blocks,
+        ),
+        (
+            "qr unweighted",
+            with(&[]),
+            Qr::new().fit(&plain).unwrap(),
+            true,
+            blocks,
+        ),
+        (
+            "qr no intercept",
+            with(&["--weights", "meter_weight", "--no-intercept"]),
+            Qr::new().fit(&through_origin).unwrap(),
+            false,
+            blocks,
+        ),
+        (
+            "qr in blocks of 1000",
+            with(&["--weights", "meter_weight", "--block-rows", "1000"]),
+            Qr::new().fit(&weighted).unwrap(),
+            true,
+            30,
+        ),
+        (
+            "svd weighted",
+            with(&["--weights", "meter_weight", "--solver", "svd"]),
+            Svd::new().fit(&weighted).unwrap(),
+            true,
+            blocks,
+        ),
+        (
+            "ridge 2.5 weighted",
+            with(&[
+                "--weights",
+                "meter_weight",
+                "--solver",
+                "ridge",
+                "--penalty",
+                "2.5",
+            ]),
+            Ridge::new(2.5).fit(&weighted).unwrap(),
+            true,
+            blocks,
+        ),
+    ];
+    for (case, args, fit, intercept, blocks) in &cases {
+        let json = run_json(args);
+        assert_streamed(&json, fit, *intercept, 12.0, *blocks, case);
+        assert_eq!(
+            json["rows_read"].as_u64(),
+            Some(STREAM_DAYS as u64),
+            "{case}"
+        );
+        // sigma and R² of the state's report: sigma^2 (n - p - 1) is the
+        // RSS (a definition), R² within [0, 1].
+        // Ridge reports no rank, hence no degrees of freedom and no sigma.
+        match fit.report.residual_df {
+            Some(df) => {
+                let sigma = json["sigma"].as_f64().expect("sigma");
+                let rss = json["rss"].as_f64().unwrap();
+                assert!(
+                    digits(sigma * sigma * df as f64, rss) >= 12.0,
+                    "{case}: sigma"
+                );
+            }
+            None => assert!(json["sigma"].is_null(), "{case}: sigma without df"),
+        }
+        let r2 = json["r_squared"].as_f64().expect("r_squared");
+        assert!((0.0..=1.0).contains(&r2), "{case}: R² {r2}");
+    }
+}
+
+#[test]
+fn a_streamed_cholesky_fit_equals_the_in_memory_cholesky_fit() {
+    let scratch = Scratch::new("stream-chol");
+    let records = vineyard(STREAM_DAYS, 23);
+    let file = scratch.write("vineyard_long.csv", &records.csv);
+    let (x, y, w) = arrays(&records);
+    let file = file.to_str().unwrap();
+    for weights in [true, false] {
+        let mut b = Problem::builder(x.view(), y.view());
+        let mut args = vec![
+            file,
+            "--target",
+            "water",
+            "--predictors",
+            "air_temp,wind,soil_moisture,canopy",
+            "--solver",
+            "cholesky",
+            "--json",
+            "--stream",
+        ];
+        if weights {
+            b = b.with_weights(w.view());
+            args.extend(["--weights", "meter_weight"]);
+        }
+        let problem = b.build().unwrap();
+        let fit = Cholesky::new().fit(&problem).unwrap();
+        let json = run_json(&args);
+        let case = format!("cholesky, weights {weights}");
+        assert_streamed(
+            &json,
+            &fit,
+            true,
+            12.0,
+            STREAM_DAYS.div_ceil(8192) as u64,
+            &case,
+        );
+    }
+}
+
+#[test]
+fn a_bad_value_in_a_late_block_names_its_line_and_column() {
+    let scratch = Scratch::new("stream-bad");
+    let records = vineyard(STREAM_DAYS, 29);
+    // Data row 27,001 (file line 27,002: the header is line 1) lies in the
+    // fourth block of 8,192 rows; its wind reading is replaced by text.
+    let mut lines: Vec<String> = records.csv.lines().map(str::to_string).collect();
+    let mut fields: Vec<String> = lines[27_001].split(',').map(str::to_string).collect();
+    fields[2] = "gusty".into();
+    lines[27_001] = fields.join(",");
+    let file = scratch.write("vineyard_bad.csv", &(lines.join("\n") + "\n"));
+    for stream in [true, false] {
+        let mut args = vec![
+            file.to_str().unwrap(),
+            "--target",
+            "water",
+            "--weights",
+            "meter_weight",
+        ];
+        if stream {
+            args.push("--stream");
+        }
+        let out = run(&args);
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(4), "stream {stream}: {err}");
+        assert!(
+            err.contains("line 27002, column `wind [m/s]`: `gusty` is not a number"),
+            "stream {stream}: {err}"
+        );
+        assert!(out.stdout.is_empty(), "stream {stream}: no report on error");
+    }
+}
+
+#[test]
+fn stream_refuses_the_requests_that_need_every_row() {
+    let scratch = Scratch::new("stream-refuse");
+    let records = vineyard(60, 3);
+    let file = scratch.write("vineyard.csv", &records.csv);
+    let plots = scratch.path("plots");
+    let file = file.to_str().unwrap();
+    let cases: &[(&[&str], &str)] = &[
+        (
+            &["--plots", plots.to_str().unwrap()],
+            "--plots needs every row",
+        ),
+        (&["--compare"], "--compare needs every row"),
+        (&["--solver", "ridge"], "fixed --penalty"),
+        (
+            &["--solver", "ridge", "--penalty", "gcv"],
+            "fixed --penalty",
+        ),
+        (
+            &["--solver", "gradient"],
+            "--solver gradient needs every row",
+        ),
+        (
+            &["--solver", "stochastic"],
+            "--solver stochastic needs every row",
+        ),
+        (
+            &["--solver", "qr-refined"],
+            "--solver qr-refined needs every row",
+        ),
+        (
+            &["--solver", "ridge", "--penalty", "1", "--standardize"],
+            "drop --standardize",
+        ),
+    ];
+    for (extra, want) in cases {
+        let mut args = vec![file, "--target", "water", "--stream"];
+        args.extend_from_slice(extra);
+        let out = run(&args);
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{extra:?}: {err}");
+        assert!(err.contains(want), "{extra:?}: {err}");
+        assert!(!plots.exists(), "{extra:?}: nothing written");
+    }
+    // The flags that need rows keep working without --stream.
+    let out = run(&[
+        file,
+        "--target",
+        "water",
+        "--plots",
+        plots.to_str().unwrap(),
+    ]);
+    assert!(out.status.success());
+    let help = String::from_utf8(run(&["--help"]).stdout).unwrap();
+    let line = help
+        .lines()
+        .find(|l| l.trim_start().starts_with("--stream"))
+        .expect("--stream in --help");
+    assert!(line.contains("bounded memory"), "{line}");
+    assert!(help.contains("With --stream only"), "{help}");
+}
+
+#[test]
+fn a_streamed_model_predicts_and_saves_without_intervals() {
+    let scratch = Scratch::new("stream-model");
+    let records = vineyard(STREAM_DAYS, 31);
+    let file = scratch.write("vineyard_long.csv", &records.csv);
+    let new_rows = vineyard(50, 37);
+    let new_file = scratch.write("new.csv", &new_rows.csv);
+    let (x, y, w) = arrays(&records);
+    let problem = Problem::builder(x.view(), y.view())
+        .with_weights(w.view())
+        .build()
+        .unwrap();
+    let fit = Qr::new().fit(&problem).unwrap();
+    let model = scratch.path("model.json");
+    let out1 = scratch.path("predicted.csv");
+    let out2 = scratch.path("predicted_again.csv");
+    let json = run_json(&[
+        file.to_str().unwrap(),
+        "--target",
+        "water",
+        "--predictors",
+        "air_temp,wind,soil_moisture,canopy",
+        "--weights",
+        "meter_weight",
+        "--stream",
+        "--json",
+        "--save",
+        model.to_str().unwrap(),
+        "--predict",
+        new_file.to_str().unwrap(),
+        "--out",
+        out1.to_str().unwrap(),
+    ]);
+    assert_streamed(&json, &fit, true, 12.0, 4, "save and predict");
+    let again = run(&[
+        "--model",
+        model.to_str().unwrap(),
+        "--predict",
+        new_file.to_str().unwrap(),
+        "--out",
+        out2.to_str().unwrap(),
+    ]);
+    assert!(
+        again.status.success(),
+        "{}",
+        String::from_utf8_lossy(&again.stderr)
+    );
+    let (h1, rows1) = read_rows(&out1);
+    let (h2, rows2) = read_rows(&out2);
+    assert_eq!(h1, h2);
+    assert_eq!(rows1, rows2, "the saved model predicts as the fit did");
+    // line, four predictors, the prediction: no interval columns.
+    assert_eq!(h1.len(), 6, "{h1:?}");
+    let nx = Array2::from_shape_fn((new_rows.x.len(), 4), |(i, j)| new_rows.x[i][j]);
+    let want = fit.model.predict(nx.view()).unwrap();
+    assert_eq!(rows1.len(), want.len());
+    for (row, &v) in rows1.iter().zip(want.iter()) {
+        assert!(digits(row[5], v) >= 12.0, "{} vs {v}", row[5]);
+    }
+}
+
+#[test]
+fn a_streamed_refusal_of_a_row_names_its_file_line() {
+    // The fit state refuses a positive weight too small beside the largest
+    // one seen; the row it names (counted over the whole stream) comes back
+    // as its file line, here in the third block of two rows.
+    let scratch = Scratch::new("stream-line");
+    let text = "a,w,y\n1,1e300,2\n2,1,3\n3,1,5\n# a note\n4,1,6\n5,1e-300,8\n6,1,9\n";
+    let file = scratch.write("weights.csv", text);
+    let out = run(&[
+        file.to_str().unwrap(),
+        "--target",
+        "y",
+        "--weights",
+        "w",
+        "--stream",
+        "--block-rows",
+        "2",
+    ]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains(
+            "line 7: weight 1e-300 is positive but too small beside the largest weight 1e300"
+        ),
+        "{err}"
+    );
+}
+
+#[test]
+fn the_streamed_report_says_how_the_rows_were_read_and_keeps_sigma_and_r_squared() {
+    let scratch = Scratch::new("stream-text");
+    let records = vineyard(240, 2026);
+    let file = scratch.write("vineyard.csv", &records.csv);
+    let file = file.to_str().unwrap();
+    let base = [file, "--target", "water", "--weights", "meter_weight"];
+    let with = |extra: &[&str]| -> Vec<String> {
+        base.iter().chain(extra).map(|s| s.to_string()).collect()
+    };
+    let out = run(&with(&["--stream", "--block-rows", "50"]));
+    assert!(out.status.success());
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(text.contains("240 read, 231 used"), "{text}");
+    assert!(text.contains("streamed in 5 block(s), not kept"), "{text}");
+    assert!(text.contains("no standard errors or intervals"), "{text}");
+    assert!(text.contains("sigma ") && text.contains("R^2 "), "{text}");
+    // sigma and R² of the state's report against the in-memory inference
+    // of the same file (another computation of the same definitions).
+    let streamed = run_json(&with(&["--stream", "--json"]));
+    let held = run_json(&with(&["--json"]));
+    for key in ["sigma", "r_squared"] {
+        let (a, b) = (streamed[key].as_f64().unwrap(), held[key].as_f64().unwrap());
+        assert!(digits(a, b) >= 12.0, "{key}: {a} streamed vs {b} in memory");
+    }
+    assert_eq!(held["streamed"], Value::Bool(false));
+    assert!(held["blocks"].is_null());
+}

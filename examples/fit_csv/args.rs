@@ -10,6 +10,12 @@ The file: the first row names the columns; a name may end in a unit in square br
 `load [kg]`, used on plot axes; choose a column by its whole header or by the name before
 the brackets. Lines starting with # are skipped. Every selected cell must hold a finite number.
 
+Memory: by default the rows are held in memory, which the standard errors, intervals,
+plots, ridge's chosen penalty, the gradient solvers and --compare need. With --stream only
+one block of rows is held at a time (files larger than memory work): the report keeps the
+coefficients, residual sum of squares, sigma and R^2 but has no standard errors or
+intervals, predictions come without intervals, and the flags that need every row are refused.
+
 Exit codes: 0 done; 1 the fit was refused (the message says why); 2 bad flags;
 3 a file could not be opened or read; 4 bad data in a CSV (line and column named);
 5 a saved model file is not valid; 6 an output could not be written.";
@@ -102,7 +108,7 @@ pub struct Args {
         requires = "predict",
         conflicts_with_all = [
             "file", "target", "predictors", "weights", "no_intercept", "penalty",
-            "standardize", "tolerance", "max_iterations", "compare", "plots", "save",
+            "standardize", "tolerance", "max_iterations", "compare", "plots", "save", "stream",
         ]
     )]
     pub model: Option<PathBuf>,
@@ -110,6 +116,10 @@ pub struct Args {
     /// Field separator of the CSV files (one ASCII character)
     #[arg(long, value_name = "CHAR", default_value_t = ',', value_parser = parse_separator)]
     pub separator: char,
+
+    /// Fit block by block in bounded memory (qr, cholesky, svd, or ridge with a fixed penalty); no standard errors
+    #[arg(long)]
+    pub stream: bool,
 
     /// Rows read per block
     #[arg(long, value_name = "N", default_value_t = 8192,
@@ -249,10 +259,52 @@ impl Args {
                 solver.flag()
             ));
         }
+        if self.stream {
+            self.check_stream()?;
+        }
         if let (Some(t), Some(w)) = (&self.target, &self.weights) {
             if t == w {
                 return Err(format!("`{t}` cannot be both the target and the weights"));
             }
+        }
+        Ok(())
+    }
+
+    /// `--stream` holds one block of rows at a time: the requests that need
+    /// every row are refused, each with what to drop.
+    fn check_stream(&self) -> Result<(), String> {
+        let needs_rows = |what: &str| {
+            format!("--stream holds one block of rows at a time, but {what} needs every row; drop --stream or {what}")
+        };
+        if self.compare {
+            return Err(needs_rows("--compare"));
+        }
+        if self.plots.is_some() {
+            return Err(needs_rows("--plots"));
+        }
+        match self.solver {
+            SolverName::Qr | SolverName::Cholesky | SolverName::Svd => {}
+            SolverName::Ridge => match self.penalty {
+                Some(PenaltyArg::Fixed(_)) => {}
+                Some(PenaltyArg::LeaveOneOut | PenaltyArg::Gcv) | None => {
+                    return Err("--stream fits ridge with a fixed --penalty VALUE only: \
+                                choosing the penalty (loo, gcv, the default) needs every row"
+                        .into())
+                }
+            },
+            other => {
+                return Err(format!(
+                    "--stream fits with qr, cholesky, svd or ridge with a fixed penalty; \
+                     --solver {} needs every row",
+                    other.flag()
+                ))
+            }
+        }
+        if self.standardize {
+            return Err(
+                "--stream fits ridge on the columns as they are; drop --standardize or --stream"
+                    .into(),
+            );
         }
         Ok(())
     }

@@ -4,12 +4,16 @@
 //! types defined here ([`Summary`], [`RowTable`], [`Curve`], [`Comparison`],
 //! [`Predicted`]), so a change of the library's API is absorbed here.
 //!
-//! The [`Fitter`] receives the file's rows one block at a time. Today it
-//! gathers the blocks into one in-memory design (with fallible allocation)
-//! and calls the in-memory solvers when the last block has arrived; once the
-//! library has fit states that absorb row blocks, `absorb` can feed them
-//! instead and nothing outside this file changes. The per-row tables for the
-//! plots would then come from a second pass over the file.
+//! The [`Fitter`] receives the file's rows one block at a time. By default
+//! it gathers the blocks into one in-memory design (with fallible
+//! allocation) and calls the in-memory solvers when the last block has
+//! arrived: the inference, the per-row tables, ridge's chosen penalty, the
+//! gradient solvers and the comparison need every row. With
+//! `Settings::stream` each block is absorbed into a fit state (a
+//! `TriangleState` for qr, svd and ridge at a fixed penalty, a
+//! `CrossProductState` for cholesky) and dropped, so memory stays bounded
+//! by one block whatever the file's length; the state finishes into the
+//! same kind of `Fit`, without the inference.
 //!
 //! Library calls made here (the list to revisit when the API changes):
 //! - `Problem::builder(x, y).with_weights(w).with_intercept(b).build()`, and
@@ -28,10 +32,14 @@
 //! - `LinearModel::{coefficients, intercept, predict, cols}`, the `Fit` and
 //!   `FitReport` fields (`rank`, `condition` and `residual_df` are `None`
 //!   when the solver does not measure them), `IterationReport` fields;
-//! - `Error::{RankDeficient, NonFinite, InvalidWeight, InferenceRefused}`
+//! - `Error::{RankDeficient, NonFinite, InvalidWeight, WeightRange, InferenceRefused}`
 //!   (turned into column names and file lines);
 //! - the crate's serde impls of `Fit` and `Inference` for the saved model
-//!   (the library validates a deserialised `Inference` on the way in).
+//!   (the library validates a deserialised `Inference` on the way in);
+//! - `TriangleState::{new, finish, finish_min_norm, finish_ridge}`,
+//!   `CrossProductState::{new, finish}`, `FitState::{absorb_target, layout}`
+//!   and `StateLayout::rows` (the streamed path); `FitReport::{sigma,
+//!   r_squared}` of the state fits.
 
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -39,8 +47,9 @@ use std::time::Instant;
 
 use leastline::ridge::Criterion;
 use leastline::{
-    Accelerated, Cholesky, Control, Error, Fit, GradientDescent, Inference, InferenceOptions,
-    Problem, Qr, Ridge, RidgePath, Solver, Stochastic, Svd,
+    Accelerated, Cholesky, Control, CrossProductState, Error, Fit, FitState, GradientDescent,
+    Inference, InferenceOptions, Problem, Qr, Ridge, RidgePath, Solver, Stochastic, Svd,
+    TriangleState,
 };
 use ndarray::{Array1, Array2, ArrayView2};
 use serde_json::{json, Value};
@@ -75,6 +84,9 @@ pub struct Settings {
     pub level: f64,
     /// Keep the per-row table (fitted values, leverages, ...) for plots.
     pub keep_rows: bool,
+    /// Absorb each block into a fit state instead of gathering the rows
+    /// (`--stream`; the flags were checked to allow it).
+    pub stream: bool,
 }
 
 /// Names of the columns, for messages, reports and the saved model.
@@ -120,7 +132,7 @@ impl fmt::Display for FitError {
 
 impl std::error::Error for FitError {}
 
-/// Gathers blocks of rows, then fits.
+/// Gathers blocks of rows (or absorbs them into a fit state), then fits.
 #[derive(Debug)]
 pub struct Fitter {
     settings: Settings,
@@ -129,6 +141,19 @@ pub struct Fitter {
     y: Vec<f64>,
     w: Option<Vec<f64>>,
     lines: Vec<u64>,
+    /// The fit state of the streamed path (`None` when gathering).
+    state: Option<Streaming>,
+    /// Blocks received.
+    blocks: usize,
+}
+
+/// The fit state a streamed fit absorbs its blocks into.
+#[derive(Debug)]
+enum Streaming {
+    /// qr, svd, ridge: the accuracy of QR.
+    Triangle(TriangleState),
+    /// cholesky: the normal equations.
+    Cross(CrossProductState),
 }
 
 /// How an iterative fit is going: `(iteration, iteration limit)`. Called
@@ -220,6 +245,14 @@ pub struct Summary {
     pub uncertainty: Result<Uncertainty, String>,
     /// Seconds spent in the solver.
     pub seconds: f64,
+    /// Streamed fits: the number of blocks absorbed (`None` when the rows
+    /// were held in memory).
+    pub streamed_blocks: Option<usize>,
+    /// The residual standard deviation of the solver's own report (shown
+    /// for streamed fits, which have no inference).
+    pub sigma: Option<f64>,
+    /// R² of the solver's own report.
+    pub r_squared: Option<f64>,
 }
 
 /// Per-row values for the plots (rows of non-zero weight only).
@@ -331,20 +364,78 @@ pub struct Predicted {
 }
 
 impl Fitter {
-    /// A fitter for rows of `cols` predictors, with or without weights.
-    pub fn new(settings: Settings, cols: usize, weighted: bool) -> Self {
-        Fitter {
+    /// A fitter for rows of the predictors of `names`, with or without
+    /// weights; with `settings.stream` it holds a fit state instead of rows.
+    ///
+    /// # Errors
+    /// The library's refusal of an empty fit state (`--stream` with no
+    /// predictor and no intercept, or a state too large to allocate).
+    pub fn new(settings: Settings, names: &Names, weighted: bool) -> Result<Self, FitError> {
+        let cols = names.predictors.len();
+        let state = if settings.stream {
+            let describe = Describe {
+                names,
+                lines: &[],
+                first_row: 0,
+            };
+            let refused = |e: Error| describe.refused("the data", &e);
+            Some(if settings.solver == SolverName::Cholesky {
+                Streaming::Cross(
+                    CrossProductState::new(cols, 1, settings.intercept).map_err(refused)?,
+                )
+            } else {
+                Streaming::Triangle(
+                    TriangleState::new(cols, 1, settings.intercept).map_err(refused)?,
+                )
+            })
+        } else {
+            None
+        };
+        Ok(Fitter {
             settings,
             cols,
             x: Vec::new(),
             y: Vec::new(),
             w: weighted.then(Vec::new),
             lines: Vec::new(),
-        }
+            state,
+            blocks: 0,
+        })
     }
 
-    /// Takes one block of rows (with target, and weights when weighted).
-    pub fn absorb(&mut self, block: &Block) -> Result<(), FitError> {
+    /// Takes one block of rows (with target, and weights when weighted):
+    /// into the fit state when streaming, onto the gathered rows otherwise.
+    ///
+    /// # Errors
+    /// The library's refusal of a block (naming its file line), or
+    /// [`FitError::TooLarge`] when the gathered rows cannot grow.
+    pub fn absorb(&mut self, block: &Block, names: &Names) -> Result<(), FitError> {
+        self.blocks += 1;
+        if let Some(state) = self.state.as_mut() {
+            let Some(y) = &block.y else {
+                return Err(FitError::Refused {
+                    what: "the data".into(),
+                    message: "a block arrived without its target column".into(),
+                });
+            };
+            let w = block.w.as_ref().map(|w| w.view());
+            let (result, rows_before) = match state {
+                Streaming::Triangle(t) => {
+                    let before = t.layout().rows;
+                    (t.absorb_target(block.x.view(), y.view(), w), before)
+                }
+                Streaming::Cross(c) => {
+                    let before = c.layout().rows;
+                    (c.absorb_target(block.x.view(), y.view(), w), before)
+                }
+            };
+            let describe = Describe {
+                names,
+                lines: &block.lines,
+                first_row: rows_before,
+            };
+            return result.map_err(|e| describe.refused("the data", &e));
+        }
         let n = block.rows();
         let grow = |v: &mut Vec<f64>, extra: usize| -> Result<(), FitError> {
             v.try_reserve(extra).map_err(|_| FitError::TooLarge {
@@ -385,10 +476,14 @@ impl Fitter {
 
     /// Fits with the chosen solver after the last block.
     pub fn finish(self, names: &Names, observer: Observer<'_>) -> Result<Fitted, FitError> {
+        if self.state.is_some() {
+            return self.finish_streamed(names);
+        }
         let g = self.gather()?;
         let describe = Describe {
             names,
             lines: &g.lines,
+            first_row: 0,
         };
         let problem = build_problem(&g.x, &g.y, g.w.as_ref(), g.settings.intercept)
             .map_err(|e| describe.refused("the data", &e))?;
@@ -450,6 +545,9 @@ impl Fitter {
             iterations: iterations_of(&fit),
             uncertainty,
             seconds,
+            streamed_blocks: None,
+            sigma: report.sigma,
+            r_squared: report.r_squared,
         };
         let model = Model {
             target: names.target.clone(),
@@ -466,13 +564,102 @@ impl Fitter {
         })
     }
 
+    /// Finishes the fit state of a streamed fit: the closed form of the
+    /// chosen solver, without inference (the rows are gone).
+    fn finish_streamed(self, names: &Names) -> Result<Fitted, FitError> {
+        let s = &self.settings;
+        let describe = Describe {
+            names,
+            lines: &[],
+            first_row: 0,
+        };
+        let penalty = match s.penalty {
+            Some(PenaltyArg::Fixed(v)) => v,
+            _ => 0.0,
+        };
+        let started = Instant::now();
+        let (fits, rows_read) = match &self.state {
+            Some(Streaming::Triangle(t)) => {
+                let fits = match s.solver {
+                    SolverName::Svd => t.finish_min_norm(None),
+                    SolverName::Ridge => t.finish_ridge(penalty),
+                    _ => t.finish(),
+                };
+                (fits, t.layout().rows)
+            }
+            Some(Streaming::Cross(c)) => (c.finish(), c.layout().rows),
+            None => {
+                return Err(FitError::Refused {
+                    what: s.solver.flag().into(),
+                    message: "no fit state to finish".into(),
+                })
+            }
+        };
+        let seconds = started.elapsed().as_secs_f64();
+        let fit = fits
+            .map_err(|e| describe.refused(s.solver.flag(), &e))?
+            .into_iter()
+            .next()
+            .ok_or_else(|| FitError::Refused {
+                what: s.solver.flag().into(),
+                message: "the fit state returned no fit".into(),
+            })?;
+        let report = &fit.report;
+        let summary = Summary {
+            requested: s.solver.flag(),
+            solver: report.solver.clone(),
+            coefficients: fit.model.coefficients().to_vec(),
+            intercept: s.intercept.then(|| fit.model.intercept()),
+            rss: report.residual_sum_of_squares,
+            rows_used: report.usable_rows,
+            rows_read,
+            rank: report.rank,
+            columns: report.columns,
+            condition: report.condition,
+            residual_df: report.residual_df,
+            penalty: report.penalty,
+            chosen_by: None,
+            chosen_at_edge: None,
+            iterations: None,
+            uncertainty: Err(format!(
+                "the rows were streamed in {} block(s) and not kept (--stream); \
+                 fit without --stream for them",
+                self.blocks
+            )),
+            seconds,
+            streamed_blocks: Some(self.blocks),
+            sigma: report.sigma,
+            r_squared: report.r_squared,
+        };
+        let model = Model {
+            target: names.target.clone(),
+            predictors: names.predictors.clone(),
+            intercept: s.intercept,
+            fit,
+            inference: None,
+        };
+        Ok(Fitted {
+            summary,
+            rows: None,
+            curve: None,
+            model,
+        })
+    }
+
     /// Fits with every solver (unpenalised; ridge at penalty 0) and measures
     /// each against the refined QR fit (plain QR if that one fails).
     pub fn compare(self, names: &Names) -> Result<CompareRun, FitError> {
+        if self.state.is_some() {
+            return Err(FitError::Refused {
+                what: "the comparison".into(),
+                message: "it needs every row, and --stream keeps none".into(),
+            });
+        }
         let g = self.gather()?;
         let describe = Describe {
             names,
             lines: &g.lines,
+            first_row: 0,
         };
         let problem = build_problem(&g.x, &g.y, g.w.as_ref(), g.settings.intercept)
             .map_err(|e| describe.refused("the data", &e))?;
@@ -755,7 +942,11 @@ pub fn digits(a: f64, b: f64) -> f64 {
 /// Turns the library's indices into column names and file lines.
 struct Describe<'n> {
     names: &'n Names,
+    /// File line of rows `first_row..first_row + lines.len()` (a block of
+    /// a streamed fit, or every row).
     lines: &'n [u64],
+    /// The library's row number of `lines[0]`.
+    first_row: usize,
 }
 
 impl Describe<'_> {
@@ -767,8 +958,8 @@ impl Describe<'_> {
     }
 
     fn line(&self, row: usize) -> String {
-        self.lines
-            .get(row)
+        row.checked_sub(self.first_row)
+            .and_then(|k| self.lines.get(k))
             .map_or_else(|| format!("row {row}"), |l| format!("line {l}"))
     }
 
@@ -812,6 +1003,15 @@ impl Describe<'_> {
             Error::InvalidWeight { row, value } => {
                 format!("{}: weight {value} is not valid ({e})", self.line(*row))
             }
+            Error::WeightRange {
+                row,
+                value,
+                largest,
+            } => format!(
+                "{}: weight {value:e} is positive but too small beside the largest weight \
+                 {largest:e} to be held with it; set it to 0 or narrow the range of the weights",
+                self.line(*row)
+            ),
             _ => e.to_string(),
         }
     }
@@ -864,6 +1064,7 @@ impl Model {
         let describe = Describe {
             names: &names,
             lines,
+            first_row: 0,
         };
         let refused = |e: Error| describe.refused("prediction", &e);
         match &self.inference {

@@ -17,6 +17,10 @@
 //! `solver`, `rank`, `condition`, `penalty`, `units`, and when the fit
 //! allows inference `sigma`, `r_squared`, `standard_errors`, `intervals`
 //! (otherwise `no_inference_because`); numbers JSON cannot hold are null.
+//! With `--stream` the rows pass block by block through a fit state and
+//! are not kept (memory bounded by one block): the object adds
+//! `"streamed": true` and `blocks`, keeps `sigma` and `r_squared` from the
+//! solver's report, and has no standard errors or intervals.
 //!
 //! Layout: `args` (flags), `read` (CSV blocks), `fit` (the only module that
 //! calls leastline), `report` (text and JSON), `plots` (SVG), `progress`
@@ -146,11 +150,12 @@ fn run(args: &Args) -> Result<(), Failure> {
         intercept: !args.no_intercept,
         level: args.level,
         keep_rows: args.plots.is_some(),
+        stream: args.stream,
     };
-    let mut fitter = Fitter::new(settings, names.predictors.len(), layout.weights.is_some());
+    let mut fitter = Fitter::new(settings, &names, layout.weights.is_some())?;
     let bar = bars.bytes(reader.total_bytes(), "reading");
     while let Some(block) = reader.next_block()? {
-        fitter.absorb(&block)?;
+        fitter.absorb(&block, &names)?;
         bar.set(reader.bytes_read());
     }
     bar.clear();

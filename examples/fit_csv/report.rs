@@ -107,7 +107,7 @@ pub fn text(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> String {
     };
     let _ = writeln!(
         out,
-        "  rows       {} read, {} used{}{}",
+        "  rows       {} read, {} used{}{}{}",
         s.rows_read,
         s.rows_used,
         if skipped > 0 {
@@ -115,7 +115,10 @@ pub fn text(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> String {
         } else {
             String::new()
         },
-        weights
+        weights,
+        s.streamed_blocks.map_or(String::new(), |b| format!(
+            "; streamed in {b} block(s), not kept"
+        ))
     );
     let asked = if s.requested == s.solver {
         String::new()
@@ -191,6 +194,26 @@ pub fn text(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> String {
             }
         }
         Err(why) => {
+            if s.streamed_blocks.is_some() && (s.sigma.is_some() || s.r_squared.is_some()) {
+                let unit = source
+                    .target
+                    .unit
+                    .as_deref()
+                    .map_or(String::new(), |u| format!(" {u}"));
+                let mut parts = Vec::new();
+                if let Some(sigma) = s.sigma {
+                    parts.push(format!("sigma {}{unit}", sig(sigma, 5)));
+                }
+                if let Some(r2) = s.r_squared {
+                    let about = if s.intercept.is_some() {
+                        ""
+                    } else {
+                        " (about zero)"
+                    };
+                    parts.push(format!("R^2 {}{about}", sig(r2, 5)));
+                }
+                let _ = writeln!(out, "  spread     {}", parts.join(", "));
+            }
             let _ = writeln!(out, "  spread     no standard errors or intervals: {why}");
         }
     }
@@ -260,6 +283,8 @@ pub fn json(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> Value {
             "gradient_norm": it.gradient_norm,
             "passes": it.passes,
         })),
+        "streamed": s.streamed_blocks.is_some(),
+        "blocks": s.streamed_blocks,
         "plots": outputs.plots,
         "saved_model": outputs.saved_model,
         "predictions": outputs.predictions.as_ref().map(|(from, to, n)| json!({
@@ -279,6 +304,11 @@ pub fn json(source: &Source<'_>, s: &Summary, outputs: &Outputs) -> Value {
             "intercept_standard_error": u.intercept.map(|e| e.std_error),
             "intercept_interval": u.intercept.map(|e| [e.lower, e.upper]),
             "no_inference_because": Value::Null,
+        }),
+        Err(why) if s.streamed_blocks.is_some() => json!({
+            "sigma": s.sigma,
+            "r_squared": s.r_squared,
+            "no_inference_because": why,
         }),
         Err(why) => json!({ "no_inference_because": why }),
     };
