@@ -1507,3 +1507,43 @@ fn the_streamed_report_says_how_the_rows_were_read_and_keeps_sigma_and_r_squared
     assert_eq!(held["streamed"], Value::Bool(false));
     assert!(held["blocks"].is_null());
 }
+
+/// The saved model file holds the library's own saved forms: the crate
+/// reads its `fit` (and `inference`) back with plain serde, and they are
+/// the library's fit of the same numbers.
+#[test]
+fn the_saved_model_file_is_loaded_by_the_library_itself() {
+    let scratch = Scratch::new("library-load");
+    let records = vineyard(150, 11);
+    let file = scratch.write("train.csv", &records.csv);
+    let model = scratch.path("model.json");
+    run_json(&[
+        file.to_str().unwrap(),
+        "-t",
+        "water",
+        "-x",
+        "air_temp,wind,soil_moisture,canopy",
+        "--save",
+        model.to_str().unwrap(),
+        "--json",
+    ]);
+    let saved: Value = serde_json::from_str(&std::fs::read_to_string(&model).unwrap()).unwrap();
+    let loaded: Fit =
+        serde_json::from_value(saved["fit"].clone()).expect("the library loads the fit");
+    let _inference: leastline::Inference = serde_json::from_value(saved["inference"].clone())
+        .expect("the library loads the inference");
+    let (x, y, _) = arrays(&records);
+    let problem = Problem::new(x.view(), y.view()).unwrap();
+    let reference = Qr::new().fit(&problem).unwrap();
+    for (a, b) in loaded
+        .model
+        .coefficients()
+        .iter()
+        .zip(reference.model.coefficients())
+    {
+        assert!(digits(*a, *b) >= 13.0, "{a} vs {b}");
+    }
+    assert!(digits(loaded.model.intercept(), reference.model.intercept()) >= 13.0);
+    assert_eq!(loaded.model.columns(), 4);
+    assert_eq!(loaded.model.names().len(), 4);
+}
