@@ -279,6 +279,7 @@ pub mod ridge;
 mod scaled;
 #[cfg(feature = "serde")]
 mod serde_float;
+mod settings;
 pub mod solver;
 mod solvers;
 pub mod state;

@@ -104,89 +104,40 @@ impl Accelerated {
         Self::default()
     }
 
-    /// Stop when the relative gradient norm is at most this (default `1e-6`).
-    #[must_use]
-    pub fn with_tolerance(mut self, value: f64) -> Self {
-        self.tolerance = value;
-        self
+    crate::settings::setting! {
+        /// Stop when the relative gradient norm is at most this (default `1e-6`).
+        with_tolerance / tolerance: plain f64
     }
 
-    /// The `tolerance` setting (see [`Self::with_tolerance`]).
-    pub fn tolerance(&self) -> f64 {
-        self.tolerance
+    crate::settings::setting! {
+        /// Most accepted updates (default 10,000).
+        with_max_iterations / max_iterations: plain usize
     }
 
-    /// Most accepted updates (default 10,000).
-    #[must_use]
-    pub fn with_max_iterations(mut self, value: usize) -> Self {
-        self.max_iterations = value;
-        self
+    crate::settings::setting! {
+        /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
+        with_step / step: optional f64
     }
 
-    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
-    pub fn max_iterations(&self) -> usize {
-        self.max_iterations
+    crate::settings::setting! {
+        /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+        with_penalty / penalty: plain f64
     }
 
-    /// Fixed step in internal coordinates; `None` (default) uses `1 / L`.
-    #[must_use]
-    pub fn with_step(mut self, value: f64) -> Self {
-        self.step = Some(value);
-        self
+    crate::settings::setting! {
+        /// Starting slopes in caller units (its intercept is ignored).
+        with_start / start: borrowed LinearModel
     }
 
-    /// The `step` setting (see [`Self::with_step`]).
-    pub fn step(&self) -> Option<f64> {
-        self.step
+    crate::settings::setting! {
+        /// Record the loss every this many iterations, plus the last one
+        /// (default 1; 0: no history).
+        with_history_stride / history_stride: plain usize
     }
 
-    /// L2 penalty `lambda` on the slopes, in caller units (default 0).
-    #[must_use]
-    pub fn with_penalty(mut self, value: f64) -> Self {
-        self.penalty = value;
-        self
-    }
-
-    /// The `penalty` setting (see [`Self::with_penalty`]).
-    pub fn penalty(&self) -> f64 {
-        self.penalty
-    }
-
-    /// Starting slopes in caller units (its intercept is ignored).
-    #[must_use]
-    pub fn with_start(mut self, value: LinearModel) -> Self {
-        self.start = Some(value);
-        self
-    }
-
-    /// The `start` setting (see [`Self::with_start`]).
-    pub fn start(&self) -> Option<&LinearModel> {
-        self.start.as_ref()
-    }
-
-    /// Record the loss every this many iterations, plus the last one
-    /// (default 1; 0: no history).
-    #[must_use]
-    pub fn with_history_stride(mut self, value: usize) -> Self {
-        self.history_stride = value;
-        self
-    }
-
-    /// The `history_stride` setting (see [`Self::with_history_stride`]).
-    pub fn history_stride(&self) -> usize {
-        self.history_stride
-    }
-
-    /// Return [`crate::Error::NotConverged`] instead of an unconverged fit.
-    #[must_use]
-    pub fn with_fail_if_not_converged(mut self, value: bool) -> Self {
-        self.fail_if_not_converged = value;
-        self
-    }
-
-    /// The `fail_if_not_converged` setting (see [`Self::with_fail_if_not_converged`]).
-    pub fn fail_if_not_converged(&self) -> bool {
-        self.fail_if_not_converged
+    crate::settings::setting! {
+        /// Return [`crate::Error::NotConverged`] instead of an unconverged fit.
+        with_fail_if_not_converged / fail_if_not_converged: plain bool
     }
 }
 

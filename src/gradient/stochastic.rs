@@ -240,155 +240,70 @@ impl Stochastic {
         Self::default()
     }
 
-    /// Rows per batch (default 64; at least 1).
-    #[must_use]
-    pub fn with_batch_size(mut self, value: usize) -> Self {
-        self.batch_size = value;
-        self
+    crate::settings::setting! {
+        /// Rows per batch (default 64; at least 1).
+        with_batch_size / batch_size: plain usize
     }
 
-    /// The `batch_size` setting (see [`Self::with_batch_size`]).
-    pub fn batch_size(&self) -> usize {
-        self.batch_size
+    crate::settings::setting! {
+        /// Most epochs, each a shuffled pass over the rows (default 100).
+        with_max_iterations / max_iterations: plain usize
     }
 
-    /// Most epochs, each a shuffled pass over the rows (default 100).
-    #[must_use]
-    pub fn with_max_iterations(mut self, value: usize) -> Self {
-        self.max_iterations = value;
-        self
+    crate::settings::setting! {
+        /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
+        with_step / step: optional f64
     }
 
-    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
-    pub fn max_iterations(&self) -> usize {
-        self.max_iterations
+    crate::settings::setting! {
+        /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
+        /// finite and `>= 0`; 0 keeps the step constant).
+        with_decay / decay: plain f64
     }
 
-    /// First step in internal coordinates; `None` (default) uses `1 / L_b`.
-    #[must_use]
-    pub fn with_step(mut self, value: f64) -> Self {
-        self.step = Some(value);
-        self
+    crate::settings::setting! {
+        /// Seed of the shuffling (default 0).
+        with_seed / seed: plain u64
     }
 
-    /// The `step` setting (see [`Self::with_step`]).
-    pub fn step(&self) -> Option<f64> {
-        self.step
+    crate::settings::setting! {
+        /// Plain steps only: report the average of the iterates instead of the
+        /// last one (default `true`; see the type's docs).
+        with_average / average: plain bool
     }
 
-    /// Step decay per epoch: `step / (1 + decay * epoch)` (default 0.5;
-    /// finite and `>= 0`; 0 keeps the step constant).
-    #[must_use]
-    pub fn with_decay(mut self, value: f64) -> Self {
-        self.decay = value;
-        self
+    crate::settings::setting! {
+        /// Correct every batch gradient by the latest epoch's snapshot (default
+        /// `true`; see the type's docs). `false`: plain decaying steps with
+        /// optional averaging.
+        with_variance_reduction / variance_reduction: plain bool
     }
 
-    /// The `decay` setting (see [`Self::with_decay`]).
-    pub fn decay(&self) -> f64 {
-        self.decay
+    crate::settings::setting! {
+        /// Stop when the relative gradient norm after an epoch is at most this
+        /// (default `1e-6`).
+        with_tolerance / tolerance: plain f64
     }
 
-    /// Seed of the shuffling (default 0).
-    #[must_use]
-    pub fn with_seed(mut self, value: u64) -> Self {
-        self.seed = value;
-        self
+    crate::settings::setting! {
+        /// L2 penalty `lambda` on the slopes, in caller units (default 0).
+        with_penalty / penalty: plain f64
     }
 
-    /// The `seed` setting (see [`Self::with_seed`]).
-    pub fn seed(&self) -> u64 {
-        self.seed
+    crate::settings::setting! {
+        /// Starting slopes in caller units (its intercept is ignored).
+        with_start / start: borrowed LinearModel
     }
 
-    /// Plain steps only: report the average of the iterates instead of the
-    /// last one (default `true`; see the type's docs).
-    #[must_use]
-    pub fn with_average(mut self, value: bool) -> Self {
-        self.average = value;
-        self
+    crate::settings::setting! {
+        /// Record the loss every this many epochs, plus the last one
+        /// (default 1; 0: no history).
+        with_history_stride / history_stride: plain usize
     }
 
-    /// The `average` setting (see [`Self::with_average`]).
-    pub fn average(&self) -> bool {
-        self.average
-    }
-
-    /// Correct every batch gradient by the latest epoch's snapshot (default
-    /// `true`; see the type's docs). `false`: plain decaying steps with
-    /// optional averaging.
-    #[must_use]
-    pub fn with_variance_reduction(mut self, value: bool) -> Self {
-        self.variance_reduction = value;
-        self
-    }
-
-    /// The `variance_reduction` setting (see
-    /// [`Self::with_variance_reduction`]).
-    pub fn variance_reduction(&self) -> bool {
-        self.variance_reduction
-    }
-
-    /// Stop when the relative gradient norm after an epoch is at most this
-    /// (default `1e-6`).
-    #[must_use]
-    pub fn with_tolerance(mut self, value: f64) -> Self {
-        self.tolerance = value;
-        self
-    }
-
-    /// The `tolerance` setting (see [`Self::with_tolerance`]).
-    pub fn tolerance(&self) -> f64 {
-        self.tolerance
-    }
-
-    /// L2 penalty `lambda` on the slopes, in caller units (default 0).
-    #[must_use]
-    pub fn with_penalty(mut self, value: f64) -> Self {
-        self.penalty = value;
-        self
-    }
-
-    /// The `penalty` setting (see [`Self::with_penalty`]).
-    pub fn penalty(&self) -> f64 {
-        self.penalty
-    }
-
-    /// Starting slopes in caller units (its intercept is ignored).
-    #[must_use]
-    pub fn with_start(mut self, value: LinearModel) -> Self {
-        self.start = Some(value);
-        self
-    }
-
-    /// The `start` setting (see [`Self::with_start`]).
-    pub fn start(&self) -> Option<&LinearModel> {
-        self.start.as_ref()
-    }
-
-    /// Record the loss every this many epochs, plus the last one
-    /// (default 1; 0: no history).
-    #[must_use]
-    pub fn with_history_stride(mut self, value: usize) -> Self {
-        self.history_stride = value;
-        self
-    }
-
-    /// The `history_stride` setting (see [`Self::with_history_stride`]).
-    pub fn history_stride(&self) -> usize {
-        self.history_stride
-    }
-
-    /// Return [`Error::NotConverged`] instead of an unconverged fit.
-    #[must_use]
-    pub fn with_fail_if_not_converged(mut self, value: bool) -> Self {
-        self.fail_if_not_converged = value;
-        self
-    }
-
-    /// The `fail_if_not_converged` setting (see [`Self::with_fail_if_not_converged`]).
-    pub fn fail_if_not_converged(&self) -> bool {
-        self.fail_if_not_converged
+    crate::settings::setting! {
+        /// Return [`Error::NotConverged`] instead of an unconverged fit.
+        with_fail_if_not_converged / fail_if_not_converged: plain bool
     }
 }
 

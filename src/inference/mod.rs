@@ -254,28 +254,14 @@ impl Default for InferenceOptions {
 }
 
 impl InferenceOptions {
-    /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
-    #[must_use]
-    pub fn with_covariance(mut self, value: CovarianceKind) -> Self {
-        self.covariance = value;
-        self
+    crate::settings::setting! {
+        /// The covariance of the estimates (default [`CovarianceKind::Classical`]).
+        with_covariance / covariance: plain CovarianceKind
     }
 
-    /// The `covariance` setting (see [`Self::with_covariance`]).
-    pub fn covariance(&self) -> CovarianceKind {
-        self.covariance
-    }
-
-    /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
-    #[must_use]
-    pub fn with_level(mut self, value: f64) -> Self {
-        self.level = value;
-        self
-    }
-
-    /// The `level` setting (see [`Self::with_level`]).
-    pub fn level(&self) -> f64 {
-        self.level
+    crate::settings::setting! {
+        /// Confidence level of every interval, strictly between 0 and 1 (default 0.95).
+        with_level / level: plain f64
     }
 }
 

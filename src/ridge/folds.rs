@@ -84,28 +84,14 @@ impl RowFolds {
 }
 
 impl RowFolds {
-    /// Number of folds, at least 2 and at most the usable rows.
-    #[must_use]
-    pub fn with_folds(mut self, value: usize) -> Self {
-        self.folds = value;
-        self
+    crate::settings::setting! {
+        /// Number of folds, at least 2 and at most the usable rows.
+        with_folds / folds: plain usize
     }
 
-    /// The `folds` setting (see [`Self::with_folds`]).
-    pub fn folds(&self) -> usize {
-        self.folds
-    }
-
-    /// Seed of the shuffle.
-    #[must_use]
-    pub fn with_seed(mut self, value: u64) -> Self {
-        self.seed = value;
-        self
-    }
-
-    /// The `seed` setting (see [`Self::with_seed`]).
-    pub fn seed(&self) -> u64 {
-        self.seed
+    crate::settings::setting! {
+        /// Seed of the shuffle.
+        with_seed / seed: plain u64
     }
 }
 

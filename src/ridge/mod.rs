@@ -208,40 +208,19 @@ impl Ridge {
 }
 
 impl Ridge {
-    /// The penalty `lambda >= 0`, in the caller's units.
-    #[must_use]
-    pub fn with_penalty(mut self, value: f64) -> Self {
-        self.penalty = value;
-        self
+    crate::settings::setting! {
+        /// The penalty `lambda >= 0`, in the caller's units.
+        with_penalty / penalty: plain f64
     }
 
-    /// The `penalty` setting (see [`Self::with_penalty`]).
-    pub fn penalty(&self) -> f64 {
-        self.penalty
+    crate::settings::setting! {
+        /// Penalise `sd_j * b_j` instead of `b_j` (default `false`).
+        with_standardize / standardize: plain bool
     }
 
-    /// Penalise `sd_j * b_j` instead of `b_j` (default `false`).
-    #[must_use]
-    pub fn with_standardize(mut self, value: bool) -> Self {
-        self.standardize = value;
-        self
-    }
-
-    /// The `standardize` setting (see [`Self::with_standardize`]).
-    pub fn standardize(&self) -> bool {
-        self.standardize
-    }
-
-    /// How to solve (default [`RidgeFactorization::ByShape`]).
-    #[must_use]
-    pub fn with_factorization(mut self, value: RidgeFactorization) -> Self {
-        self.factorization = value;
-        self
-    }
-
-    /// The `factorization` setting (see [`Self::with_factorization`]).
-    pub fn factorization(&self) -> RidgeFactorization {
-        self.factorization
+    crate::settings::setting! {
+        /// How to solve (default [`RidgeFactorization::ByShape`]).
+        with_factorization / factorization: plain RidgeFactorization
     }
 }
 

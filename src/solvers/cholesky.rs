@@ -102,29 +102,15 @@ impl Cholesky {
         Self::default()
     }
 
-    /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses
-    /// `max(rows, columns) * eps`.
-    #[must_use]
-    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
-        self.rank_tolerance = Some(value);
-        self
+    crate::settings::setting! {
+        /// Relative rank tolerance (as for [`crate::Qr`]); `None` uses
+        /// `max(rows, columns) * eps`.
+        with_rank_tolerance / rank_tolerance: optional f64
     }
 
-    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
-    pub fn rank_tolerance(&self) -> Option<f64> {
-        self.rank_tolerance
-    }
-
-    /// Fewest correct significant digits the caller accepts (default 4).
-    #[must_use]
-    pub fn with_min_digits(mut self, value: f64) -> Self {
-        self.min_digits = value;
-        self
-    }
-
-    /// The `min_digits` setting (see [`Self::with_min_digits`]).
-    pub fn min_digits(&self) -> f64 {
-        self.min_digits
+    crate::settings::setting! {
+        /// Fewest correct significant digits the caller accepts (default 4).
+        with_min_digits / min_digits: plain f64
     }
 }
 

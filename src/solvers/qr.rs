@@ -96,29 +96,15 @@ impl Qr {
         Self::default()
     }
 
-    /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
-    #[must_use]
-    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
-        self.rank_tolerance = Some(value);
-        self
+    crate::settings::setting! {
+        /// Relative rank tolerance; `None` uses `max(rows, columns) * eps`.
+        with_rank_tolerance / rank_tolerance: optional f64
     }
 
-    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
-    pub fn rank_tolerance(&self) -> Option<f64> {
-        self.rank_tolerance
-    }
-
-    /// Iterative refinement in extended precision; `None` (default) for
-    /// plain QR.
-    #[must_use]
-    pub fn with_refinement(mut self, value: Refinement) -> Self {
-        self.refinement = Some(value);
-        self
-    }
-
-    /// The `refinement` setting (see [`Self::with_refinement`]).
-    pub fn refinement(&self) -> Option<Refinement> {
-        self.refinement
+    crate::settings::setting! {
+        /// Iterative refinement in extended precision; `None` (default) for
+        /// plain QR.
+        with_refinement / refinement: optional Refinement
     }
 }
 

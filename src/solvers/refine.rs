@@ -93,29 +93,15 @@ impl Refinement {
         Self::default()
     }
 
-    /// Most refinement steps (default 10).
-    #[must_use]
-    pub fn with_max_iterations(mut self, value: usize) -> Self {
-        self.max_iterations = value;
-        self
+    crate::settings::setting! {
+        /// Most refinement steps (default 10).
+        with_max_iterations / max_iterations: plain usize
     }
 
-    /// The `max_iterations` setting (see [`Self::with_max_iterations`]).
-    pub fn max_iterations(&self) -> usize {
-        self.max_iterations
-    }
-
-    /// Stop when no coefficient changes by more than this fraction of
-    /// itself (default `4 * f64::EPSILON`, a few units in the last place).
-    #[must_use]
-    pub fn with_tolerance(mut self, value: f64) -> Self {
-        self.tolerance = value;
-        self
-    }
-
-    /// The `tolerance` setting (see [`Self::with_tolerance`]).
-    pub fn tolerance(&self) -> f64 {
-        self.tolerance
+    crate::settings::setting! {
+        /// Stop when no coefficient changes by more than this fraction of
+        /// itself (default `4 * f64::EPSILON`, a few units in the last place).
+        with_tolerance / tolerance: plain f64
     }
 }
 

@@ -84,16 +84,9 @@ impl Svd {
         Self::default()
     }
 
-    /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
-    #[must_use]
-    pub fn with_rank_tolerance(mut self, value: f64) -> Self {
-        self.rank_tolerance = Some(value);
-        self
-    }
-
-    /// The `rank_tolerance` setting (see [`Self::with_rank_tolerance`]).
-    pub fn rank_tolerance(&self) -> Option<f64> {
-        self.rank_tolerance
+    crate::settings::setting! {
+        /// Relative cutoff on singular values; `None` uses `max(rows, columns) * eps`.
+        with_rank_tolerance / rank_tolerance: optional f64
     }
 }
 
