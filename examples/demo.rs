@@ -192,7 +192,13 @@ fn main() {
             None => "-".to_string(),
         };
         let rank = r.rank.map_or("-".to_string(), |k| k.to_string());
-        let condition = r.condition.map_or("-".to_string(), |c| format!("{c:.2e}"));
+        let condition = r.condition.map_or("-".to_string(), |c| {
+            if c < 1e5 {
+                format!("{c:.2}")
+            } else {
+                format!("{c:.2e}")
+            }
+        });
         println!(
             "  {:<22} {:>10.3} {:>5} {:>10} {:>14.6e} {:>9.3}  {}",
             name,
