@@ -131,25 +131,11 @@ impl Solver for Svd {
                 .take_while(|&&s| s > cutoff * smax && s > 0.0)
                 .count();
             // gamma = V_r S_r^-1 U_r^T rhs (scaled coordinates of live columns).
-            let mut gamma = vec![0.0; q];
-            for i in 0..rank {
-                let coef: f64 = (0..p).map(|k| dec.u[(k, i)] * rhs[k]).sum::<f64>() / dec.s[i];
-                for (c, g) in gamma.iter_mut().enumerate() {
-                    *g += dec.v[(c, i)] * coef;
-                }
-            }
-            // Minimum norm in caller units: b_c = gamma_c 2^(e_y - e_c). Work
-            // with b_c 2^-(e_y + e_max) = gamma_c 2^(-e_c - e_max) (a common
-            // power of two, so the projection is the same) to stay in range.
-            let e_max = live
-                .iter()
-                .map(|&j| -scaling.scale_exp[j])
-                .max()
-                .unwrap_or(0);
-            let unit: Vec<i32> = live
-                .iter()
-                .map(|&j| -scaling.scale_exp[j] - e_max)
-                .collect();
+            let gamma = truncated_solve(&dec, rank, &rhs);
+            // Minimum norm in caller units: b_c = gamma_c 2^(e_y - e_c),
+            // worked in units of a common power of two (see `common_units`).
+            let exps: Vec<i32> = live.iter().map(|&j| scaling.scale_exp[j]).collect();
+            let (e_max, unit) = common_units(&exps);
             let mut b: Vec<f64> = (0..q).map(|c| ldexp(gamma[c], unit[c])).collect();
             if rank < q {
                 project_off_null_space(&mut b, &dec.v, rank, &unit);
@@ -189,6 +175,34 @@ impl Solver for Svd {
 /// Makes `b` the minimum-norm member of `b + null space`, where the null
 /// space of the scaled problem is spanned by columns `rank..` of `v`; in
 /// the units of `b` a null vector `n` becomes `n_c 2^unit_c`.
+/// `gamma = V_r S_r^-1 U_r^T rhs` over the first `rank` singular triplets
+/// of `dec`: the minimum-norm solution in the scaled coordinates.
+pub(crate) fn truncated_solve(dec: &crate::linalg::svd::Svd, rank: usize, rhs: &[f64]) -> Vec<f64> {
+    let mut gamma = vec![0.0; dec.v.nrows()];
+    for i in 0..rank {
+        let coef: f64 = rhs
+            .iter()
+            .enumerate()
+            .map(|(k, r)| dec.u[(k, i)] * r)
+            .sum::<f64>()
+            / dec.s[i];
+        for (c, g) in gamma.iter_mut().enumerate() {
+            *g += dec.v[(c, i)] * coef;
+        }
+    }
+    gamma
+}
+
+/// From the column scale exponents `e_c` of the live columns: `e_max =
+/// max(-e_c)` and `unit_c = -e_c - e_max`, so that `gamma_c 2^unit_c` is a
+/// coefficient in the caller's units divided by the common power of two
+/// `2^(e_y + e_max)` (in range, and the same factor for every column, so a
+/// projection in these units is one in the caller's).
+pub(crate) fn common_units(scale_exps: &[i32]) -> (i32, Vec<i32>) {
+    let e_max = scale_exps.iter().map(|&e| -e).max().unwrap_or(0);
+    (e_max, scale_exps.iter().map(|&e| -e - e_max).collect())
+}
+
 pub(crate) fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, unit: &[i32]) {
     let q = b.len();
     let k = v.ncols() - rank;
@@ -302,24 +316,10 @@ fn fit_wide(
     }
     // gamma = V_r S_r^-1 U_r^T z_y: the minimum-norm solution in scaled
     // coordinates.
-    let mut gamma = vec![0.0; q];
-    for i in 0..rank {
-        let coef: f64 = (0..n).map(|k| dec.u[(k, i)] * zy[k]).sum::<f64>() / dec.s[i];
-        for (c, g) in gamma.iter_mut().enumerate() {
-            *g += dec.v[(c, i)] * coef;
-        }
-    }
-    // Caller units up to a common power of two, as in the tall path:
-    // b_c = gamma_c 2^unit_c.
-    let e_max = live
-        .iter()
-        .map(|&j| -scaling.scale_exp[j])
-        .max()
-        .unwrap_or(0);
-    let unit: Vec<i32> = live
-        .iter()
-        .map(|&j| -scaling.scale_exp[j] - e_max)
-        .collect();
+    let gamma = truncated_solve(&dec, rank, &zy);
+    // Caller units up to a common power of two, as in the tall path.
+    let exps: Vec<i32> = live.iter().map(|&j| scaling.scale_exp[j]).collect();
+    let (e_max, unit) = common_units(&exps);
     let mut b: Vec<f64> = (0..q).map(|c| ldexp(gamma[c], unit[c])).collect();
     if unit.iter().any(|&u| u != unit[0]) {
         project_onto_row_space(&mut b, &dec.v, rank, &unit);

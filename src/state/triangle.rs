@@ -241,21 +241,14 @@ impl TriangleState {
                 let mut beta = vec![0.0; p];
                 let mut resid = rhs.clone();
                 if let Some(dec) = &dec {
-                    let mut gamma = vec![0.0; q];
-                    for i in 0..rank {
-                        let coef: f64 =
-                            (0..p).map(|r| dec.u[(r, i)] * rhs[r]).sum::<f64>() / dec.s[i];
-                        for (cc, g) in gamma.iter_mut().enumerate() {
-                            *g += dec.v[(cc, i)] * coef;
-                        }
-                    }
+                    let gamma = crate::solvers::svd::truncated_solve(dec, rank, &rhs);
                     for (i, r) in resid.iter_mut().enumerate() {
                         *r -= (0..q).map(|cc| r11[(i, cc)] * gamma[cc]).sum::<f64>();
                     }
                     // Minimum norm in caller units (see `Svd`): work in a
                     // common power of two so that the projection is exact.
-                    let e_max = live.iter().map(|&j| -frame.exps[j]).max().unwrap_or(0);
-                    let unit: Vec<i32> = live.iter().map(|&j| -frame.exps[j] - e_max).collect();
+                    let exps: Vec<i32> = live.iter().map(|&j| frame.exps[j]).collect();
+                    let (e_max, unit) = crate::solvers::svd::common_units(&exps);
                     let mut b: Vec<f64> = (0..q).map(|cc| ldexp(gamma[cc], unit[cc])).collect();
                     if rank < q {
                         crate::solvers::svd::project_off_null_space(&mut b, &dec.v, rank, &unit);
