@@ -20,9 +20,18 @@
 //!
 //! A counting global allocator measures the peak of live heap bytes while
 //! streaming (`peak_bytes`). It does not grow with the rows; it does
-//! include fixed workspaces of the libraries underneath (faer's
-//! matrix-multiply backend keeps a 64 MiB buffer per thread that multiplies
-//! once the blocks are large enough, held until the program ends).
+//! include fixed workspaces of the libraries underneath: faer's x86
+//! matrix-multiply kernel reserves, once per thread that multiplies, a
+//! packing buffer of twice the L3 cache size (64 MiB on a processor with a
+//! 32 MiB L3), held until the program ends; only the pages it touches
+//! become resident. `peak_resident_bytes` is the operating system's count
+//! (Linux `VmHWM`, reset through `/proc/self/clear_refs` when streaming
+//! starts; null elsewhere): the whole process, the program's code included.
+//!
+//! `--write-csv FILE` writes the generated rows to a CSV file instead of
+//! fitting them (for the out-of-core benchmark in the README: write a large
+//! file once, then fit it with `--csv`). `--compare-in-memory` runs the
+//! in-memory comparison above the default limit of 2e7 values.
 //! `state_bytes` is the size of the state's payload ([`StateData`])
 //! written at fixed width: 8 bytes per float and per count, 4 per exponent
 //! and version, 1 per flag, the bytes of the strings; it depends on the columns only, never on the rows.
@@ -36,6 +45,7 @@
 //!
 //! `--json` prints one line: `rows`, `cols`, `blocks`, `block_rows`,
 //! `digits_vs_in_memory`, `state_bytes`, `state_json_bytes`, `peak_bytes`,
+//! `peak_resident_bytes`,
 //! `in_memory_peak_bytes` (null when skipped), `source` (`"generated"` or
 //! `"csv"`), `intercept` and `coefficients`. Without it a short plain
 //! report.
@@ -125,6 +135,34 @@ fn peak() -> usize {
     PEAK.load(Ordering::Relaxed)
 }
 
+/// Starts a new measurement of the operating system's peak resident set
+/// (Linux: writing `5` to `/proc/self/clear_refs` resets `VmHWM`). Returns
+/// whether the reset worked; elsewhere the peak stays unmeasured.
+fn reset_resident_peak() -> bool {
+    std::fs::write("/proc/self/clear_refs", "5").is_ok()
+}
+
+/// The process's peak resident set in bytes since the last reset
+/// (`VmHWM` of `/proc/self/status`), if the system reports it.
+fn resident_peak() -> Option<usize> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kib: usize = line
+        .trim_start_matches("VmHWM:")
+        .trim()
+        .trim_end_matches("kB")
+        .trim()
+        .parse()
+        .ok()?;
+    kib.checked_mul(1024)
+}
+
+/// Both peaks, the allocator's and the system's, started together.
+fn start_measuring() -> bool {
+    reset_peak();
+    reset_resident_peak()
+}
+
 /// Values above which the in-memory comparison is skipped.
 const IN_MEMORY_LIMIT: usize = 20_000_000;
 
@@ -156,6 +194,14 @@ struct Args {
     /// Print one line of JSON.
     #[arg(long)]
     json: bool,
+    /// Write the generated rows to this CSV file (header `reading_1`, ..,
+    /// `energy`; shortest round-trip decimals) instead of fitting them.
+    #[arg(long, conflicts_with = "csv")]
+    write_csv: Option<PathBuf>,
+    /// Fit the same rows in memory with Qr and compare even above 2e7
+    /// values (the whole design is then held in memory once).
+    #[arg(long)]
+    compare_in_memory: bool,
 }
 
 /// Why the program stops.
@@ -438,6 +484,7 @@ struct Outcome {
     state_bytes: usize,
     state_json_bytes: usize,
     peak_bytes: usize,
+    peak_resident_bytes: Option<usize>,
     in_memory: Option<InMemory>,
     source: &'static str,
 }
@@ -446,6 +493,11 @@ struct Outcome {
 struct InMemory {
     digits: f64,
     peak_bytes: usize,
+}
+
+/// Whether the in-memory comparison runs for `rows x cols` values.
+fn compare_wanted(args: &Args, rows: usize, cols: usize) -> bool {
+    args.compare_in_memory || rows.saturating_mul(cols) <= IN_MEMORY_LIMIT
 }
 
 /// The state's payload written at fixed width (see the module docs).
@@ -473,6 +525,25 @@ fn digits(a: f64, b: f64) -> f64 {
 
 fn main() -> ExitCode {
     let args = Args::parse();
+    if let Some(path) = &args.write_csv {
+        return match write_csv(&args, path) {
+            Ok(bytes) => {
+                if args.json {
+                    println!(
+                        "{}",
+                        serde_json::json!({"written": path.display().to_string(), "bytes": bytes})
+                    );
+                } else {
+                    println!("wrote {bytes} bytes to {}", path.display());
+                }
+                ExitCode::SUCCESS
+            }
+            Err(f) => {
+                eprintln!("stream_fit: error: {f}");
+                ExitCode::from(f.code())
+            }
+        };
+    }
     match run(&args) {
         Ok(out) => {
             if args.json {
@@ -519,10 +590,53 @@ fn run(args: &Args) -> Result<Outcome, Failure> {
             let block_rows = args
                 .block_rows
                 .unwrap_or_else(|| rows.div_ceil(args.blocks));
-            generated(rows, cols, block_rows)
+            generated(args, rows, cols, block_rows)
         }
         Source::Csv(path) => from_csv(args, &path),
     }
+}
+
+/// Writes the generated rows (`--rows` x `--cols`) to `path` as CSV, one
+/// row at a time through a buffered writer; returns the bytes written.
+/// Values are written in Rust's shortest round-trip form, so reading the
+/// file back gives the same numbers bit for bit.
+fn write_csv(args: &Args, path: &Path) -> Result<u64, Failure> {
+    let (rows, cols) = match (args.rows, args.cols) {
+        (Some(r), Some(c)) if r > 0 && c > 0 => (r, c),
+        _ => {
+            return Err(Failure::Usage(
+                "--write-csv needs --rows and --cols, both at least 1".into(),
+            ))
+        }
+    };
+    let io = |e: std::io::Error| Failure::Io(format!("cannot write {}: {e}", path.display()));
+    let file = File::create(path).map_err(io)?;
+    let mut out = csv::Writer::from_writer(std::io::BufWriter::with_capacity(1 << 20, file));
+    let csv_io = |e: csv::Error| Failure::Io(format!("cannot write {}: {e}", path.display()));
+    let mut header: Vec<String> = (1..=cols).map(|j| format!("reading_{j}")).collect();
+    header.push("energy".into());
+    out.write_record(&header).map_err(csv_io)?;
+    let bar = Bar::new(
+        rows as u64,
+        "writing [{bar:32}] {pos}/{len} rows ({eta} left)",
+    );
+    let mut made = rooms::Rows::new(cols);
+    let mut x = Vec::with_capacity(cols);
+    let mut fields: Vec<String> = Vec::with_capacity(cols + 1);
+    for i in 0..rows {
+        x.clear();
+        let e = made.next(&mut x);
+        fields.clear();
+        fields.extend(x.iter().map(|v| v.to_string()));
+        fields.push(e.to_string());
+        out.write_record(&fields).map_err(csv_io)?;
+        if i % 65_536 == 0 {
+            bar.set(i as u64);
+        }
+    }
+    out.flush().map_err(io)?;
+    drop(bar);
+    std::fs::metadata(path).map(|m| m.len()).map_err(io)
 }
 
 /// Absorbs a block into the state and clears it.
@@ -564,10 +678,10 @@ fn compare(x: Array2<f64>, y: Array1<f64>, intercept: f64, coefs: &[f64]) -> Res
     Ok(d)
 }
 
-fn generated(rows: usize, cols: usize, block_rows: usize) -> Result<Outcome, Failure> {
+fn generated(args: &Args, rows: usize, cols: usize, block_rows: usize) -> Result<Outcome, Failure> {
     let block_rows = block_rows.min(rows);
     let mut state = TriangleState::new(cols, 1, true).map_err(refused)?;
-    reset_peak();
+    let resident = start_measuring();
     let bar = Bar::new(
         rows as u64,
         "generating [{bar:32}] {pos}/{len} rows ({eta} left)",
@@ -591,9 +705,10 @@ fn generated(rows: usize, cols: usize, block_rows: usize) -> Result<Outcome, Fai
     drop(bar);
     let (intercept, coefficients, state_bytes, state_json_bytes) = finish(&state)?;
     let peak_bytes = peak();
+    let peak_resident_bytes = if resident { resident_peak() } else { None };
     drop(state);
 
-    let in_memory = if rows.saturating_mul(cols) <= IN_MEMORY_LIMIT {
+    let in_memory = if compare_wanted(args, rows, cols) {
         reset_peak();
         let mut x = checked_vec("in-memory design", product("in-memory design", rows, cols)?)?;
         let mut y = checked_vec("in-memory target", rows)?;
@@ -622,6 +737,7 @@ fn generated(rows: usize, cols: usize, block_rows: usize) -> Result<Outcome, Fai
         state_bytes,
         state_json_bytes,
         peak_bytes,
+        peak_resident_bytes,
         in_memory,
         source: "generated",
     })
@@ -653,7 +769,7 @@ fn from_csv(args: &Args, path: &Path) -> Result<Outcome, Failure> {
     let mut state = TriangleState::new(cols, 1, true)
         .and_then(|s| s.with_names(reader.names[..cols].to_vec()))
         .map_err(refused)?;
-    reset_peak();
+    let resident = start_measuring();
     let bar = Bar::new(
         size,
         "reading [{bar:32}] {bytes}/{total_bytes} ({eta} left)",
@@ -684,9 +800,10 @@ fn from_csv(args: &Args, path: &Path) -> Result<Outcome, Failure> {
     }
     let (intercept, coefficients, state_bytes, state_json_bytes) = finish(&state)?;
     let peak_bytes = peak();
+    let peak_resident_bytes = if resident { resident_peak() } else { None };
     drop(state);
 
-    let in_memory = if rows.saturating_mul(cols) <= IN_MEMORY_LIMIT {
+    let in_memory = if compare_wanted(args, rows, cols) {
         reset_peak();
         let mut whole = Block::with_capacity(rows, cols)?;
         let mut again = CsvRows::open(path)?;
@@ -717,6 +834,7 @@ fn from_csv(args: &Args, path: &Path) -> Result<Outcome, Failure> {
         state_bytes,
         state_json_bytes,
         peak_bytes,
+        peak_resident_bytes,
         in_memory,
         source: "csv",
     })
@@ -733,6 +851,7 @@ fn json(o: &Outcome) -> String {
         "state_bytes": o.state_bytes,
         "state_json_bytes": o.state_json_bytes,
         "peak_bytes": o.peak_bytes,
+        "peak_resident_bytes": o.peak_resident_bytes,
         "in_memory_peak_bytes": o.in_memory.as_ref().map(|m| m.peak_bytes),
         "source": o.source,
         "intercept": o.intercept,
@@ -752,6 +871,9 @@ fn text(o: &Outcome) -> String {
         o.state_bytes, o.state_json_bytes
     );
     s += &format!("peak heap while streaming: {:.2} MiB\n", mib(o.peak_bytes));
+    if let Some(r) = o.peak_resident_bytes {
+        s += &format!("peak resident set while streaming: {:.2} MiB\n", mib(r));
+    }
     match &o.in_memory {
         Some(m) => {
             s += &format!(
