@@ -124,6 +124,7 @@
 
 mod diagnostics;
 mod distributions;
+pub(crate) mod from_state;
 mod goodness;
 mod predict;
 mod summary;
@@ -340,6 +341,13 @@ pub enum InferenceRefusal {
         #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         bound: f64,
     },
+    /// A sandwich covariance was asked of a fit state: it needs every
+    /// row's residual and leverage, which a state does not keep (the
+    /// second pass over the same blocks gives it).
+    NeedsRows {
+        /// The covariance asked for.
+        covariance: CovarianceKind,
+    },
 }
 
 impl fmt::Display for InferenceRefusal {
@@ -382,6 +390,11 @@ impl fmt::Display for InferenceRefusal {
             InferenceRefusal::FarFromSolution { distance, bound } => write!(
                 f,
                 "the fit's coefficients are {distance:.3e} standard errors from the exact least-squares solution (at most {bound} accepted): fit with a closed-form solver, or tighten the iterative tolerance"
+            ),
+            InferenceRefusal::NeedsRows { covariance } => write!(
+                f,
+                "the {} covariance needs every row's residual and leverage, which a fit state does not keep: feed the blocks again to the state's second pass",
+                covariance.name()
             ),
         }
     }
@@ -570,6 +583,79 @@ pub(crate) fn norm(v: impl Iterator<Item = f64> + Clone) -> f64 {
     let e = exponent(big);
     let s: f64 = v.map(|x| ldexp(x, -e).powi(2)).sum();
     ldexp(s.sqrt(), e)
+}
+
+/// Fills the intercept's row of `v` (the map from orthonormal coordinates
+/// to slopes and intercept in scaled units): `-a^T R^-1`, then
+/// `1 / sqrt(W)`, with `a` the scaled column means.
+fn intercept_row(v: &mut Mat<f64>, r: faer::MatRef<'_, f64>, a: &[f64], sqrt_w: f64) {
+    let p = r.ncols();
+    let mut t = a.to_vec();
+    solve_upper_transposed(r, &mut t);
+    for (c, tc) in t.iter().enumerate() {
+        v[(p, c)] = -tc;
+    }
+    v[(p, p)] = 1.0 / sqrt_w;
+}
+
+/// Every parameter's [`Estimate`] from the diagonal `variances_m` of the
+/// covariance in scaled units divided by `2^cov_exp`, the exponents
+/// `units` mapping each parameter to caller units, its value in caller
+/// (`values`) and scaled (`scaled_values`) units, the t quantile and the
+/// residual degrees of freedom.
+fn assemble_estimates(
+    variances_m: &[f64],
+    cov_exp: i32,
+    units: &[i32],
+    values: &[f64],
+    scaled_values: &[f64],
+    critical: f64,
+    dff: f64,
+) -> Result<Vec<Estimate>> {
+    let mut estimates = Vec::with_capacity(values.len());
+    for i in 0..values.len() {
+        // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
+        // se_m and the exponents (nothing underflows on the way).
+        let se_m = variances_m[i].max(0.0).sqrt();
+        let half = cov_exp / 2;
+        let t = ldexp(ratio(scaled_values[i], se_m), -half);
+        let se = ldexp(se_m, units[i] + half);
+        let margin = critical * se;
+        let e = Estimate {
+            value: values[i],
+            std_error: se,
+            t,
+            p_value: distributions::t_two_sided_p(t, dff),
+            lower: values[i] - margin,
+            upper: values[i] + margin,
+        };
+        if !(e.lower.is_finite() && e.upper.is_finite()) {
+            return Err(Error::Overflow {
+                what: "confidence interval",
+            });
+        }
+        estimates.push(e);
+    }
+    Ok(estimates)
+}
+
+/// The residual variance and its square root in caller units from
+/// `sigma~ = sigma_m 2^sigma_exp` (scaled units), the target's exponent
+/// `ey` and the weights' `ws_exp`: `sigma^2 = sigma~^2 s_y^2 ws`, with
+/// `sqrt(ws)` split into an even power.
+fn residual_spread(sigma_m: f64, sigma_exp: i32, ey: i32, ws_exp: i32) -> Result<(f64, f64)> {
+    let variance_exp = 2 * ey + ws_exp;
+    let residual_variance = ldexp(sigma_m * sigma_m, variance_exp + 2 * sigma_exp);
+    let residual_sd = ldexp(
+        sigma_m * f64::from(1 << ws_exp.rem_euclid(2)).sqrt(),
+        ey + ws_exp.div_euclid(2) + sigma_exp,
+    );
+    if !residual_variance.is_finite() || !residual_sd.is_finite() {
+        return Err(Error::Overflow {
+            what: "residual variance",
+        });
+    }
+    Ok((residual_variance, residual_sd))
 }
 
 impl Inference {
@@ -835,12 +921,7 @@ impl Inference {
         };
 
         if has_intercept {
-            let mut t = a.clone();
-            solve_upper_transposed(r, &mut t);
-            for (c, tc) in t.iter().enumerate() {
-                v[(p, c)] = -tc;
-            }
-            v[(p, p)] = 1.0 / sqrt_w;
+            intercept_row(&mut v, r, &a, sqrt_w);
         }
         // The covariance, formed in scaled units (up to the power of two
         // 2^cov_exp) straight into the result's array (by tiles: no other
@@ -884,46 +965,19 @@ impl Inference {
             .copied()
             .chain(has_intercept.then_some(b0))
             .collect();
-        let mut estimates = Vec::with_capacity(q);
-        for i in 0..q {
-            // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
-            // se_m and the exponents (nothing underflows on the way).
-            let se_m = variances_m[i].max(0.0).sqrt();
-            let half = cov_exp / 2;
-            let t = ldexp(ratio(scaled_values[i], se_m), -half);
-            let se = ldexp(se_m, units[i] + half);
-            let margin = critical * se;
-            let e = Estimate {
-                value: values[i],
-                std_error: se,
-                t,
-                p_value: distributions::t_two_sided_p(t, dff),
-                lower: values[i] - margin,
-                upper: values[i] + margin,
-            };
-            if !(e.lower.is_finite() && e.upper.is_finite()) {
-                return Err(Error::Overflow {
-                    what: "confidence interval",
-                });
-            }
-            estimates.push(e);
-        }
+        let mut estimates = assemble_estimates(
+            &variances_m,
+            cov_exp,
+            &units,
+            &values,
+            &scaled_values,
+            critical,
+            dff,
+        )?;
         let intercept = if has_intercept { estimates.pop() } else { None };
         let coefficients = estimates;
 
-        // The residual variance and its square root in caller units:
-        // sigma^2 = sigma~^2 s_y^2 ws; sqrt(ws) split into an even power.
-        let variance_exp = 2 * ey + ws_exp;
-        let residual_variance = ldexp(sigma_m * sigma_m, variance_exp + 2 * sigma_exp);
-        let residual_sd = ldexp(
-            sigma_m * f64::from(1 << ws_exp.rem_euclid(2)).sqrt(),
-            ey + ws_exp.div_euclid(2) + sigma_exp,
-        );
-        if !residual_variance.is_finite() || !residual_sd.is_finite() {
-            return Err(Error::Overflow {
-                what: "residual variance",
-            });
-        }
+        let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
         let inv_sy = 1.0 / scaling.target_scale;
         let tss_scaled = extended::centered_target_sum_of_squares(
             problem,
@@ -933,7 +987,9 @@ impl Inference {
             },
         );
         let goodness = goodness::compute(goodness::Inputs {
-            problem,
+            n,
+            centered: has_intercept,
+            log_weights: goodness::log_weights(problem),
             r,
             gamma: &gamma,
             meat: meat.as_ref().map(|m| crate::linalg::as_faer(&m.view())),
@@ -942,7 +998,7 @@ impl Inference {
             rss_norm,
             tss_scaled,
             t_norm,
-            sum_exp: variance_exp,
+            sum_exp: 2 * ey + ws_exp,
             df,
             parameters: k,
         })?;

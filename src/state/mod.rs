@@ -76,6 +76,7 @@
 //! ```
 
 mod cross;
+mod inference;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
@@ -180,6 +181,9 @@ pub(crate) struct Core {
     pub wexp: i32,
     /// Largest weight seen (0 before any usable row).
     pub largest_weight: f64,
+    /// `sum ln w_i` over the usable rows (0 without weights): the
+    /// log-likelihood's weight term.
+    pub log_weights: f64,
     /// Weighted means of the `p + k` columns (0 without an intercept).
     pub means: Vec<f64>,
     /// Smallest and largest value of each column over usable rows
@@ -277,6 +281,7 @@ impl Core {
             weight: 0.0,
             wexp: 0,
             largest_weight: 0.0,
+            log_weights: 0.0,
             means: vec![0.0; width],
             lo: vec![f64::INFINITY; width],
             hi: vec![f64::NEG_INFINITY; width],
@@ -447,10 +452,12 @@ impl Core {
         };
         let largest = self.largest_weight.max(wmax);
         let mut total = Neumaier::default();
+        let mut log_weights = Neumaier::default();
         let mut usable = 0usize;
         for i in 0..n {
             let v = wt(i);
             if v > 0.0 {
+                log_weights.add(v.ln());
                 let s = ldexp(v, -2 * wexp);
                 if s < f64::MIN_POSITIVE {
                     return Err(Error::WeightRange {
@@ -490,6 +497,7 @@ impl Core {
             weight: total.value(),
             wexp,
             largest_weight: wmax,
+            log_weights: log_weights.value(),
             means,
             lo,
             hi,
@@ -581,6 +589,7 @@ impl Core {
         self.weight = total;
         self.wexp = wexp;
         self.largest_weight = self.largest_weight.max(other.largest_weight);
+        self.log_weights += other.log_weights;
         self.lo = lo;
         self.hi = hi;
         self.exps = exps;
