@@ -6,10 +6,10 @@
 use faer::{Mat, MatRef};
 
 use super::{
-    assemble_estimates, goodness, intercept_row, refuse, residual_spread, student_t_quantile,
-    Basis, CovarianceKind, Inference, InferenceOptions, InferenceRefusal,
+    estimates_from_covariance, goodness, intercept_row, refuse, residual_spread, Basis,
+    CovarianceKind, Inference, InferenceOptions, InferenceRefusal,
 };
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::linalg::{products::congruence_into, triangular};
 use crate::scaled::{exponent, ldexp, pow2};
 
@@ -108,41 +108,19 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
     );
     drop(v);
     let cov_exp = 2 * sigma_exp;
-    let variances_m: Vec<f64> = (0..q).map(|i| covariance[[i, i]]).collect();
     let mut units: Vec<i32> = (0..p).map(|j| ey - parts.col_exps[j]).collect();
     if has_intercept {
         units.push(ey);
     }
-    for ((i, j), c) in covariance.indexed_iter_mut() {
-        *c = ldexp(*c, units[i] + units[j] + cov_exp);
-    }
-    if covariance.iter().any(|c| !c.is_finite()) {
-        return Err(Error::Overflow {
-            what: "covariance matrix",
-        });
-    }
-    let critical = student_t_quantile(0.5 + 0.5 * options.level, dff)?;
-    let values: Vec<f64> = parts
-        .beta
-        .iter()
-        .copied()
-        .chain(has_intercept.then_some(parts.intercept_value))
-        .collect();
-    let scaled_values: Vec<f64> = gamma
-        .iter()
-        .copied()
-        .chain(has_intercept.then_some(b0))
-        .collect();
-    let mut estimates = assemble_estimates(
-        &variances_m,
+    let (coefficients, intercept, critical) = estimates_from_covariance(
+        &mut covariance,
         cov_exp,
         &units,
-        &values,
-        &scaled_values,
-        critical,
+        (parts.beta, has_intercept.then_some(parts.intercept_value)),
+        (gamma, b0),
+        options.level,
         dff,
     )?;
-    let intercept = if has_intercept { estimates.pop() } else { None };
     let ws_exp = parts.weight_exp;
     let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
     let tnorm = parts.tnorm;
@@ -183,7 +161,7 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
         options,
         solver: parts.solver,
         names: parts.names,
-        coefficients: estimates,
+        coefficients,
         intercept,
         covariance,
         residual_variance,

@@ -598,36 +598,54 @@ fn intercept_row(v: &mut Mat<f64>, r: faer::MatRef<'_, f64>, a: &[f64], sqrt_w: 
     v[(p, p)] = 1.0 / sqrt_w;
 }
 
-/// Every parameter's [`Estimate`] from the diagonal `variances_m` of the
-/// covariance in scaled units divided by `2^cov_exp`, the exponents
-/// `units` mapping each parameter to caller units, its value in caller
-/// (`values`) and scaled (`scaled_values`) units, the t quantile and the
-/// residual degrees of freedom.
-fn assemble_estimates(
-    variances_m: &[f64],
+/// Maps `covariance` (scaled units divided by `2^cov_exp`) to caller units
+/// in place, with the exponents `units` of every parameter (columns, then
+/// the intercept), and forms every [`Estimate`] at the confidence level:
+/// `values` are the slopes and the intercept (when fitted) in caller units,
+/// `scaled` the slopes and the intercept in scaled units. Returns the
+/// slopes' estimates, the intercept's and the t quantile.
+fn estimates_from_covariance(
+    covariance: &mut Array2<f64>,
     cov_exp: i32,
     units: &[i32],
-    values: &[f64],
-    scaled_values: &[f64],
-    critical: f64,
+    values: (&[f64], Option<f64>),
+    scaled: (&[f64], f64),
+    level: f64,
     dff: f64,
-) -> Result<Vec<Estimate>> {
-    let mut estimates = Vec::with_capacity(values.len());
-    for i in 0..values.len() {
+) -> Result<(Vec<Estimate>, Option<Estimate>, f64)> {
+    let variances_m: Vec<f64> = (0..units.len()).map(|i| covariance[[i, i]]).collect();
+    for ((i, j), c) in covariance.indexed_iter_mut() {
+        *c = ldexp(*c, units[i] + units[j] + cov_exp);
+    }
+    if covariance.iter().any(|c| !c.is_finite()) {
+        return Err(Error::Overflow {
+            what: "covariance matrix",
+        });
+    }
+    let critical = student_t_quantile(0.5 + 0.5 * level, dff)?;
+    let caller: Vec<f64> = values.0.iter().copied().chain(values.1).collect();
+    let inner: Vec<f64> = scaled
+        .0
+        .iter()
+        .copied()
+        .chain(values.1.map(|_| scaled.1))
+        .collect();
+    let mut estimates = Vec::with_capacity(caller.len());
+    for i in 0..caller.len() {
         // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
         // se_m and the exponents (nothing underflows on the way).
         let se_m = variances_m[i].max(0.0).sqrt();
         let half = cov_exp / 2;
-        let t = ldexp(ratio(scaled_values[i], se_m), -half);
+        let t = ldexp(ratio(inner[i], se_m), -half);
         let se = ldexp(se_m, units[i] + half);
         let margin = critical * se;
         let e = Estimate {
-            value: values[i],
+            value: caller[i],
             std_error: se,
             t,
             p_value: distributions::t_two_sided_p(t, dff),
-            lower: values[i] - margin,
-            upper: values[i] + margin,
+            lower: caller[i] - margin,
+            upper: caller[i] + margin,
         };
         if !(e.lower.is_finite() && e.upper.is_finite()) {
             return Err(Error::Overflow {
@@ -636,7 +654,12 @@ fn assemble_estimates(
         }
         estimates.push(e);
     }
-    Ok(estimates)
+    let intercept = if values.1.is_some() {
+        estimates.pop()
+    } else {
+        None
+    };
+    Ok((estimates, intercept, critical))
 }
 
 /// The residual variance and its square root in caller units from
@@ -943,39 +966,16 @@ impl Inference {
             },
         );
         drop(v);
-        let variances_m: Vec<f64> = (0..q).map(|i| covariance[[i, i]]).collect();
         let units = unit_exponents(&scaling, p, has_intercept);
-        for ((i, j), c) in covariance.indexed_iter_mut() {
-            *c = ldexp(*c, units[i] + units[j] + cov_exp);
-        }
-        if covariance.iter().any(|c| !c.is_finite()) {
-            return Err(Error::Overflow {
-                what: "covariance matrix",
-            });
-        }
-
-        let critical = student_t_quantile(0.5 + 0.5 * options.level, dff)?;
-        let values: Vec<f64> = beta
-            .iter()
-            .copied()
-            .chain(has_intercept.then_some(intercept_value))
-            .collect();
-        let scaled_values: Vec<f64> = gamma
-            .iter()
-            .copied()
-            .chain(has_intercept.then_some(b0))
-            .collect();
-        let mut estimates = assemble_estimates(
-            &variances_m,
+        let (coefficients, intercept, critical) = estimates_from_covariance(
+            &mut covariance,
             cov_exp,
             &units,
-            &values,
-            &scaled_values,
-            critical,
+            (&beta, has_intercept.then_some(intercept_value)),
+            (&gamma, b0),
+            options.level,
             dff,
         )?;
-        let intercept = if has_intercept { estimates.pop() } else { None };
-        let coefficients = estimates;
 
         let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
         let inv_sy = 1.0 / scaling.target_scale;

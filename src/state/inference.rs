@@ -27,20 +27,20 @@ impl Core {
 
     /// Inference for target `t` from the design's factor `r` (frame
     /// units), the slopes `gamma` with `r gamma = Q^T t`, the residual and
-    /// total norms and the state's fit of that target.
+    /// total norms and the state's fits.
     #[allow(clippy::too_many_arguments)]
     fn inference_from(
         &self,
         frame: &Frame,
         r: MatRef<'_, f64>,
         gamma: &[f64],
-        rnorm: f64,
-        tnorm: f64,
-        fit: &Fit,
+        [rnorm, tnorm]: [f64; 2],
+        fits: &[Fit],
         t: usize,
         options: InferenceOptions,
     ) -> Result<Inference> {
         let p = self.p;
+        let fit = &fits[t];
         from_factor(
             FactorParts {
                 r,
@@ -131,16 +131,7 @@ impl TriangleState {
         triangular::solve_upper(r11, &mut gamma);
         let rnorm = norm((p..=c).map(|i| rf[(i, c)]));
         let tnorm = norm((0..=c).map(|i| rf[(i, c)]));
-        core.inference_from(
-            &frame,
-            r11,
-            &gamma,
-            rnorm,
-            tnorm,
-            &fits[target],
-            target,
-            options,
-        )
+        core.inference_from(&frame, r11, &gamma, [rnorm, tnorm], &fits, target, options)
     }
 }
 
@@ -194,9 +185,8 @@ impl CrossProductState {
             &frame,
             r.as_ref(),
             &gamma,
-            rnorm,
-            tnorm,
-            &fits[target],
+            [rnorm, tnorm],
+            &fits,
             target,
             options,
         )
