@@ -42,11 +42,17 @@
 //! row in the block.
 //!
 //! **Serde** (feature `serde`): both states serialise to the plain form
-//! [`StateData`] (tag, version, shape, totals, means, extremes, exponents
-//! and the `(p + k)^2` stored matrix). Reading a state back validates it;
+//! [`StateData`] (tag, version, shape, totals, the sum of the log weights,
+//! means, extremes, exponents and the `(p + k)^2` stored matrix). Reading a state back validates it;
 //! deserialise a [`StateData`] and convert it with `TryFrom` to get the
 //! typed [`Error::InvalidState`] (deserialising a state directly reports
 //! the same text as the format's own error).
+//!
+//! **Inference.** [`TriangleState::inference`] and
+//! [`CrossProductState::inference`] give the classical [`crate::Inference`]
+//! of one target (standard errors, intervals, R², the F test, the
+//! log-likelihood) without the rows; a sandwich covariance needs them
+//! again and is refused.
 //!
 //! **Reports.** A state's fits report the solver `"qr-state"`,
 //! `"cholesky-state"`, `"svd-state"` (minimum norm) or `"ridge-state"`,
