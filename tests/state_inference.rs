@@ -502,3 +502,67 @@ fn state_inference_predicts_like_the_in_memory_one() {
         })
     ));
 }
+
+/// Identity: a weighted state written and read back (feature `serde`)
+/// keeps its sum of log weights, so its inference is the same bits, the
+/// log-likelihood included; a bad sum is a typed error naming the field.
+#[cfg(feature = "serde")]
+#[test]
+fn saved_states_keep_the_likelihood() {
+    use leastline::StateData;
+    let mut rng = gen::rng(11);
+    let (x, y) = problem(&mut rng, 40, 2, 1, true);
+    let w = gen::weights(&mut rng, 40);
+    let state = blockwise(
+        TriangleState::new(2, 1, true).expect("state"),
+        &x,
+        &y,
+        Some(&w),
+        3,
+    );
+    let text = serde_json::to_string(&state).expect("write");
+    let back: TriangleState = serde_json::from_str(&text).expect("read");
+    let options = InferenceOptions::new();
+    assert_eq!(
+        back.inference(0, options).expect("inference"),
+        state.inference(0, options).expect("inference")
+    );
+    // Reference: the in-memory inference (weights enter the likelihood as
+    // 1/2 sum ln w_i).
+    let reference = in_memory(&x, &y.column(0).to_owned(), Some(&w), true, &Qr::new());
+    let ours = back.inference(0, options).expect("inference");
+    assert!(
+        abs_digits(
+            ours.goodness.log_likelihood,
+            reference.goodness.log_likelihood,
+            40.0
+        ) >= 12.5
+    );
+    let mut data = StateData::from(state.clone());
+    data.log_weight_sum = f64::INFINITY;
+    assert!(matches!(
+        TriangleState::try_from(data),
+        Err(Error::InvalidState {
+            field: "log_weight_sum",
+            ..
+        })
+    ));
+    let mut empty = StateData::from(TriangleState::new(2, 1, true).expect("state"));
+    empty.log_weight_sum = 1.0;
+    assert!(matches!(
+        TriangleState::try_from(empty),
+        Err(Error::InvalidState {
+            field: "log_weight_sum",
+            ..
+        })
+    ));
+    let mut old = StateData::from(state);
+    old.version = 1;
+    assert!(matches!(
+        TriangleState::try_from(old),
+        Err(Error::InvalidState {
+            field: "version",
+            ..
+        })
+    ));
+}
