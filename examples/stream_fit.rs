@@ -508,7 +508,7 @@ fn fixed_width_bytes(d: &StateData) -> usize {
             .as_ref()
             .map_or(0, |n| n.iter().map(|s| 8 + s.len()).sum::<usize>());
     let counts = 5 * 8; // columns, targets, rows, usable rows, names' count
-    let floats = 8 * (2 + d.means.len() + d.lows.len() + d.highs.len() + d.matrix.len());
+    let floats = 8 * (3 + d.means.len() + d.lows.len() + d.highs.len() + d.matrix.len());
     let small = 4 * (2 + d.exponents.len()) + 1; // version, weight exponent, exponents; intercept
     strings + counts + floats + small
 }

@@ -123,8 +123,13 @@ pub struct Collinearity {
     pub centered: bool,
 }
 
-pub(super) struct Inputs<'a, 'p> {
-    pub problem: &'a Problem<'p>,
+pub(crate) struct Inputs<'a> {
+    /// Rows with non-zero weight.
+    pub n: usize,
+    /// Whether the model has an intercept (centered sums of squares).
+    pub centered: bool,
+    /// `sum ln w_i` over the usable rows (0 without weights).
+    pub log_weights: f64,
     pub r: MatRef<'a, f64>,
     pub gamma: &'a [f64],
     /// The middle matrix of a sandwich covariance divided by `2^meat_exp`;
@@ -160,11 +165,10 @@ fn caller_square(norm: f64, exp: i32, what: &'static str) -> Result<f64> {
     }
 }
 
-pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
-    let problem = inp.problem;
-    let p = problem.columns();
-    let n = problem.usable_rows() as f64;
-    let centered = problem.has_intercept();
+pub(crate) fn compute(inp: Inputs<'_>) -> Result<GoodnessOfFit> {
+    let p = inp.r.ncols();
+    let n = inp.n as f64;
+    let centered = inp.centered;
     let dff = inp.df as f64;
     // |t| from the target alone when its square is a normal number (the
     // compensated sum is the more accurate), else from the factorisation.
@@ -211,20 +215,8 @@ pub(super) fn compute(inp: Inputs<'_, '_>) -> Result<GoodnessOfFit> {
             }
         })
     };
-    // sum ln w_i over the usable rows, from the scaled weights: ln w_i =
-    // ln w~_i + ln ws.
     let ln2 = std::f64::consts::LN_2;
-    let log_weights: f64 = match problem.weights() {
-        Some(_) => {
-            let ws = f64::from(exponent(problem.stats.weight_scale)) * ln2;
-            (0..problem.rows())
-                .map(|i| problem.scaled_weight(i))
-                .filter(|&v| v > 0.0)
-                .map(|v| v.ln() + ws)
-                .sum()
-        }
-        None => 0.0,
-    };
+    let log_weights = inp.log_weights;
     let two_pi = 2.0 * std::f64::consts::PI;
     // ln(RSS / n) = 2 ln |r| - ln n + sum_exp ln 2: no overflow or underflow.
     let log_rss = 2.0 * rss_norm.ln() - n.ln() + f64::from(inp.sum_exp) * ln2;
@@ -293,5 +285,21 @@ pub(super) fn collinearity(
         vif,
         condition_number,
         centered,
+    }
+}
+
+/// `sum ln w_i` over the usable rows of `problem`, from the scaled
+/// weights (`ln w_i = ln w~_i + ln ws`); 0 without weights.
+pub(super) fn log_weights(problem: &Problem<'_>) -> f64 {
+    match problem.weights() {
+        Some(_) => {
+            let ws = f64::from(exponent(problem.stats.weight_scale)) * std::f64::consts::LN_2;
+            (0..problem.rows())
+                .map(|i| problem.scaled_weight(i))
+                .filter(|&v| v > 0.0)
+                .map(|v| v.ln() + ws)
+                .sum()
+        }
+        None => 0.0,
     }
 }

@@ -124,6 +124,7 @@
 
 mod diagnostics;
 mod distributions;
+pub(crate) mod from_state;
 mod goodness;
 mod predict;
 mod summary;
@@ -340,6 +341,13 @@ pub enum InferenceRefusal {
         #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
         bound: f64,
     },
+    /// A sandwich covariance was asked of a fit state: it needs every
+    /// row's residual and leverage, which a state does not keep (the
+    /// second pass over the same blocks gives it).
+    NeedsRows {
+        /// The covariance asked for.
+        covariance: CovarianceKind,
+    },
 }
 
 impl fmt::Display for InferenceRefusal {
@@ -382,6 +390,11 @@ impl fmt::Display for InferenceRefusal {
             InferenceRefusal::FarFromSolution { distance, bound } => write!(
                 f,
                 "the fit's coefficients are {distance:.3e} standard errors from the exact least-squares solution (at most {bound} accepted): fit with a closed-form solver, or tighten the iterative tolerance"
+            ),
+            InferenceRefusal::NeedsRows { covariance } => write!(
+                f,
+                "the {} covariance needs every row's residual and leverage, which a fit state does not keep: feed the blocks again to the state's second pass",
+                covariance.name()
             ),
         }
     }
@@ -570,6 +583,102 @@ pub(crate) fn norm(v: impl Iterator<Item = f64> + Clone) -> f64 {
     let e = exponent(big);
     let s: f64 = v.map(|x| ldexp(x, -e).powi(2)).sum();
     ldexp(s.sqrt(), e)
+}
+
+/// Fills the intercept's row of `v` (the map from orthonormal coordinates
+/// to slopes and intercept in scaled units): `-a^T R^-1`, then
+/// `1 / sqrt(W)`, with `a` the scaled column means.
+fn intercept_row(v: &mut Mat<f64>, r: faer::MatRef<'_, f64>, a: &[f64], sqrt_w: f64) {
+    let p = r.ncols();
+    let mut t = a.to_vec();
+    solve_upper_transposed(r, &mut t);
+    for (c, tc) in t.iter().enumerate() {
+        v[(p, c)] = -tc;
+    }
+    v[(p, p)] = 1.0 / sqrt_w;
+}
+
+/// Maps `covariance` (scaled units divided by `2^cov_exp`) to caller units
+/// in place, with the exponents `units` of every parameter (columns, then
+/// the intercept), and forms every [`Estimate`] at the confidence level:
+/// `values` are the slopes and the intercept (when fitted) in caller units,
+/// `scaled` the slopes and the intercept in scaled units. Returns the
+/// slopes' estimates, the intercept's and the t quantile.
+fn estimates_from_covariance(
+    covariance: &mut Array2<f64>,
+    cov_exp: i32,
+    units: &[i32],
+    values: (&[f64], Option<f64>),
+    scaled: (&[f64], f64),
+    level: f64,
+    dff: f64,
+) -> Result<(Vec<Estimate>, Option<Estimate>, f64)> {
+    let variances_m: Vec<f64> = (0..units.len()).map(|i| covariance[[i, i]]).collect();
+    for ((i, j), c) in covariance.indexed_iter_mut() {
+        *c = ldexp(*c, units[i] + units[j] + cov_exp);
+    }
+    if covariance.iter().any(|c| !c.is_finite()) {
+        return Err(Error::Overflow {
+            what: "covariance matrix",
+        });
+    }
+    let critical = student_t_quantile(0.5 + 0.5 * level, dff)?;
+    let caller: Vec<f64> = values.0.iter().copied().chain(values.1).collect();
+    let inner: Vec<f64> = scaled
+        .0
+        .iter()
+        .copied()
+        .chain(values.1.map(|_| scaled.1))
+        .collect();
+    let mut estimates = Vec::with_capacity(caller.len());
+    for i in 0..caller.len() {
+        // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
+        // se_m and the exponents (nothing underflows on the way).
+        let se_m = variances_m[i].max(0.0).sqrt();
+        let half = cov_exp / 2;
+        let t = ldexp(ratio(inner[i], se_m), -half);
+        let se = ldexp(se_m, units[i] + half);
+        let margin = critical * se;
+        let e = Estimate {
+            value: caller[i],
+            std_error: se,
+            t,
+            p_value: distributions::t_two_sided_p(t, dff),
+            lower: caller[i] - margin,
+            upper: caller[i] + margin,
+        };
+        if !(e.lower.is_finite() && e.upper.is_finite()) {
+            return Err(Error::Overflow {
+                what: "confidence interval",
+            });
+        }
+        estimates.push(e);
+    }
+    let intercept = if values.1.is_some() {
+        estimates.pop()
+    } else {
+        None
+    };
+    Ok((estimates, intercept, critical))
+}
+
+/// The residual variance and its square root in caller units from
+/// `sigma~ = sigma_m 2^sigma_exp` (scaled units), the target's exponent
+/// `ey` and the weights' `ws_exp`: `sigma^2 = sigma~^2 s_y^2 ws`, with
+/// `sqrt(ws)` split into an even power.
+fn residual_spread(sigma_m: f64, sigma_exp: i32, ey: i32, ws_exp: i32) -> Result<(f64, f64)> {
+    let variance_exp = 2 * ey + ws_exp;
+    let residual_variance = ldexp(sigma_m * sigma_m, variance_exp + 2 * sigma_exp);
+    let residual_sd = ldexp(
+        sigma_m * f64::from(1 << ws_exp.rem_euclid(2)).sqrt(),
+        ey + ws_exp.div_euclid(2) + sigma_exp,
+    );
+    if !residual_variance.is_finite() || !residual_sd.is_finite() {
+        return Err(Error::Overflow {
+            what: "residual variance",
+        });
+    }
+    Ok((residual_variance, residual_sd))
 }
 
 impl Inference {
@@ -835,12 +944,7 @@ impl Inference {
         };
 
         if has_intercept {
-            let mut t = a.clone();
-            solve_upper_transposed(r, &mut t);
-            for (c, tc) in t.iter().enumerate() {
-                v[(p, c)] = -tc;
-            }
-            v[(p, p)] = 1.0 / sqrt_w;
+            intercept_row(&mut v, r, &a, sqrt_w);
         }
         // The covariance, formed in scaled units (up to the power of two
         // 2^cov_exp) straight into the result's array (by tiles: no other
@@ -862,68 +966,18 @@ impl Inference {
             },
         );
         drop(v);
-        let variances_m: Vec<f64> = (0..q).map(|i| covariance[[i, i]]).collect();
         let units = unit_exponents(&scaling, p, has_intercept);
-        for ((i, j), c) in covariance.indexed_iter_mut() {
-            *c = ldexp(*c, units[i] + units[j] + cov_exp);
-        }
-        if covariance.iter().any(|c| !c.is_finite()) {
-            return Err(Error::Overflow {
-                what: "covariance matrix",
-            });
-        }
+        let (coefficients, intercept, critical) = estimates_from_covariance(
+            &mut covariance,
+            cov_exp,
+            &units,
+            (&beta, has_intercept.then_some(intercept_value)),
+            (&gamma, b0),
+            options.level,
+            dff,
+        )?;
 
-        let critical = student_t_quantile(0.5 + 0.5 * options.level, dff)?;
-        let values: Vec<f64> = beta
-            .iter()
-            .copied()
-            .chain(has_intercept.then_some(intercept_value))
-            .collect();
-        let scaled_values: Vec<f64> = gamma
-            .iter()
-            .copied()
-            .chain(has_intercept.then_some(b0))
-            .collect();
-        let mut estimates = Vec::with_capacity(q);
-        for i in 0..q {
-            // se~ = se_m 2^(cov_exp / 2); t and the interval formed from
-            // se_m and the exponents (nothing underflows on the way).
-            let se_m = variances_m[i].max(0.0).sqrt();
-            let half = cov_exp / 2;
-            let t = ldexp(ratio(scaled_values[i], se_m), -half);
-            let se = ldexp(se_m, units[i] + half);
-            let margin = critical * se;
-            let e = Estimate {
-                value: values[i],
-                std_error: se,
-                t,
-                p_value: distributions::t_two_sided_p(t, dff),
-                lower: values[i] - margin,
-                upper: values[i] + margin,
-            };
-            if !(e.lower.is_finite() && e.upper.is_finite()) {
-                return Err(Error::Overflow {
-                    what: "confidence interval",
-                });
-            }
-            estimates.push(e);
-        }
-        let intercept = if has_intercept { estimates.pop() } else { None };
-        let coefficients = estimates;
-
-        // The residual variance and its square root in caller units:
-        // sigma^2 = sigma~^2 s_y^2 ws; sqrt(ws) split into an even power.
-        let variance_exp = 2 * ey + ws_exp;
-        let residual_variance = ldexp(sigma_m * sigma_m, variance_exp + 2 * sigma_exp);
-        let residual_sd = ldexp(
-            sigma_m * f64::from(1 << ws_exp.rem_euclid(2)).sqrt(),
-            ey + ws_exp.div_euclid(2) + sigma_exp,
-        );
-        if !residual_variance.is_finite() || !residual_sd.is_finite() {
-            return Err(Error::Overflow {
-                what: "residual variance",
-            });
-        }
+        let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
         let inv_sy = 1.0 / scaling.target_scale;
         let tss_scaled = extended::centered_target_sum_of_squares(
             problem,
@@ -933,7 +987,9 @@ impl Inference {
             },
         );
         let goodness = goodness::compute(goodness::Inputs {
-            problem,
+            n,
+            centered: has_intercept,
+            log_weights: goodness::log_weights(problem),
             r,
             gamma: &gamma,
             meat: meat.as_ref().map(|m| crate::linalg::as_faer(&m.view())),
@@ -942,7 +998,7 @@ impl Inference {
             rss_norm,
             tss_scaled,
             t_norm,
-            sum_exp: variance_exp,
+            sum_exp: 2 * ey + ws_exp,
             df,
             parameters: k,
         })?;

@@ -87,19 +87,16 @@ impl CrossProductState {
         }
     }
 
-    /// The Cholesky fit of every target, with the rank tolerance
-    /// `tolerance` (`None`: `max(usable rows, columns) * eps`; it decides
-    /// which columns are constant beside the intercept) and the fewest
-    /// digits accepted, `min_digits` (`None`: 4), as [`crate::Cholesky`].
-    ///
-    /// # Errors
-    /// [`Error::NoRows`], [`Error::AllWeightsZero`], [`Error::TooFewRows`];
-    /// [`Error::RankDeficient`] naming constant columns;
-    /// [`Error::IllConditioned`] when fewer than `min_digits` digits would
-    /// survive (or a pivot is at rounding level);
-    /// [`Error::NotPositiveDefinite`] at a failed pivot;
-    /// [`Error::InvalidParameter`] for bad settings; [`Error::Overflow`].
-    pub fn finish_with(&self, tolerance: Option<f64>, min_digits: Option<f64>) -> Result<Vec<Fit>> {
+    /// The cross products in the frame's units and the Cholesky factor `L`
+    /// of their design block, after the checks of
+    /// [`CrossProductState::finish_with`], with the frame and the
+    /// condition number of `L`.
+    #[allow(clippy::type_complexity)]
+    pub(crate) fn factor(
+        &self,
+        tolerance: Option<f64>,
+        min_digits: Option<f64>,
+    ) -> Result<(super::Frame, Mat<f64>, Mat<f64>, f64)> {
         let core = &self.core;
         let tolerance = match tolerance {
             Some(t) => check_tolerance(t)?,
@@ -159,6 +156,25 @@ impl CrossProductState {
                 required_digits: min_digits,
             });
         }
+        Ok((frame, cf, l, condition))
+    }
+
+    /// The Cholesky fit of every target, with the rank tolerance
+    /// `tolerance` (`None`: `max(usable rows, columns) * eps`; it decides
+    /// which columns are constant beside the intercept) and the fewest
+    /// digits accepted, `min_digits` (`None`: 4), as [`crate::Cholesky`].
+    ///
+    /// # Errors
+    /// [`Error::NoRows`], [`Error::AllWeightsZero`], [`Error::TooFewRows`];
+    /// [`Error::RankDeficient`] naming constant columns;
+    /// [`Error::IllConditioned`] when fewer than `min_digits` digits would
+    /// survive (or a pivot is at rounding level);
+    /// [`Error::NotPositiveDefinite`] at a failed pivot;
+    /// [`Error::InvalidParameter`] for bad settings; [`Error::Overflow`].
+    pub fn finish_with(&self, tolerance: Option<f64>, min_digits: Option<f64>) -> Result<Vec<Fit>> {
+        let core = &self.core;
+        let (frame, cf, l, condition) = self.factor(tolerance, min_digits)?;
+        let p = core.p;
         (0..core.k)
             .map(|t| {
                 let c = p + t;

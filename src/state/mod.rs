@@ -42,11 +42,17 @@
 //! row in the block.
 //!
 //! **Serde** (feature `serde`): both states serialise to the plain form
-//! [`StateData`] (tag, version, shape, totals, means, extremes, exponents
-//! and the `(p + k)^2` stored matrix). Reading a state back validates it;
+//! [`StateData`] (tag, version, shape, totals, the sum of the log weights,
+//! means, extremes, exponents and the `(p + k)^2` stored matrix). Reading a state back validates it;
 //! deserialise a [`StateData`] and convert it with `TryFrom` to get the
 //! typed [`Error::InvalidState`] (deserialising a state directly reports
 //! the same text as the format's own error).
+//!
+//! **Inference.** [`TriangleState::inference`] and
+//! [`CrossProductState::inference`] give the classical [`crate::Inference`]
+//! of one target (standard errors, intervals, R², the F test, the
+//! log-likelihood) without the rows; a sandwich covariance needs them
+//! again and is refused.
 //!
 //! **Reports.** A state's fits report the solver `"qr-state"`,
 //! `"cholesky-state"`, `"svd-state"` (minimum norm) or `"ridge-state"`,
@@ -76,6 +82,7 @@
 //! ```
 
 mod cross;
+mod inference;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
@@ -180,6 +187,9 @@ pub(crate) struct Core {
     pub wexp: i32,
     /// Largest weight seen (0 before any usable row).
     pub largest_weight: f64,
+    /// `sum ln w_i` over the usable rows (0 without weights): the
+    /// log-likelihood's weight term.
+    pub log_weights: f64,
     /// Weighted means of the `p + k` columns (0 without an intercept).
     pub means: Vec<f64>,
     /// Smallest and largest value of each column over usable rows
@@ -277,6 +287,7 @@ impl Core {
             weight: 0.0,
             wexp: 0,
             largest_weight: 0.0,
+            log_weights: 0.0,
             means: vec![0.0; width],
             lo: vec![f64::INFINITY; width],
             hi: vec![f64::NEG_INFINITY; width],
@@ -447,10 +458,12 @@ impl Core {
         };
         let largest = self.largest_weight.max(wmax);
         let mut total = Neumaier::default();
+        let mut log_weights = Neumaier::default();
         let mut usable = 0usize;
         for i in 0..n {
             let v = wt(i);
             if v > 0.0 {
+                log_weights.add(v.ln());
                 let s = ldexp(v, -2 * wexp);
                 if s < f64::MIN_POSITIVE {
                     return Err(Error::WeightRange {
@@ -490,6 +503,7 @@ impl Core {
             weight: total.value(),
             wexp,
             largest_weight: wmax,
+            log_weights: log_weights.value(),
             means,
             lo,
             hi,
@@ -581,6 +595,7 @@ impl Core {
         self.weight = total;
         self.wexp = wexp;
         self.largest_weight = self.largest_weight.max(other.largest_weight);
+        self.log_weights += other.log_weights;
         self.lo = lo;
         self.hi = hi;
         self.exps = exps;

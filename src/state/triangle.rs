@@ -115,22 +115,10 @@ impl TriangleState {
         })
     }
 
-    /// The QR fit of every target, with the rank tolerance `tolerance`
-    /// (`None`: `max(usable rows, columns) * eps`, as [`crate::Qr`]).
-    ///
-    /// Column `j` is dependent when `|R_jj|` (after the earlier
-    /// independent columns) is at most the tolerance times the bound
-    /// `sqrt(W) max|x_j|` of the raw column's weighted norm, or when its
-    /// values about the mean are at most the tolerance times `max|x_j|`
-    /// (a constant column beside the intercept): the rules of [`crate::Qr`].
-    ///
-    /// # Errors
-    /// [`Error::NoRows`], [`Error::AllWeightsZero`], [`Error::TooFewRows`];
-    /// [`Error::RankDeficient`] naming the dependent columns;
-    /// [`Error::InvalidParameter`] for a bad tolerance;
-    /// [`Error::SpreadOverflow`], [`Error::Overflow`] for results beyond the
-    /// range of `f64`.
-    pub fn finish_with(&self, tolerance: Option<f64>) -> Result<Vec<Fit>> {
+    /// The triangle in the frame's units after the rank checks of
+    /// [`TriangleState::finish_with`], with the frame and the condition
+    /// number of the design's part.
+    pub(crate) fn factor(&self, tolerance: Option<f64>) -> Result<(Frame, Mat<f64>, f64)> {
         let core = &self.core;
         let tolerance = match tolerance {
             Some(t) => check_tolerance(t)?,
@@ -157,6 +145,29 @@ impl TriangleState {
             });
         }
         let condition = crate::linalg::svd::condition(r11, 0.0)?;
+        Ok((frame, rf, condition))
+    }
+
+    /// The QR fit of every target, with the rank tolerance `tolerance`
+    /// (`None`: `max(usable rows, columns) * eps`, as [`crate::Qr`]).
+    ///
+    /// Column `j` is dependent when `|R_jj|` (after the earlier
+    /// independent columns) is at most the tolerance times the bound
+    /// `sqrt(W) max|x_j|` of the raw column's weighted norm, or when its
+    /// values about the mean are at most the tolerance times `max|x_j|`
+    /// (a constant column beside the intercept): the rules of [`crate::Qr`].
+    ///
+    /// # Errors
+    /// [`Error::NoRows`], [`Error::AllWeightsZero`], [`Error::TooFewRows`];
+    /// [`Error::RankDeficient`] naming the dependent columns;
+    /// [`Error::InvalidParameter`] for a bad tolerance;
+    /// [`Error::SpreadOverflow`], [`Error::Overflow`] for results beyond the
+    /// range of `f64`.
+    pub fn finish_with(&self, tolerance: Option<f64>) -> Result<Vec<Fit>> {
+        let core = &self.core;
+        let p = core.p;
+        let (frame, rf, condition) = self.factor(tolerance)?;
+        let r11 = rf.as_ref().submatrix(0, 0, p, p);
         (0..core.k)
             .map(|t| {
                 let c = p + t;

@@ -10,7 +10,7 @@ use crate::error::{Error, Result};
 pub const STATE_FORMAT: &str = "leastline-fit-state";
 
 /// The `version` of the serialised form written by this crate.
-pub const STATE_VERSION: u32 = 1;
+pub const STATE_VERSION: u32 = 2;
 
 /// The plain serialised form of a [`TriangleState`] or a
 /// [`CrossProductState`] (what their `Serialize` writes and their
@@ -57,6 +57,9 @@ pub struct StateData {
     pub weight_exponent: i32,
     /// Largest weight seen.
     pub largest_weight: f64,
+    /// `sum ln w_i` over the usable rows (0 without weights or rows): the
+    /// weight term of the log-likelihood (added in version 2).
+    pub log_weight_sum: f64,
     /// Weighted means of the `p` columns then the `k` targets.
     pub means: Vec<f64>,
     /// Smallest value of each column over usable rows (`"inf"` before any).
@@ -97,6 +100,7 @@ fn to_data(core: &Core, kind: &str, m: &Mat<f64>) -> StateData {
         weight: core.weight,
         weight_exponent: core.wexp,
         largest_weight: core.largest_weight,
+        log_weight_sum: core.log_weights,
         means: core.means.clone(),
         lows: core.lo.clone(),
         highs: core.hi.clone(),
@@ -143,6 +147,13 @@ fn from_data(d: StateData, kind: &str) -> Result<(Core, Mat<f64>)> {
             "largest_weight",
             0,
             "must be finite, >= 0, and positive exactly when rows are usable",
+        ));
+    }
+    if !d.log_weight_sum.is_finite() || (d.usable_rows == 0 && d.log_weight_sum != 0.0) {
+        return Err(invalid(
+            "log_weight_sum",
+            0,
+            "must be finite, and 0 when no row is usable",
         ));
     }
     if !(-600..=600).contains(&d.weight_exponent) {
@@ -196,6 +207,7 @@ fn from_data(d: StateData, kind: &str) -> Result<(Core, Mat<f64>)> {
     core.weight = d.weight;
     core.wexp = d.weight_exponent;
     core.largest_weight = d.largest_weight;
+    core.log_weights = d.log_weight_sum;
     core.means = d.means;
     core.lo = d.lows;
     core.hi = d.highs;
