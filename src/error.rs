@@ -244,7 +244,7 @@ pub enum Error {
     #[error("inference refused: {refusal}")]
     InferenceRefused {
         /// Why inference is not available for this fit.
-        refusal: crate::inference::InferenceRefusal,
+        refusal: crate::vocabulary::InferenceRefusal,
     },
     /// A penalty in a grid of penalties is negative or not finite.
     #[error(
@@ -278,7 +278,7 @@ pub enum Error {
         /// Number of penalties scored.
         penalties: usize,
         /// The criterion that was scored.
-        criterion: crate::ridge::Criterion,
+        criterion: crate::vocabulary::Criterion,
     },
     /// A saved form (feature `serde`) with another format tag or version
     /// than this version of the crate reads.
@@ -351,7 +351,7 @@ pub enum Error {
     #[error("stopped by the observer during the {stage} stage after {rows_done} of {rows_total} rows of the pass")]
     Stopped {
         /// The stage running when the observer asked to stop.
-        stage: crate::observe::Stage,
+        stage: crate::vocabulary::Stage,
         /// Rows of that stage's pass done when it asked (0 for an
         /// iteration).
         rows_done: usize,

@@ -272,6 +272,7 @@ pub mod inference;
 mod linalg;
 pub mod model;
 pub mod observe;
+mod passes;
 mod penalty;
 mod prep;
 pub mod problem;
@@ -283,6 +284,7 @@ mod settings;
 pub mod solver;
 mod solvers;
 pub mod state;
+mod vocabulary;
 
 /// The array crate of the public API, re-exported so that a program
 /// builds its arrays with exactly the version the crate was compiled

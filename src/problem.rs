@@ -306,11 +306,11 @@ impl<'a> Problem<'a> {
     pub(crate) fn centered_target_squares(&self) -> (f64, i32) {
         *self.stats.target_squares.get_or_init(|| {
             let sy = pow2_scale(self.stats.target_centered_max);
-            let units = crate::linalg::extended::Units {
+            let units = crate::passes::extended::Units {
                 col: Vec::new(),
                 target: 1.0 / sy,
             };
-            let m = crate::linalg::extended::centered_target_sum_of_squares(self, &units);
+            let m = crate::passes::extended::centered_target_sum_of_squares(self, &units);
             let e =
                 2 * crate::scaled::exponent(sy) + crate::scaled::exponent(self.stats.weight_scale);
             (m, e)

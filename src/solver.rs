@@ -372,7 +372,7 @@ pub(crate) fn finish_closed_form(
         });
     }
     watch.begin(Stage::Residuals, problem.rows());
-    let scaled = crate::linalg::residuals::centered_rss(problem, &beta, target_scale, watch)?;
+    let scaled = crate::passes::residuals::centered_rss(problem, &beta, target_scale, watch)?;
     let parts = (scaled, rss_exponent(problem, exponent(target_scale)));
     let rss = caller_rss(problem, exponent(target_scale), scaled)?;
     finish_parts(
@@ -519,7 +519,7 @@ fn finish_parts(
     });
     let (sigma, r_squared) = spread_measures(problem, rss_parts, residual_df);
     Ok(Fit {
-        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: solver.to_string(),
             rank,

@@ -112,7 +112,7 @@ use rand_chacha::rand_core::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 use crate::error::{Error, Input, Result};
-use crate::linalg::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
+use crate::passes::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
 use crate::model::LinearModel;
 use crate::observe::{Control, Stage, Watch};
 use crate::prep::Scaling;
@@ -668,7 +668,7 @@ pub(crate) fn finish(
         return Err(Error::Overflow { what: "loss" });
     }
     Ok(Fit {
-        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: name.to_string(),
             // Nothing is factored: the rank and condition are not measured.

@@ -136,15 +136,16 @@ pub use distributions::{
 pub use goodness::{Collinearity, GoodnessOfFit, OverallTest};
 pub use predict::Predictions;
 
-use std::fmt;
+pub use crate::vocabulary::InferenceRefusal;
 
 use faer::Mat;
 use ndarray::Array2;
 
 use crate::error::{Error, Result};
-use crate::linalg::leverage::{row_pass, RowPassSpec};
 use crate::linalg::products::{congruence_into, solve_upper_transposed};
-use crate::linalg::{extended, qr::tall_skinny_r, triangular};
+use crate::linalg::triangular;
+use crate::passes::leverage::{row_pass, RowPassSpec};
+use crate::passes::{extended, qr::tall_skinny_r};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -273,119 +274,6 @@ impl InferenceOptions {
     }
 }
 
-/// Why inference was refused for a fit (carried by [`Error::InferenceRefused`]).
-#[derive(Debug, Clone, PartialEq)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[non_exhaustive]
-pub enum InferenceRefusal {
-    /// Some coefficients are not identified: numerical rank below the columns.
-    RankDeficient {
-        /// Numerical rank of the centered design.
-        rank: usize,
-        /// Columns of the design.
-        columns: usize,
-    },
-    /// A penalised (ridge) fit: the estimator is biased, so classical and
-    /// sandwich intervals would not have their stated coverage.
-    Penalised {
-        /// The penalty of the fit.
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        penalty: f64,
-    },
-    /// An iterative fit that stopped before converging.
-    NotConverged {
-        /// Iterations (or epochs) it ran.
-        iterations: usize,
-    },
-    /// No residual degrees of freedom: `usable_rows <= parameters`.
-    NoResidualDegreesOfFreedom {
-        /// Rows with non-zero weight.
-        usable_rows: usize,
-        /// Parameters (columns, plus one for the intercept).
-        parameters: usize,
-    },
-    /// HC2 or HC3 needs `1 - h_i > 0`, and this row has leverage 1.
-    LeverageOne {
-        /// Row index (0-based).
-        row: usize,
-        /// Its computed leverage.
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        leverage: f64,
-    },
-    /// The fit's report does not match the problem given (another data set?).
-    DifferentProblem {
-        /// Usable rows recorded in the fit's report.
-        fit_rows: usize,
-        /// Usable rows of the problem given.
-        problem_rows: usize,
-    },
-    /// The problem given is not the one the fit (or the inference) was
-    /// computed from: its [`Problem::fingerprint`] differs.
-    DifferentData {
-        /// The fingerprint recorded at fit time.
-        recorded: u64,
-        /// The fingerprint of the problem given.
-        given: u64,
-    },
-    /// The fit's coefficients are further from the exact least-squares
-    /// solution than [`MAX_FIT_DISTANCE`] standard errors (beyond
-    /// rounding): intervals around them would be shifted.
-    FarFromSolution {
-        /// The distance in standard errors (see [`Inference::fit_distance`];
-        /// `+inf` when the exact solution fits the data exactly and the
-        /// fit does not).
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        distance: f64,
-        /// The bound, [`MAX_FIT_DISTANCE`].
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        bound: f64,
-    },
-}
-
-impl fmt::Display for InferenceRefusal {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            InferenceRefusal::RankDeficient { rank, columns } => write!(
-                f,
-                "the design has numerical rank {rank} of {columns} columns, so some coefficients are not identified"
-            ),
-            InferenceRefusal::Penalised { penalty } => write!(
-                f,
-                "the fit is penalised (penalty {penalty:e}); a penalised estimate is biased and has no valid classical or sandwich intervals"
-            ),
-            InferenceRefusal::NotConverged { iterations } => write!(
-                f,
-                "the iterative fit stopped after {iterations} iterations without converging"
-            ),
-            InferenceRefusal::NoResidualDegreesOfFreedom {
-                usable_rows,
-                parameters,
-            } => write!(
-                f,
-                "{usable_rows} usable rows leave no residual degrees of freedom for {parameters} parameters"
-            ),
-            InferenceRefusal::LeverageOne { row, leverage } => write!(
-                f,
-                "row {row} has leverage {leverage} (one to rounding), where HC2 and HC3 are undefined; use HC0 or HC1"
-            ),
-            InferenceRefusal::DifferentProblem {
-                fit_rows,
-                problem_rows,
-            } => write!(
-                f,
-                "the fit used {fit_rows} rows but the problem given has {problem_rows}: pass the problem that was fitted"
-            ),
-            InferenceRefusal::DifferentData { recorded, given } => write!(
-                f,
-                "the problem given (fingerprint {given:016x}) is not the one that was fitted (fingerprint {recorded:016x}): pass the problem that was fitted"
-            ),
-            InferenceRefusal::FarFromSolution { distance, bound } => write!(
-                f,
-                "the fit's coefficients are {distance:.3e} standard errors from the exact least-squares solution (at most {bound} accepted): fit with a closed-form solver, or tighten the iterative tolerance"
-            ),
-        }
-    }
-}
 
 fn refuse(refusal: InferenceRefusal) -> Error {
     Error::InferenceRefused { refusal }
@@ -479,7 +367,7 @@ struct Basis {
 }
 
 /// Inference for a fitted least-squares model: every number is a public
-/// field; [`fmt::Display`] prints a plain-text summary.
+/// field; [`std::fmt::Display`] prints a plain-text summary.
 ///
 /// See the [module documentation](crate::inference) for the model, the
 /// conventions, the cautions and the memory used. Deserialised values

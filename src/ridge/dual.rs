@@ -2,7 +2,8 @@
 //! columns than rows.
 
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky as chol, dual, triangular};
+use crate::linalg::{cholesky as chol, triangular};
+use crate::passes::dual;
 use crate::observe::Watch;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;

@@ -103,7 +103,8 @@ mod selection;
 
 pub use folds::{HeldOutError, RowFolds};
 pub use path::RidgePath;
-pub use selection::{Criterion, PenaltyCurve};
+pub use crate::vocabulary::Criterion;
+pub use selection::PenaltyCurve;
 
 use crate::error::{Error, Result};
 use crate::observe::{Observer, Watch};

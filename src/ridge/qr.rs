@@ -4,7 +4,8 @@
 use faer::{Mat, MatRef};
 
 use crate::error::Result;
-use crate::linalg::{dense, qr::tall_skinny_r, svd::thin_svd, triangular};
+use crate::linalg::{dense, svd::thin_svd, triangular};
+use crate::passes::qr::tall_skinny_r;
 use crate::observe::{Stage, Watch};
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;

@@ -1,7 +1,8 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky as chol, gram::centered_gram, qr::tall_skinny_r, triangular};
+use crate::linalg::{cholesky as chol, triangular};
+use crate::passes::{gram::centered_gram, qr::tall_skinny_r};
 use crate::observe::{Observer, Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;

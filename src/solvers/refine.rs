@@ -4,10 +4,10 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{
+use crate::linalg::triangular;
+use crate::passes::{
     extended::{self, Units},
     qr::tall_skinny_r_with,
-    triangular,
 };
 use crate::observe::{Stage, Watch};
 use crate::prep::Scaling;

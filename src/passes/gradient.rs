@@ -31,7 +31,7 @@
 use ndarray::{s, ArrayView2, Axis};
 use rayon::prelude::*;
 
-use super::{block_groups, GROUPS};
+use crate::linalg::{block_groups, GROUPS};
 use crate::observe::Watch;
 use crate::problem::Problem;
 
@@ -48,9 +48,9 @@ pub(crate) struct Pass {
 const ROW_CHUNK: usize = 1024;
 
 /// Rows per block of the partition (and of a column-major pass's residual
-/// vectors): [`super::block_rows`].
+/// vectors): [`crate::linalg::block_rows`].
 fn block_len(p: usize) -> usize {
-    super::block_rows(p)
+    crate::linalg::block_rows(p)
 }
 
 /// What a pass needs besides the design.

@@ -3,7 +3,7 @@
 use ndarray::{s, Axis};
 use rayon::prelude::*;
 
-use super::kernels;
+use crate::linalg::kernels;
 use crate::error::Result;
 use crate::observe::Watch;
 use crate::problem::{Problem, STATS_CHUNK};
