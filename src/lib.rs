@@ -263,6 +263,7 @@ macro_rules! checked_settings {
 }
 
 mod alloc;
+#[cfg(feature = "bench-support")]
 #[doc(hidden)]
 pub mod bench_support;
 pub mod error;
