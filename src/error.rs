@@ -412,3 +412,25 @@ impl Error {
 
 /// Shorthand for results of this crate.
 pub type Result<T> = std::result::Result<T, Error>;
+
+/// Whether `value` is finite and `>= 0`: the one test of every weight,
+/// penalty, tolerance and other quantity that must be a non-negative number.
+#[inline]
+pub(crate) fn finite_nonnegative(value: f64) -> bool {
+    value.is_finite() && value >= 0.0
+}
+
+/// `value` when it is finite and `>= 0`.
+///
+/// # Errors
+/// [`Error::InvalidParameter`] naming `name` otherwise.
+pub(crate) fn check_finite_nonnegative(name: &'static str, value: f64) -> Result<f64> {
+    if !finite_nonnegative(value) {
+        return Err(Error::InvalidParameter {
+            name,
+            value,
+            reason: "must be finite and >= 0",
+        });
+    }
+    Ok(value)
+}

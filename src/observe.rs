@@ -24,7 +24,6 @@ use std::sync::Mutex;
 use crate::error::{Error, Result};
 pub use crate::vocabulary::Stage;
 
-
 /// What an observer sees.
 ///
 /// Row passes fill `rows_done` and `rows_total` (the rows of the current

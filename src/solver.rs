@@ -127,7 +127,7 @@ mod saved {
         let bad = numbers
             .into_iter()
             .chain(history.map(|&v| ("report.iterations.loss_history", v)))
-            .find(|(_, v)| !v.is_finite() || *v < 0.0);
+            .find(|(_, v)| !crate::error::finite_nonnegative(*v));
         if let Some((name, value)) = bad {
             return Err(Error::InvalidParameter {
                 name,
@@ -566,14 +566,6 @@ pub(crate) fn intercept_for(problem: &Problem<'_>, beta: &[f64]) -> f64 {
     st.target_mean - ldexp(sum, ey)
 }
 
-/// Checks a user-supplied tolerance.
-pub(crate) fn check_tolerance(name: &'static str, value: f64) -> Result<f64> {
-    if !value.is_finite() || value < 0.0 {
-        return Err(Error::InvalidParameter {
-            name,
-            value,
-            reason: "must be finite and >= 0",
-        });
-    }
-    Ok(value)
-}
+/// Checks a user-supplied tolerance: finite and `>= 0` (the crate's one
+/// check, [`crate::error::check_finite_nonnegative`]).
+pub(crate) use crate::error::check_finite_nonnegative as check_tolerance;

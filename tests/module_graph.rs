@@ -138,7 +138,10 @@ fn module_graph() -> Graph {
     );
     let mut files = Vec::new();
     rust_files(&src, &mut files);
-    let mut graph: Graph = modules.iter().map(|m| (m.clone(), BTreeSet::new())).collect();
+    let mut graph: Graph = modules
+        .iter()
+        .map(|m| (m.clone(), BTreeSet::new()))
+        .collect();
     for file in files {
         let relative = file.strip_prefix(&src).expect("under src");
         let first = relative
@@ -256,7 +259,14 @@ fn kernels_and_errors_depend_only_on_leaves() {
     let graph = module_graph();
     // The leaf modules: they import nothing from the crate but each other
     // and the error type.
-    let leaves = ["alloc", "error", "fmt", "scaled", "serde_float", "vocabulary"];
+    let leaves = [
+        "alloc",
+        "error",
+        "fmt",
+        "scaled",
+        "serde_float",
+        "vocabulary",
+    ];
     for (module, allowed) in [
         ("linalg", &leaves[..]),
         ("error", &leaves[..]),

@@ -145,7 +145,7 @@ use crate::error::{Error, Result};
 use crate::linalg::products::{congruence_into, solve_upper_transposed};
 use crate::linalg::triangular;
 use crate::passes::leverage::{row_pass, RowPassSpec};
-use crate::passes::{extended, qr::tall_skinny_r};
+use crate::passes::qr::tall_skinny_r;
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -273,7 +273,6 @@ impl InferenceOptions {
         Self::default()
     }
 }
-
 
 fn refuse(refusal: InferenceRefusal) -> Error {
     Error::InferenceRefused { refusal }
@@ -813,13 +812,7 @@ impl Inference {
             });
         }
         let inv_sy = 1.0 / scaling.target_scale;
-        let tss_scaled = extended::centered_target_sum_of_squares(
-            problem,
-            &extended::Units {
-                col: Vec::new(),
-                target: inv_sy,
-            },
-        );
+        let tss_scaled = crate::problem::centered_target_sum_of_squares(problem, inv_sy);
         let goodness = goodness::compute(goodness::Inputs {
             problem,
             r,

@@ -18,15 +18,7 @@
 //! processed in fixed chunks in parallel and partial sums are combined in
 //! chunk order, so results do not depend on the thread count.
 
-
-/// `a + b = s + e` exactly, with `s = fl(a + b)` (Knuth's branch-free form).
-#[inline]
-pub(crate) fn two_sum(a: f64, b: f64) -> (f64, f64) {
-    let s = a + b;
-    let bb = s - a;
-    let e = (a - (s - bb)) + (b - bb);
-    (s, e)
-}
+pub(crate) use crate::scaled::two_sum;
 
 /// Splits `a` into two halves of 26 significant bits each (Veltkamp).
 #[cfg(not(target_feature = "fma"))]

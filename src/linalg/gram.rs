@@ -27,4 +27,3 @@ pub(crate) fn lower_gram_add(mut acc: MatMut<'_, f64>, z: MatRef<'_, f64>) {
         j0 += w;
     }
 }
-

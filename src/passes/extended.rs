@@ -99,34 +99,6 @@ pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
     total.value()
 }
 
-/// `sum_i w~_i ((y_i - ybar) / s_y)^2` with the scaled weights (`ybar` the
-/// centering mean, 0 without an intercept), compensated.
-pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, units: &Units) -> f64 {
-    let y = problem.target();
-    let ym = problem.stats.target_mean;
-    let a = units.target;
-    let n = problem.rows();
-    let parts: Vec<Accumulator> = (0..n.div_ceil(STATS_CHUNK))
-        .into_par_iter()
-        .map(|c| {
-            let mut acc = Accumulator::default();
-            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
-                let w = problem.scaled_weight(i);
-                if w != 0.0 {
-                    let d = (y[i] - ym) * a;
-                    acc.add_weighted_product(w, d, d);
-                }
-            }
-            acc
-        })
-        .collect();
-    let mut total = Accumulator::default();
-    for p in parts {
-        total.merge(p);
-    }
-    total.value()
-}
-
 /// What one refinement step needs from a pass over the original data, for
 /// the augmented system `e + A theta = y`, `A^T W e = 0` with
 /// `A = [1, X]` (the column of ones only with an intercept).
@@ -281,4 +253,3 @@ pub(crate) fn update_residuals(
         });
     watch.check()
 }
-

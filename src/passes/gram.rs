@@ -3,9 +3,9 @@
 use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::Mat;
 
+use crate::error::Result;
 use crate::linalg::gram::lower_gram_add;
 use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce};
-use crate::error::Result;
 use crate::observe::Watch;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;

@@ -15,8 +15,8 @@ use faer::linalg::triangular_solve::solve_lower_triangular_in_place;
 use faer::{Accum, Mat, MatRef, Par};
 use ndarray::Axis;
 
-use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce, GROUPS};
 use crate::error::Result;
+use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce, GROUPS};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 

@@ -150,4 +150,3 @@ fn factor_r(
     watch.check()?;
     Ok(r)
 }
-

@@ -4,8 +4,8 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, triangular};
-use crate::passes::gram::centered_gram;
 use crate::observe::{Stage, Watch};
+use crate::passes::gram::centered_gram;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;

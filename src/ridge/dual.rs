@@ -3,8 +3,8 @@
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, triangular};
-use crate::passes::dual;
 use crate::observe::Watch;
+use crate::passes::dual;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;

@@ -101,9 +101,9 @@ mod path;
 mod qr;
 mod selection;
 
+pub use crate::vocabulary::Criterion;
 pub use folds::{HeldOutError, RowFolds};
 pub use path::RidgePath;
-pub use crate::vocabulary::Criterion;
 pub use selection::PenaltyCurve;
 
 use crate::error::{Error, Result};

@@ -5,8 +5,8 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, dense, svd::thin_svd, triangular};
-use crate::passes::{dual, gram::centered_gram, qr::tall_skinny_r, residuals};
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::{dual, gram::centered_gram, qr::tall_skinny_r, residuals};
 use crate::penalty::{check_penalty, PenaltyMap};
 use crate::prep::Scaling;
 use crate::problem::Problem;

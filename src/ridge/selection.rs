@@ -5,14 +5,13 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::dense;
-use crate::passes::loo;
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::loo;
 use crate::scaled::ldexp;
-use crate::vocabulary::Criterion;
 use crate::solver::caller_rss;
+use crate::vocabulary::Criterion;
 
 use super::path::{RidgePath, Side};
-
 
 /// Scores of every penalty of a grid, and the one that minimises the
 /// chosen criterion.
@@ -76,7 +75,7 @@ pub(crate) fn check_grid(grid: &[f64]) -> Result<()> {
         });
     }
     for (index, &value) in grid.iter().enumerate() {
-        if !value.is_finite() || value < 0.0 {
+        if !crate::error::finite_nonnegative(value) {
             return Err(Error::InvalidGridPenalty { index, value });
         }
     }

@@ -2,8 +2,8 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::{qr, svd::thin_svd};
-use crate::passes;
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
