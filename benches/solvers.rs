@@ -6,8 +6,8 @@
 //! of its group: the ratio is what this crate controls; absolute times
 //! depend on the machine.
 //!
-//! `cargo bench --bench solvers` (about five minutes on two cores);
-//! `cargo bench --bench solvers -- /100000x` runs the shapes with 100,000
+//! `cargo bench --features bench-support --bench solvers` (about five minutes on two cores);
+//! `cargo bench --features bench-support --bench solvers -- /100000x` runs the shapes with 100,000
 //! rows. Benchmarks are named `solvers/<solver>/<rows>x<cols>`.
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, SamplingMode};

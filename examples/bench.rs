@@ -2,8 +2,8 @@
 //! their own work, measured in the same run.
 //!
 //! ```text
-//! cargo run --release --example bench -- --rows 1000000 --cols 100
-//! cargo run --release --example bench -- --rows 200000 --cols 50 --solvers qr,cholesky --threads 1 --json
+//! cargo run --release --features bench-support --example bench -- --rows 1000000 --cols 100
+//! cargo run --release --features bench-support --example bench -- --rows 200000 --cols 50 --solvers qr,cholesky --threads 1 --json
 //! ```
 //!
 //! Options: `--rows N` (default 100000), `--cols P` (default 50),

@@ -1,7 +1,7 @@
 //! How the solvers' time grows with the rows and with the columns.
 //!
 //! ```text
-//! cargo run --release --example scaling -- docs/scaling.csv docs/scaling.svg
+//! cargo run --release --features bench-support --example scaling -- docs/scaling.csv docs/scaling.svg
 //! ```
 //!
 //! Two sweeps on the seeded design of the bench example: rows from 10,000 to

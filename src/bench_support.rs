@@ -34,7 +34,7 @@ pub fn qr_flops(rows: usize, k: usize) -> f64 {
 pub fn gram_floor(problem: &Problem<'_>) -> f64 {
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
     let quiet = crate::observe::Watch::quiet();
-    let Ok(g) = crate::linalg::gram::centered_gram(problem, &scaling, true, &quiet) else {
+    let Ok(g) = crate::passes::gram::centered_gram(problem, &scaling, true, &quiet) else {
         return f64::NAN;
     };
     (0..g.nrows()).map(|i| g[(i, i)]).sum()
@@ -43,7 +43,7 @@ pub fn gram_floor(problem: &Problem<'_>) -> f64 {
 /// Reads every element of the design once (parallel over the fixed row
 /// blocks) and returns their sum: the memory-bandwidth floor of one pass.
 pub fn stream_floor(problem: &Problem<'_>) -> f64 {
-    crate::linalg::residuals::design_sum(problem)
+    crate::passes::residuals::design_sum(problem)
 }
 
 /// Computes the triangular factor `R` of the centered design with the target
@@ -52,7 +52,7 @@ pub fn stream_floor(problem: &Problem<'_>) -> f64 {
 pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
     let scaling = Scaling::new(problem, problem.default_rank_tolerance());
     let quiet = crate::observe::Watch::quiet();
-    let Ok(r) = crate::linalg::qr::tall_skinny_r(problem, &scaling, true, &quiet) else {
+    let Ok(r) = crate::passes::qr::tall_skinny_r(problem, &scaling, true, &quiet) else {
         return f64::NAN;
     };
     let p = problem.columns();
@@ -63,7 +63,7 @@ pub fn tall_skinny_r(problem: &Problem<'_>) -> f64 {
 /// `beta` (caller's units).
 pub fn residual_pass(problem: &Problem<'_>, beta: &[f64]) -> f64 {
     let quiet = crate::observe::Watch::quiet();
-    crate::linalg::residuals::centered_rss(problem, beta, 1.0, &quiet).unwrap_or(f64::NAN)
+    crate::passes::residuals::centered_rss(problem, beta, 1.0, &quiet).unwrap_or(f64::NAN)
 }
 
 /// Fills every transformed row block once (as the Gram pass does) without

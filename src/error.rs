@@ -244,7 +244,7 @@ pub enum Error {
     #[error("inference refused: {refusal}")]
     InferenceRefused {
         /// Why inference is not available for this fit.
-        refusal: crate::inference::InferenceRefusal,
+        refusal: crate::vocabulary::InferenceRefusal,
     },
     /// A penalty in a grid of penalties is negative or not finite.
     #[error(
@@ -278,7 +278,7 @@ pub enum Error {
         /// Number of penalties scored.
         penalties: usize,
         /// The criterion that was scored.
-        criterion: crate::ridge::Criterion,
+        criterion: crate::vocabulary::Criterion,
     },
     /// A saved form (feature `serde`) with another format tag or version
     /// than this version of the crate reads.
@@ -351,7 +351,7 @@ pub enum Error {
     #[error("stopped by the observer during the {stage} stage after {rows_done} of {rows_total} rows of the pass")]
     Stopped {
         /// The stage running when the observer asked to stop.
-        stage: crate::observe::Stage,
+        stage: crate::vocabulary::Stage,
         /// Rows of that stage's pass done when it asked (0 for an
         /// iteration).
         rows_done: usize,
@@ -412,3 +412,25 @@ impl Error {
 
 /// Shorthand for results of this crate.
 pub type Result<T> = std::result::Result<T, Error>;
+
+/// Whether `value` is finite and `>= 0`: the one test of every weight,
+/// penalty, tolerance and other quantity that must be a non-negative number.
+#[inline]
+pub(crate) fn finite_nonnegative(value: f64) -> bool {
+    value.is_finite() && value >= 0.0
+}
+
+/// `value` when it is finite and `>= 0`.
+///
+/// # Errors
+/// [`Error::InvalidParameter`] naming `name` otherwise.
+pub(crate) fn check_finite_nonnegative(name: &'static str, value: f64) -> Result<f64> {
+    if !finite_nonnegative(value) {
+        return Err(Error::InvalidParameter {
+            name,
+            value,
+            reason: "must be finite and >= 0",
+        });
+    }
+    Ok(value)
+}

@@ -263,6 +263,7 @@ macro_rules! checked_settings {
 }
 
 mod alloc;
+#[cfg(feature = "bench-support")]
 #[doc(hidden)]
 pub mod bench_support;
 pub mod error;
@@ -272,6 +273,7 @@ pub mod inference;
 mod linalg;
 pub mod model;
 pub mod observe;
+mod passes;
 mod penalty;
 mod prep;
 pub mod problem;
@@ -283,6 +285,7 @@ mod settings;
 pub mod solver;
 mod solvers;
 pub mod state;
+mod vocabulary;
 
 /// The array crate of the public API, re-exported so that a program
 /// builds its arrays with exactly the version the crate was compiled

@@ -240,14 +240,15 @@ impl LinearModel {
         }
     }
 
-    /// A fitted model (finite values) named after the problem's columns.
+    /// A fitted model (finite values) named after the problem's columns
+    /// (the problem's `names()`, already checked by `check_names`).
     pub(crate) fn fitted(
-        problem: &crate::Problem<'_>,
+        names: Option<&[String]>,
         coefficients: Array1<f64>,
         intercept: f64,
     ) -> Self {
         let mut model = Self::from_parts(coefficients, intercept);
-        if let Some(names) = problem.names() {
+        if let Some(names) = names {
             debug_assert_eq!(names.len(), model.columns());
             model.names = names.to_vec();
         }

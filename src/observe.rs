@@ -18,48 +18,11 @@
 //! Observing never changes a result: the blocks, their order and every
 //! sum are the same with and without an observer.
 
-use std::fmt;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
 
 use crate::error::{Error, Result};
-
-/// What part of a fit is running.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-#[non_exhaustive]
-pub enum Stage {
-    /// Reading the rows into the factorisation: the Gram matrix (Cholesky,
-    /// ridge by Cholesky), the triangular factor (QR, SVD, ridge by QR or
-    /// SVD, and the Cholesky solver's diagnosis of a failed factor), or the
-    /// passes of the dual ridge on a wide design (column norms, the row
-    /// Gram, `Z^T alpha`; the last two read every row in each column block
-    /// and so report their rows once, at the end of the pass).
-    Factor,
-    /// A residual pass: the residual sum of squares of a fit, or the
-    /// leave-one-out errors of [`crate::RidgePath::curve_observed`].
-    Residuals,
-    /// A pass of an iterative-refinement step ([`crate::Qr::refined`]);
-    /// [`Progress::iteration`] is the step.
-    Refinement,
-    /// The gradient solvers' setup: column norms, the loss at the start
-    /// and the step-size estimate.
-    Setup,
-    /// A gradient iteration (an epoch for [`crate::Stochastic`]) has ended;
-    /// no rows are counted.
-    Iteration,
-}
-
-impl fmt::Display for Stage {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(match self {
-            Stage::Factor => "factoring",
-            Stage::Residuals => "residual pass",
-            Stage::Refinement => "refinement",
-            Stage::Setup => "setup",
-            Stage::Iteration => "iteration",
-        })
-    }
-}
+pub use crate::vocabulary::Stage;
 
 /// What an observer sees.
 ///

@@ -35,7 +35,6 @@
 //! every coefficient, and `Ẑ` is (up to the constant `sqrt(u)`) the caller's
 //! weighted centered design (or its standardised form).
 
-use crate::error::{Error, Result};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -47,30 +46,20 @@ use crate::scaled::{exponent, ldexp};
 /// column scale.
 pub(crate) const MAX_SCALED_PENALTY: f64 = f64::MAX;
 
-/// Checks a caller's penalty: finite and `>= 0`.
-///
-/// # Errors
-/// [`Error::InvalidParameter`] naming `name`.
-pub(crate) fn check_penalty(name: &'static str, value: f64) -> Result<f64> {
-    if !value.is_finite() || value < 0.0 {
-        return Err(Error::InvalidParameter {
-            name,
-            value,
-            reason: "must be finite and >= 0",
-        });
-    }
-    Ok(value)
-}
+/// Checks a caller's penalty: finite and `>= 0` (the crate's one check,
+/// [`crate::error::check_finite_nonnegative`]).
+pub(crate) use crate::error::check_finite_nonnegative as check_penalty;
 
 /// The penalty `lambda_j` on each scaled coefficient `gamma_j` for the
 /// caller's `lambda`: `lambda / (ws s_j^2)`, or with `sq_norms` (the squared
 /// column norms `|Z_j|^2` of the scaled design, for standardised columns)
 /// `lambda |Z_j|^2 / W`. Columns treated as constant get 0 (their column of
-/// `Z` is zero). Values are clamped to [`MAX_SCALED_PENALTY`].
+/// `Z` is zero). A value beyond the range of `f64` is `+inf`: an infinite
+/// penalty in these units, which holds that slope at 0 (the caller's
+/// treatment; nothing infinite reaches a result).
 ///
 /// The closed-form ridge solvers use [`PenaltyMap`] instead; this form is
 /// for solvers that keep the coordinates of `Scaling` (gradient methods).
-#[allow(dead_code)]
 pub(crate) fn column_penalties(
     problem: &Problem<'_>,
     scaling: &Scaling,
@@ -91,7 +80,7 @@ pub(crate) fn column_penalties(
             if v.is_nan() {
                 0.0
             } else {
-                v.min(MAX_SCALED_PENALTY)
+                v
             }
         })
         .collect()
@@ -221,6 +210,7 @@ mod tests {
     //! `(Xc^T W Xc + lambda P) b = Xc^T W yc`, solved independently with
     //! nalgebra from the raw arrays.
     use super::*;
+    use crate::error::Error;
     use crate::prep::fill_block;
     use nalgebra::{DMatrix, DVector};
     use ndarray::{Array1, Array2};

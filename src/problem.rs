@@ -10,6 +10,7 @@ use ndarray::{s, ArrayView1, ArrayView2, Axis};
 use rayon::prelude::*;
 
 use crate::error::{Error, Input, Result};
+use crate::linalg::extended::Accumulator;
 use crate::linalg::kernels::{self, ColumnSummary};
 use crate::scaled::Neumaier;
 
@@ -306,11 +307,7 @@ impl<'a> Problem<'a> {
     pub(crate) fn centered_target_squares(&self) -> (f64, i32) {
         *self.stats.target_squares.get_or_init(|| {
             let sy = pow2_scale(self.stats.target_centered_max);
-            let units = crate::linalg::extended::Units {
-                col: Vec::new(),
-                target: 1.0 / sy,
-            };
-            let m = crate::linalg::extended::centered_target_sum_of_squares(self, &units);
+            let m = centered_target_sum_of_squares(self, 1.0 / sy);
             let e =
                 2 * crate::scaled::exponent(sy) + crate::scaled::exponent(self.stats.weight_scale);
             (m, e)
@@ -331,7 +328,7 @@ pub(crate) use crate::scaled::pow2_scale;
 fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
     let mut max = 0.0_f64;
     for (row, &value) in w.iter().enumerate() {
-        if !value.is_finite() || value < 0.0 {
+        if !crate::error::finite_nonnegative(value) {
             return Err(Error::InvalidWeight { row, value });
         }
         max = max.max(value);
@@ -840,4 +837,34 @@ fn scaled_sums(
         ysum.add(yacc.comp);
     }
     (sums, target.then_some(ysum))
+}
+
+/// `sum_i w~_i ((y_i - ybar) / s_y)^2` with the scaled weights (`ybar` the
+/// centering mean, 0 without an intercept), compensated; `inv_target_scale`
+/// is `1 / s_y`. A statistic of the target alone, so it lives with the
+/// problem (refinement and inference use it too).
+pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, inv_target_scale: f64) -> f64 {
+    let y = problem.target();
+    let ym = problem.stats.target_mean;
+    let a = inv_target_scale;
+    let n = problem.rows();
+    let parts: Vec<Accumulator> = (0..n.div_ceil(STATS_CHUNK))
+        .into_par_iter()
+        .map(|c| {
+            let mut acc = Accumulator::default();
+            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
+                let w = problem.scaled_weight(i);
+                if w != 0.0 {
+                    let d = (y[i] - ym) * a;
+                    acc.add_weighted_product(w, d, d);
+                }
+            }
+            acc
+        })
+        .collect();
+    let mut total = Accumulator::default();
+    for p in parts {
+        total.merge(p);
+    }
+    total.value()
 }

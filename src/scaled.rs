@@ -82,7 +82,21 @@ pub(crate) fn pow2_scale(v: f64) -> f64 {
     pow2(exponent(v).clamp(MIN_EXP, MAX_EXP))
 }
 
-/// Compensated (Neumaier) accumulator.
+/// `a + b = s + e` exactly, with `s = fl(a + b)` (Knuth's branch-free
+/// form): the crate's one error-free sum, behind every compensated sum
+/// ([`Neumaier`], `linalg::extended::Accumulator`, the column summaries of
+/// the validation pass).
+#[inline(always)]
+pub(crate) fn two_sum(a: f64, b: f64) -> (f64, f64) {
+    let s = a + b;
+    let bb = s - a;
+    let e = (a - (s - bb)) + (b - bb);
+    (s, e)
+}
+
+/// Compensated (Neumaier) accumulator: the running sum and the exact
+/// rounding errors of its additions ([`two_sum`]; the same error as
+/// Neumaier's ordered form, without its branch).
 #[derive(Clone, Copy, Default, Debug)]
 pub(crate) struct Neumaier {
     pub sum: f64,
@@ -92,12 +106,8 @@ pub(crate) struct Neumaier {
 impl Neumaier {
     #[inline]
     pub fn add(&mut self, v: f64) {
-        let t = self.sum + v;
-        if self.sum.abs() >= v.abs() {
-            self.comp += (self.sum - t) + v;
-        } else {
-            self.comp += (v - t) + self.sum;
-        }
+        let (t, e) = two_sum(self.sum, v);
+        self.comp += e;
         self.sum = t;
     }
 

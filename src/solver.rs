@@ -127,7 +127,7 @@ mod saved {
         let bad = numbers
             .into_iter()
             .chain(history.map(|&v| ("report.iterations.loss_history", v)))
-            .find(|(_, v)| !v.is_finite() || *v < 0.0);
+            .find(|(_, v)| !crate::error::finite_nonnegative(*v));
         if let Some((name, value)) = bad {
             return Err(Error::InvalidParameter {
                 name,
@@ -372,7 +372,7 @@ pub(crate) fn finish_closed_form(
         });
     }
     watch.begin(Stage::Residuals, problem.rows());
-    let scaled = crate::linalg::residuals::centered_rss(problem, &beta, target_scale, watch)?;
+    let scaled = crate::passes::residuals::centered_rss(problem, &beta, target_scale, watch)?;
     let parts = (scaled, rss_exponent(problem, exponent(target_scale)));
     let rss = caller_rss(problem, exponent(target_scale), scaled)?;
     finish_parts(
@@ -519,7 +519,7 @@ fn finish_parts(
     });
     let (sigma, r_squared) = spread_measures(problem, rss_parts, residual_df);
     Ok(Fit {
-        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: solver.to_string(),
             rank,
@@ -566,14 +566,6 @@ pub(crate) fn intercept_for(problem: &Problem<'_>, beta: &[f64]) -> f64 {
     st.target_mean - ldexp(sum, ey)
 }
 
-/// Checks a user-supplied tolerance.
-pub(crate) fn check_tolerance(name: &'static str, value: f64) -> Result<f64> {
-    if !value.is_finite() || value < 0.0 {
-        return Err(Error::InvalidParameter {
-            name,
-            value,
-            reason: "must be finite and >= 0",
-        });
-    }
-    Ok(value)
-}
+/// Checks a user-supplied tolerance: finite and `>= 0` (the crate's one
+/// check, [`crate::error::check_finite_nonnegative`]).
+pub(crate) use crate::error::check_finite_nonnegative as check_tolerance;

@@ -112,9 +112,9 @@ use rand_chacha::rand_core::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 use crate::error::{Error, Input, Result};
-use crate::linalg::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
 use crate::model::LinearModel;
 use crate::observe::{Control, Stage, Watch};
+use crate::passes::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
@@ -157,13 +157,7 @@ impl Common<'_> {
                 });
             }
         }
-        if !self.penalty.is_finite() || self.penalty < 0.0 {
-            return Err(Error::InvalidParameter {
-                name: "penalty",
-                value: self.penalty,
-                reason: "must be finite and >= 0",
-            });
-        }
+        crate::penalty::check_penalty("penalty", self.penalty)?;
         Ok(())
     }
 }
@@ -227,7 +221,6 @@ impl<'p, 'a> Objective<'p, 'a> {
         let scaling = Scaling::new(problem, problem.default_rank_tolerance());
         let p = problem.columns();
         let weight = problem.stats.total_weight;
-        let ws = problem.stats.weight_scale;
         // Squared norms of the columns after the exact power-of-two scaling
         // (no overflow: every scaled value is at most 2 in magnitude).
         watch.begin(Stage::Setup, problem.rows());
@@ -242,14 +235,14 @@ impl<'p, 'a> Objective<'p, 'a> {
         let mut rs = vec![0.0; p];
         let mut mu = vec![0.0; p];
         let mut live = vec![false; p];
-        let ws_exp = crate::scaled::exponent(ws);
+        // Penalty on the power-of-two-scaled coordinate:
+        // lambda b_j^2 / (ws s_y^2) with b_j = g_j s_y / s_j.
+        let penalties = crate::penalty::column_penalties(problem, &scaling, penalty, None);
         for j in 0..p {
             if scaling.constant[j] {
                 continue;
             }
-            // Penalty on the power-of-two-scaled coordinate:
-            // lambda b_j^2 / (ws s_y^2) with b_j = g_j s_y / s_j.
-            let pen = crate::scaled::ldexp(penalty, -ws_exp - 2 * scaling.scale_exp[j]);
+            let pen = penalties[j];
             let diag = norms[j] + pen;
             if diag.is_nan() || diag <= 0.0 {
                 continue;
@@ -668,7 +661,7 @@ pub(crate) fn finish(
         return Err(Error::Overflow { what: "loss" });
     }
     Ok(Fit {
-        model: LinearModel::fitted(problem, ndarray::Array1::from(beta), intercept),
+        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
         report: FitReport {
             solver: name.to_string(),
             // Nothing is factored: the rank and condition are not measured.

@@ -223,13 +223,7 @@ impl Stochastic {
                 reason: "must be at least 1",
             });
         }
-        if !self.decay.is_finite() || self.decay < 0.0 {
-            return Err(Error::InvalidParameter {
-                name: "decay",
-                value: self.decay,
-                reason: "must be finite and >= 0",
-            });
-        }
+        crate::error::check_finite_nonnegative("decay", self.decay)?;
         self.common().check()
     }
 }
@@ -367,13 +361,7 @@ impl Solver for Stochastic {
                 reason: "must be at least 1",
             });
         }
-        if !self.decay.is_finite() || self.decay < 0.0 {
-            return Err(Error::InvalidParameter {
-                name: "decay",
-                value: self.decay,
-                reason: "must be finite and >= 0",
-            });
-        }
+        crate::error::check_finite_nonnegative("decay", self.decay)?;
         let common = self.common();
         let mut s = setup(problem, &common, &watch)?;
         let rows: Vec<usize> = (0..problem.rows())

@@ -4,7 +4,7 @@ use ndarray::Array1;
 
 use super::{Inference, LEVERAGE_ONE};
 use crate::error::{Error, Result};
-use crate::linalg::leverage::{row_pass, RowPassSpec};
+use crate::passes::leverage::{row_pass, RowPassSpec};
 use crate::problem::Problem;
 use crate::scaled::ldexp;
 

@@ -137,15 +137,16 @@ pub use distributions::{
 pub use goodness::{Collinearity, GoodnessOfFit, OverallTest};
 pub use predict::Predictions;
 
-use std::fmt;
+pub use crate::vocabulary::InferenceRefusal;
 
 use faer::Mat;
 use ndarray::Array2;
 
 use crate::error::{Error, Result};
-use crate::linalg::leverage::{row_pass, RowPassSpec};
 use crate::linalg::products::{congruence_into, solve_upper_transposed};
-use crate::linalg::{extended, qr::tall_skinny_r, triangular};
+use crate::linalg::triangular;
+use crate::passes::leverage::{row_pass, RowPassSpec};
+use crate::passes::qr::tall_skinny_r;
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -159,51 +160,16 @@ pub(crate) const LEVERAGE_ONE: f64 = 1e-10;
 /// beyond rounding) is refused with [`InferenceRefusal::FarFromSolution`].
 pub const MAX_FIT_DISTANCE: f64 = 0.1;
 
-/// Which covariance matrix of the estimates feeds the standard errors,
-/// tests and intervals.
-///
-/// With weights, the sandwich estimators are applied to the rows scaled by
-/// `sqrt(w_i)`: with `X~` the design with a ones column and `e~_i =
-/// sqrt(w_i) e_i`, `(X~^T X~)^-1 X~^T diag(omega_i e~_i^2) X~ (X~^T X~)^-1`
-/// where `X~` has rows `sqrt(w_i) (1, x_i)` and `h_i` are the leverages of
-/// `X~` (common practice). `n` counts rows with non-zero weight, `k` the
-/// parameters.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[non_exhaustive]
-pub enum CovarianceKind {
-    /// `sigma^2 (X~^T X~)^-1`: errors of constant variance (up to the weights).
-    #[default]
-    Classical,
-    /// White's sandwich, `omega_i = 1`.
-    Hc0,
-    /// HC0 scaled by `n / (n - k)`.
-    Hc1,
-    /// `omega_i = 1 / (1 - h_i)`.
-    Hc2,
-    /// `omega_i = 1 / (1 - h_i)^2`: the most conservative of the four in small samples.
-    Hc3,
-}
+pub use crate::vocabulary::CovarianceKind;
 
-impl CovarianceKind {
-    /// A short name for reports.
-    pub fn name(&self) -> &'static str {
-        match self {
-            CovarianceKind::Classical => "classical",
-            CovarianceKind::Hc0 => "HC0 sandwich",
-            CovarianceKind::Hc1 => "HC1 sandwich",
-            CovarianceKind::Hc2 => "HC2 sandwich",
-            CovarianceKind::Hc3 => "HC3 sandwich",
-        }
-    }
-
-    fn leverage_power(&self) -> Option<i32> {
-        match self {
-            CovarianceKind::Classical => None,
-            CovarianceKind::Hc0 | CovarianceKind::Hc1 => Some(0),
-            CovarianceKind::Hc2 => Some(1),
-            CovarianceKind::Hc3 => Some(2),
-        }
+/// The power of `1 - h_i` in a sandwich covariance's row weights (`None`
+/// for the classical covariance).
+fn leverage_power(kind: &CovarianceKind) -> Option<i32> {
+    match kind {
+        CovarianceKind::Classical => None,
+        CovarianceKind::Hc0 | CovarianceKind::Hc1 => Some(0),
+        CovarianceKind::Hc2 => Some(1),
+        CovarianceKind::Hc3 => Some(2),
     }
 }
 
@@ -271,132 +237,6 @@ impl InferenceOptions {
     /// `with_*` methods.
     pub fn new() -> Self {
         Self::default()
-    }
-}
-
-/// Why inference was refused for a fit (carried by [`Error::InferenceRefused`]).
-#[derive(Debug, Clone, PartialEq)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-#[non_exhaustive]
-pub enum InferenceRefusal {
-    /// Some coefficients are not identified: numerical rank below the columns.
-    RankDeficient {
-        /// Numerical rank of the centered design.
-        rank: usize,
-        /// Columns of the design.
-        columns: usize,
-    },
-    /// A penalised (ridge) fit: the estimator is biased, so classical and
-    /// sandwich intervals would not have their stated coverage.
-    Penalised {
-        /// The penalty of the fit.
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        penalty: f64,
-    },
-    /// An iterative fit that stopped before converging.
-    NotConverged {
-        /// Iterations (or epochs) it ran.
-        iterations: usize,
-    },
-    /// No residual degrees of freedom: `usable_rows <= parameters`.
-    NoResidualDegreesOfFreedom {
-        /// Rows with non-zero weight.
-        usable_rows: usize,
-        /// Parameters (columns, plus one for the intercept).
-        parameters: usize,
-    },
-    /// HC2 or HC3 needs `1 - h_i > 0`, and this row has leverage 1.
-    LeverageOne {
-        /// Row index (0-based).
-        row: usize,
-        /// Its computed leverage.
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        leverage: f64,
-    },
-    /// The fit's report does not match the problem given (another data set?).
-    DifferentProblem {
-        /// Usable rows recorded in the fit's report.
-        fit_rows: usize,
-        /// Usable rows of the problem given.
-        problem_rows: usize,
-    },
-    /// The problem given is not the one the fit (or the inference) was
-    /// computed from: its [`Problem::fingerprint`] differs.
-    DifferentData {
-        /// The fingerprint recorded at fit time.
-        recorded: u64,
-        /// The fingerprint of the problem given.
-        given: u64,
-    },
-    /// The fit's coefficients are further from the exact least-squares
-    /// solution than [`MAX_FIT_DISTANCE`] standard errors (beyond
-    /// rounding): intervals around them would be shifted.
-    FarFromSolution {
-        /// The distance in standard errors (see [`Inference::fit_distance`];
-        /// `+inf` when the exact solution fits the data exactly and the
-        /// fit does not).
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        distance: f64,
-        /// The bound, [`MAX_FIT_DISTANCE`].
-        #[cfg_attr(feature = "serde", serde(with = "crate::serde_float::float"))]
-        bound: f64,
-    },
-    /// A sandwich covariance was asked of a fit state: it needs every
-    /// row's residual and leverage, which a state does not keep (the
-    /// second pass over the same blocks gives it).
-    NeedsRows {
-        /// The covariance asked for.
-        covariance: CovarianceKind,
-    },
-}
-
-impl fmt::Display for InferenceRefusal {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            InferenceRefusal::RankDeficient { rank, columns } => write!(
-                f,
-                "the design has numerical rank {rank} of {columns} columns, so some coefficients are not identified"
-            ),
-            InferenceRefusal::Penalised { penalty } => write!(
-                f,
-                "the fit is penalised (penalty {penalty:e}); a penalised estimate is biased and has no valid classical or sandwich intervals"
-            ),
-            InferenceRefusal::NotConverged { iterations } => write!(
-                f,
-                "the iterative fit stopped after {iterations} iterations without converging"
-            ),
-            InferenceRefusal::NoResidualDegreesOfFreedom {
-                usable_rows,
-                parameters,
-            } => write!(
-                f,
-                "{usable_rows} usable rows leave no residual degrees of freedom for {parameters} parameters"
-            ),
-            InferenceRefusal::LeverageOne { row, leverage } => write!(
-                f,
-                "row {row} has leverage {leverage} (one to rounding), where HC2 and HC3 are undefined; use HC0 or HC1"
-            ),
-            InferenceRefusal::DifferentProblem {
-                fit_rows,
-                problem_rows,
-            } => write!(
-                f,
-                "the fit used {fit_rows} rows but the problem given has {problem_rows}: pass the problem that was fitted"
-            ),
-            InferenceRefusal::DifferentData { recorded, given } => write!(
-                f,
-                "the problem given (fingerprint {given:016x}) is not the one that was fitted (fingerprint {recorded:016x}): pass the problem that was fitted"
-            ),
-            InferenceRefusal::FarFromSolution { distance, bound } => write!(
-                f,
-                "the fit's coefficients are {distance:.3e} standard errors from the exact least-squares solution (at most {bound} accepted): fit with a closed-form solver, or tighten the iterative tolerance"
-            ),
-            InferenceRefusal::NeedsRows { covariance } => write!(
-                f,
-                "the {} covariance needs every row's residual and leverage, which a fit state does not keep: feed the blocks again to the state's second pass",
-                covariance.name()
-            ),
-        }
     }
 }
 
@@ -492,7 +332,7 @@ struct Basis {
 }
 
 /// Inference for a fitted least-squares model: every number is a public
-/// field; [`fmt::Display`] prints a plain-text summary.
+/// field; [`std::fmt::Display`] prints a plain-text summary.
 ///
 /// See the [module documentation](crate::inference) for the model, the
 /// conventions, the cautions and the memory used. Deserialised values
@@ -909,7 +749,7 @@ impl Inference {
         // products of small residuals and small leverage coordinates do not
         // underflow; the covariance carries the factor back as an exponent.
         let residual_exp = exponent(rss_norm.max(f64::MIN_POSITIVE));
-        let meat: Option<Array2<f64>> = match options.covariance.leverage_power() {
+        let meat: Option<Array2<f64>> = match leverage_power(&options.covariance) {
             None => None,
             Some(power) => {
                 let pass = row_pass(
@@ -979,13 +819,7 @@ impl Inference {
 
         let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
         let inv_sy = 1.0 / scaling.target_scale;
-        let tss_scaled = extended::centered_target_sum_of_squares(
-            problem,
-            &extended::Units {
-                col: Vec::new(),
-                target: inv_sy,
-            },
-        );
+        let tss_scaled = crate::problem::centered_target_sum_of_squares(problem, inv_sy);
         let goodness = goodness::compute(goodness::Inputs {
             n,
             centered: has_intercept,

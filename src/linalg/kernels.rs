@@ -129,6 +129,39 @@ pub(crate) fn centered_dot4(x: [&[f64]; 4], m: &[f64], b: &[f64]) -> [f64; 4] {
     ]
 }
 
+/// `sum_i (x[i] - m) * u[i]` (`u` at least as long as `x`), in eight lanes
+/// reduced in a fixed order (each term added by one fused multiply-add).
+#[inline(always)]
+pub(crate) fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
+    let n = x.len();
+    let u = &u[..n];
+    let mut acc = [0.0f64; LANES];
+    let whole = n - n % LANES;
+    let mut j = 0;
+    while j < whole {
+        let (xs, us) = (&x[j..j + LANES], &u[j..j + LANES]);
+        for l in 0..LANES {
+            acc[l] = (xs[l] - m).mul_add(us[l], acc[l]);
+        }
+        j += LANES;
+    }
+    for (l, jj) in (whole..n).enumerate() {
+        acc[l] = (x[jj] - m).mul_add(u[jj], acc[l]);
+    }
+    reduce(acc)
+}
+
+/// `acc[j] += u * (x[j] - m[j])` by one fused multiply-add per entry, for
+/// `j` below the shortest of the three lengths.
+#[inline(always)]
+pub(crate) fn centered_axpy(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
+    let n = acc.len().min(x.len()).min(m.len());
+    let (acc, x, m) = (&mut acc[..n], &x[..n], &m[..n]);
+    for j in 0..n {
+        acc[j] = u.mul_add(x[j] - m[j], acc[j]);
+    }
+}
+
 /// Sum of the lanes in a fixed (pairwise) order.
 #[inline(always)]
 pub(crate) fn reduce(a: [f64; LANES]) -> f64 {
@@ -199,9 +232,8 @@ impl ColumnSummary {
             let v = x[j];
             ck[j] += v * 0.0;
             let a = if weighted { w * v } else { v };
-            let t = s[j] + a;
-            let bp = t - s[j];
-            c[j] += (s[j] - (t - bp)) + (a - bp);
+            let (t, e) = crate::scaled::two_sum(s[j], a);
+            c[j] += e;
             s[j] = t;
             lo[j] = if v < lo[j] { v } else { lo[j] };
             hi[j] = if v > hi[j] { v } else { hi[j] };

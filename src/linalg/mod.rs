@@ -1,37 +1,31 @@
 //! The linear-algebra seam: every dense factorisation and product of the
 //! crate goes through this module, and only this module names the backend
-//! (faer). A LAPACK backend can replace these functions behind a cargo
+//! (faer; the passes of [`crate::passes`] use its matrix type and block
+//! products too). A LAPACK backend can replace these functions behind a cargo
 //! feature without touching any solver.
 //!
-//! Solvers call:
-//! - [`gram::centered_gram`]: the symmetric product `Z^T Z` of the centered,
-//!   weighted, scaled design over row blocks in parallel (half the flops of a
-//!   general product);
-//! - [`qr::tall_skinny_r`]: the `R` factor of the same matrix by Householder
-//!   QR of row blocks combined pairwise (TSQR), never forming `Q`;
-//! - [`cholesky`], [`svd`], [`triangular`]: small dense factorisations;
-//! - [`residuals`]: fused residual passes over the design;
-//! - [`leverage`], [`products`]: the row pass and small products used by
-//!   inference (leverages without the hat matrix, sandwich middle matrices).
-//! - [`extended`]: residual passes in double-double arithmetic for
-//!   iterative refinement;
-//! - [`gradient`]: fused residual-and-gradient passes for the gradient solvers;
-//! - [`dense`], [`dual`], [`loo`]: small products, the row Gram of wide designs and
-//!   leave-one-out sums for the ridge solvers and the penalty path.
+//! Pure kernels: nothing here sees a `Problem`, a `Scaling` or an observer
+//! (the passes over a problem's rows live in [`crate::passes`] and call
+//! these). It offers:
+//! - [`qr`]: the structured Householder QR of a triangle stacked on a block
+//!   of rows (the step of TSQR and of merging two triangles);
+//! - [`gram`]: the rank-k update of a Gram matrix by one block;
+//! - [`cholesky`], [`svd`], [`triangular`], [`householder`]: small dense
+//!   factorisations;
+//! - [`dense`], [`products`]: small products, congruences, symmetric eigen;
+//! - [`extended`]: double-double sums and products;
+//! - [`kernels`]: run-time dispatched SIMD loops;
+//! - the fixed row-block partition ([`block_groups`], [`block_rows`]) and
+//!   the fixed fold tree ([`tree_reduce`]) every pass uses.
 
 pub(crate) mod cholesky;
 pub(crate) mod dense;
-pub(crate) mod dual;
 pub(crate) mod extended;
-pub(crate) mod gradient;
 pub(crate) mod gram;
 pub(crate) mod householder;
 pub(crate) mod kernels;
-pub(crate) mod leverage;
-pub(crate) mod loo;
 pub(crate) mod products;
 pub(crate) mod qr;
-pub(crate) mod residuals;
 pub(crate) mod svd;
 pub(crate) mod triangular;
 

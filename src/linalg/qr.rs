@@ -23,11 +23,7 @@ use faer::linalg::matmul::matmul;
 use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::{Accum, Mat, MatMut, MatRef, Par};
 
-use super::{block_groups, kernels, tree_reduce};
-use crate::error::Result;
-use crate::observe::Watch;
-use crate::prep::{fill_block, Scaling};
-use crate::problem::Problem;
+use super::kernels;
 use crate::scaled::{exponent, ldexp};
 
 /// Columns per panel of the stacked QR (one 64-byte cache line of a row).
@@ -39,7 +35,7 @@ const TINY_EXP: i32 = -900;
 
 /// Groups of the TSQR pass (fixed, not the thread count: their triangles
 /// are folded in order, so the result does not depend on the threads).
-const QR_GROUPS: usize = 16;
+pub(crate) const QR_GROUPS: usize = 16;
 
 /// Row stride of a block with `k` columns: `k` rounded up to whole panels.
 pub(crate) fn row_stride(k: usize) -> usize {
@@ -450,141 +446,6 @@ fn apply_panel(
         }
     }
     matmul(trail.rb_mut(), Accum::Add, v, w.rb(), -1.0, Par::Seq);
-}
-
-/// Returns the upper-triangular `k x k` factor `R` with `Z = Q R`, where `Z`
-/// is the centered, weighted, scaled design (plus the target as a last
-/// column when `with_target`: then `R[..p, p]` is `Q^T y` and `|R[p, p]|`
-/// the residual norm of the scaled problem). The signs of `R`'s rows are
-/// arbitrary (a Householder convention).
-///
-/// Reports every block to `watch` (whose pass the caller has begun); a
-/// stop skips the blocks not yet started and returns
-/// [`crate::Error::Stopped`].
-pub(crate) fn tall_skinny_r(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    with_target: bool,
-    watch: &Watch<'_>,
-) -> Result<Mat<f64>> {
-    let last = if with_target {
-        LastColumn::Target
-    } else {
-        LastColumn::None
-    };
-    factor_r(problem, scaling, last, watch)
-}
-
-/// As [`tall_skinny_r`], with the last column `sqrt(w_i) v_i * inv_scale`
-/// built from a caller-supplied vector `v` (one entry per row) instead of
-/// the target: `R[..p, p]` is then `Q^T (W^(1/2) v) * inv_scale` for the
-/// same `Q` as the design's (the design columns are factored exactly as
-/// with the target, whatever the last column holds). Iterative refinement
-/// uses it to apply `Q^T` to a residual without storing `Q`.
-pub(crate) fn tall_skinny_r_with(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    v: &[f64],
-    inv_scale: f64,
-    watch: &Watch<'_>,
-) -> Result<Mat<f64>> {
-    factor_r(problem, scaling, LastColumn::Vector(v, inv_scale), watch)
-}
-
-/// What the column after the design holds.
-#[derive(Clone, Copy)]
-enum LastColumn<'v> {
-    None,
-    Target,
-    Vector(&'v [f64], f64),
-}
-
-/// Writes rows `r0..r1` of the transformed design and its last column.
-fn fill_with_last(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    r0: usize,
-    r1: usize,
-    last: LastColumn<'_>,
-    mut out: MatMut<'_, f64>,
-) {
-    match last {
-        LastColumn::None => fill_block(problem, scaling, r0, r1, false, out),
-        LastColumn::Target => fill_block(problem, scaling, r0, r1, true, out),
-        LastColumn::Vector(v, inv_scale) => {
-            let p = problem.columns();
-            fill_block(
-                problem,
-                scaling,
-                r0,
-                r1,
-                false,
-                out.rb_mut().subcols_mut(0, p),
-            );
-            for (local, i) in (r0..r1).enumerate() {
-                out[(local, p)] = problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
-            }
-        }
-    }
-}
-
-fn factor_r(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    last: LastColumn<'_>,
-    watch: &Watch<'_>,
-) -> Result<Mat<f64>> {
-    let k = problem.columns() + usize::from(!matches!(last, LastColumn::None));
-    let ld = row_stride(k);
-    let b = qr_block_rows(k);
-    // Folding two triangles costs about as much as factoring `k` rows, so
-    // every group gets at least `8 k` rows (a wide design gets one group).
-    let max_groups = super::accumulator_groups(problem.rows(), k).min(QR_GROUPS);
-    let groups = block_groups(problem.rows(), b, max_groups);
-    // A column-major design is read column by column into a column-major
-    // block; any other layout row by row into a row-major block.
-    let design = problem.design();
-    let strides = design.strides();
-    let by_columns = problem.columns() > 1 && strides[0] == 1 && strides[1] != 1;
-    let leaf = |group: &[(usize, usize)]| {
-        let mut r = Mat::<f64>::zeros(k, k);
-        let mut buf = vec![0.0f64; b * ld.max(k)];
-        let mut work = StackedQrWork::new(k);
-        for &(r0, r1) in group {
-            if !watch.go_on() {
-                break;
-            }
-            let len = r1 - r0;
-            if by_columns {
-                let used = (k - 1) * b + len;
-                let out =
-                    MatMut::from_column_major_slice_with_stride_mut(&mut buf[..used], len, k, b);
-                fill_with_last(problem, scaling, r0, r1, last, out);
-                stacked_qr_by_columns(r.as_mut(), &mut buf, b, len, &mut work);
-            } else {
-                let out = row_major_mut(&mut buf, len, k, ld);
-                fill_with_last(problem, scaling, r0, r1, last, out);
-                stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
-            }
-            watch.rows_done(len);
-        }
-        r
-    };
-    // Folding triangle `b` into `a`: the QR of `[a; b]`.
-    let merge = |mut a: Mat<f64>, part: Mat<f64>| {
-        let mut buf = vec![0.0f64; k * ld];
-        for i in 0..k {
-            for j in i..k {
-                buf[i * ld + j] = part[(i, j)];
-            }
-        }
-        let mut work = StackedQrWork::new(k);
-        stacked_qr(a.as_mut(), &mut buf, ld, k, &mut work);
-        a
-    };
-    let r = tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k));
-    watch.check()?;
-    Ok(r)
 }
 
 /// Thin `Q` of a small dense matrix (see [`super::householder::thin_q`]).

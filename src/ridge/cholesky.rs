@@ -3,8 +3,9 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky as chol, gram::centered_gram, triangular};
+use crate::linalg::{cholesky as chol, triangular};
 use crate::observe::{Stage, Watch};
+use crate::passes::gram::centered_gram;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;

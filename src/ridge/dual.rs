@@ -2,8 +2,9 @@
 //! columns than rows.
 
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky as chol, dual, triangular};
+use crate::linalg::{cholesky as chol, triangular};
 use crate::observe::Watch;
+use crate::passes::dual;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;

@@ -101,9 +101,10 @@ mod path;
 mod qr;
 mod selection;
 
+pub use crate::vocabulary::Criterion;
 pub use folds::{HeldOutError, RowFolds};
 pub use path::RidgePath;
-pub use selection::{Criterion, PenaltyCurve};
+pub use selection::PenaltyCurve;
 
 use crate::error::{Error, Result};
 use crate::observe::{Observer, Watch};

@@ -4,11 +4,9 @@ use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{
-    cholesky as chol, dense, dual, gram::centered_gram, qr::tall_skinny_r, residuals,
-    svd::thin_svd, triangular,
-};
+use crate::linalg::{cholesky as chol, dense, svd::thin_svd, triangular};
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::{dual, gram::centered_gram, qr::tall_skinny_r, residuals};
 use crate::penalty::{check_penalty, PenaltyMap};
 use crate::prep::Scaling;
 use crate::problem::Problem;

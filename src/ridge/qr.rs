@@ -4,8 +4,9 @@
 use faer::{Mat, MatRef};
 
 use crate::error::Result;
-use crate::linalg::{dense, qr::tall_skinny_r, svd::thin_svd, triangular};
+use crate::linalg::{dense, svd::thin_svd, triangular};
 use crate::observe::{Stage, Watch};
+use crate::passes::qr::tall_skinny_r;
 use crate::penalty::PenaltyMap;
 use crate::prep::Scaling;
 use crate::problem::Problem;

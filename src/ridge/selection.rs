@@ -4,40 +4,14 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{dense, loo};
+use crate::linalg::dense;
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::loo;
 use crate::scaled::ldexp;
 use crate::solver::caller_rss;
+use crate::vocabulary::Criterion;
 
 use super::path::{RidgePath, Side};
-
-/// The score that picks the penalty.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
-pub enum Criterion {
-    /// Leave-one-out cross-validation error, exact for each penalty (one
-    /// extra pass over the design when rows >= columns).
-    LeaveOneOut,
-    /// Generalized cross-validation: the leave-one-out formula with every
-    /// leverage replaced by their mean; costs nothing beyond the path.
-    GeneralizedCrossValidation,
-}
-
-impl Criterion {
-    /// The criterion in words, as messages print it.
-    pub fn label(self) -> &'static str {
-        match self {
-            Criterion::LeaveOneOut => "leave-one-out",
-            Criterion::GeneralizedCrossValidation => "generalized cross-validation",
-        }
-    }
-}
-
-impl std::fmt::Display for Criterion {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str(self.label())
-    }
-}
 
 /// Scores of every penalty of a grid, and the one that minimises the
 /// chosen criterion.
@@ -101,7 +75,7 @@ pub(crate) fn check_grid(grid: &[f64]) -> Result<()> {
         });
     }
     for (index, &value) in grid.iter().enumerate() {
-        if !value.is_finite() || value < 0.0 {
+        if !crate::error::finite_nonnegative(value) {
             return Err(Error::InvalidGridPenalty { index, value });
         }
     }

@@ -1,8 +1,9 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky as chol, gram::centered_gram, qr::tall_skinny_r, triangular};
+use crate::linalg::{cholesky as chol, triangular};
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::{gram::centered_gram, qr::tall_skinny_r};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};

@@ -2,9 +2,10 @@ use faer::Mat;
 use ndarray::Array1;
 
 use crate::error::{Error, Result};
-use crate::linalg::{qr::tall_skinny_r, triangular};
+use crate::linalg::triangular;
 use crate::model::LinearModel;
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes::qr::tall_skinny_r;
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::ldexp;
@@ -216,7 +217,11 @@ impl Solver for Qr {
             rss,
             0.0,
         )?;
-        fit.model = LinearModel::fitted(problem, Array1::from(refined.beta), refined.intercept);
+        fit.model = LinearModel::fitted(
+            problem.names(),
+            Array1::from(refined.beta),
+            refined.intercept,
+        );
         let loss_exp = 2 * scaling.target_exp;
         let losses: Vec<f64> = refined.losses.iter().map(|&l| ldexp(l, loss_exp)).collect();
         // The crate's loss: the weighted mean squared residual.

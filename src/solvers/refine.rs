@@ -3,13 +3,13 @@
 
 use faer::Mat;
 
-use crate::error::{Error, Result};
-use crate::linalg::{
+use crate::error::Result;
+use crate::linalg::triangular;
+use crate::observe::{Stage, Watch};
+use crate::passes::{
     extended::{self, Units},
     qr::tall_skinny_r_with,
-    triangular,
 };
-use crate::observe::{Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::{ldexp, pow2_scale};
@@ -76,13 +76,7 @@ impl Refinement {
     /// Checks the settings (as a fit does), for reading saved settings.
     #[cfg_attr(not(feature = "serde"), allow(dead_code))]
     pub(crate) fn check(&self) -> Result<()> {
-        if !self.tolerance.is_finite() || self.tolerance < 0.0 {
-            return Err(Error::InvalidParameter {
-                name: "refinement.tolerance",
-                value: self.tolerance,
-                reason: "must be finite and >= 0",
-            });
-        }
+        crate::error::check_finite_nonnegative("refinement.tolerance", self.tolerance)?;
         Ok(())
     }
 }
@@ -167,13 +161,7 @@ pub(crate) fn refine(
     beta: Vec<f64>,
     watch: &Watch<'_>,
 ) -> Result<Refined> {
-    if !settings.tolerance.is_finite() || settings.tolerance < 0.0 {
-        return Err(Error::InvalidParameter {
-            name: "refinement.tolerance",
-            value: settings.tolerance,
-            reason: "must be finite and >= 0",
-        });
-    }
+    crate::error::check_finite_nonnegative("refinement.tolerance", settings.tolerance)?;
     let p = problem.columns();
     let with_intercept = problem.has_intercept();
     let units = Units {
@@ -198,7 +186,7 @@ pub(crate) fn refine(
         })
         .collect();
 
-    let y_norm = extended::centered_target_sum_of_squares(problem, &units).sqrt();
+    let y_norm = crate::problem::centered_target_sum_of_squares(problem, units.target).sqrt();
     let n = problem.rows();
     watch.begin_step(Stage::Refinement, Some(0), n);
     let mut e = extended::residuals(problem, &units, b0, &gamma, watch)?;

@@ -3,6 +3,7 @@ use faer::Mat;
 use crate::error::{Error, Result};
 use crate::linalg::{qr, svd::thin_svd};
 use crate::observe::{Observer, Stage, Watch};
+use crate::passes;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
@@ -113,7 +114,7 @@ impl Solver for Svd {
             return fit_wide(problem, self.name(), &scaling, cutoff, &watch);
         }
         watch.begin(Stage::Factor, problem.rows());
-        let r = qr::tall_skinny_r(problem, &scaling, true, &watch)?;
+        let r = passes::qr::tall_skinny_r(problem, &scaling, true, &watch)?;
         // Keep only the informative (non-constant) columns.
         let live: Vec<usize> = (0..p).filter(|&j| !scaling.constant[j]).collect();
         let q = live.len();

@@ -394,7 +394,7 @@ impl Core {
                 });
             }
             for (i, &value) in w.iter().enumerate() {
-                if !value.is_finite() || value < 0.0 {
+                if !crate::error::finite_nonnegative(value) {
                     return Err(Error::InvalidWeight {
                         row: base.saturating_add(i),
                         value,

@@ -134,7 +134,7 @@ fn from_data(d: StateData, kind: &str) -> Result<(Core, Mat<f64>)> {
     if d.usable_rows > d.rows {
         return Err(invalid("usable_rows", 0, "more than the rows"));
     }
-    let nonneg = |v: f64| v.is_finite() && v >= 0.0;
+    let nonneg = crate::error::finite_nonnegative;
     if !nonneg(d.weight) || (d.weight > 0.0) != (d.usable_rows > 0) {
         return Err(invalid(
             "weight",

@@ -12,7 +12,7 @@ use faer::linalg::matmul::matmul;
 use faer::{Accum, Mat, MatRef, Par};
 use rayon::prelude::*;
 
-use super::{block_groups, block_rows, GROUPS};
+use crate::linalg::{block_groups, block_rows, GROUPS};
 use crate::observe::Watch;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;

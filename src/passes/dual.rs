@@ -11,7 +11,7 @@ use faer::linalg::matmul::triangular::{matmul, BlockStructure};
 use faer::{Accum, Mat, Par};
 use rayon::prelude::*;
 
-use super::as_faer;
+use crate::linalg::as_faer;
 use crate::observe::{Stage, Watch};
 use crate::prep::Scaling;
 use crate::problem::Problem;
@@ -41,10 +41,10 @@ fn column_coefficients(scaling: &Scaling, factors: &[f64]) -> Vec<f64> {
 }
 
 /// Columns per block for a row Gram over `n` rows: a block of
-/// [`super::BLOCK_BYTES`] (see [`super::block_rows`]: the block holds `n`
+/// [`crate::linalg::BLOCK_BYTES`] (see [`crate::linalg::block_rows`]: the block holds `n`
 /// numbers per column).
 fn column_block(n: usize) -> usize {
-    super::block_rows(n)
+    crate::linalg::block_rows(n)
 }
 
 /// Computes `Ẑ Ẑ^T` over the rows listed in `rows` (row indices of the

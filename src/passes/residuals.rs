@@ -3,8 +3,8 @@
 use ndarray::{s, Axis};
 use rayon::prelude::*;
 
-use super::kernels;
 use crate::error::Result;
+use crate::linalg::kernels;
 use crate::observe::Watch;
 use crate::problem::{Problem, STATS_CHUNK};
 

@@ -15,8 +15,8 @@ use faer::linalg::triangular_solve::solve_lower_triangular_in_place;
 use faer::{Accum, Mat, MatRef, Par};
 use ndarray::Axis;
 
-use super::{accumulator_groups, block_groups, block_rows, tree_reduce, GROUPS};
 use crate::error::Result;
+use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce, GROUPS};
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 
@@ -72,7 +72,7 @@ struct GroupResult {
 /// partition of the rows (results do not depend on the thread count), the
 /// groups' results folded in a fixed tree ([`tree_reduce`]).
 ///
-/// Extra memory: one block of rows ([`super::BLOCK_BYTES`]) per running
+/// Extra memory: one block of rows ([`crate::linalg::BLOCK_BYTES`]) per running
 /// group; with a middle matrix, one `q x q` accumulator per group alive
 /// (at most one group per `8 q` rows, see [`accumulator_groups`]); the
 /// per-row vectors when kept.

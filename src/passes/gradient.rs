@@ -23,15 +23,15 @@
 //! run in parallel and their partial sums are added in group order, so a
 //! pass gives the same bits on any number of threads.
 //!
-//! The hot loops keep eight independent partial sums in a fixed order, so
-//! the compiler vectorises them without changing the result; on x86-64 the
-//! same source is also compiled for AVX2 and chosen at run time, giving
-//! identical bits on both paths (no fused multiply-add is used).
+//! The hot loops are the run-time dispatched kernels of
+//! [`crate::linalg::kernels`] (eight lanes in a fixed order, fused
+//! multiply-adds, the same bits on every instruction set), and each path is
+//! compiled once per instruction set through `kernels::dispatch`.
 
 use ndarray::{s, ArrayView2, Axis};
 use rayon::prelude::*;
 
-use super::{block_groups, GROUPS};
+use crate::linalg::{block_groups, kernels, GROUPS};
 use crate::observe::Watch;
 use crate::problem::Problem;
 
@@ -48,9 +48,9 @@ pub(crate) struct Pass {
 const ROW_CHUNK: usize = 1024;
 
 /// Rows per block of the partition (and of a column-major pass's residual
-/// vectors): [`super::block_rows`].
+/// vectors): [`crate::linalg::block_rows`].
 fn block_len(p: usize) -> usize {
-    super::block_rows(p)
+    crate::linalg::block_rows(p)
 }
 
 /// What a pass needs besides the design.
@@ -323,234 +323,17 @@ fn combine(partials: Vec<Pass>, p: usize) -> Pass {
     total
 }
 
-/// The vector kernels, in two versions that give identical bits: a portable
-/// one (eight partial sums in an array, which the compiler may vectorise
-/// but never reorders) and an AVX2 one (the same eight partial sums in two
-/// 256-bit registers, same operations, same order, no fused multiply-add).
-mod simd {
-    /// Portable versions.
-    pub(super) mod portable {
-        #[inline(always)]
-        fn combine(s: &[f64; 8], tail: f64) -> f64 {
-            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
-        }
-
-        /// `sum_j (x_j - m_j) c_j` (`m`, `c` at least as long as `x`).
-        #[inline(always)]
-        pub fn centered_dot(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
-            let n = x.len();
-            let (m, c) = (&m[..n], &c[..n]);
-            let main = n - n % 8;
-            let mut s = [0.0_f64; 8];
-            for k in (0..main).step_by(8) {
-                for l in 0..8 {
-                    s[l] += (x[k + l] - m[k + l]) * c[k + l];
-                }
-            }
-            let mut tail = 0.0;
-            for k in main..n {
-                tail += (x[k] - m[k]) * c[k];
-            }
-            combine(&s, tail)
-        }
-
-        /// `sum_i (x_i - m) u_i` (`u` at least as long as `x`).
-        #[inline(always)]
-        pub fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
-            let n = x.len();
-            let u = &u[..n];
-            let main = n - n % 8;
-            let mut s = [0.0_f64; 8];
-            for k in (0..main).step_by(8) {
-                for l in 0..8 {
-                    s[l] += (x[k + l] - m) * u[k + l];
-                }
-            }
-            let mut tail = 0.0;
-            for k in main..n {
-                tail += (x[k] - m) * u[k];
-            }
-            combine(&s, tail)
-        }
-
-        /// `acc_j += u (x_j - m_j)`.
-        #[inline(always)]
-        pub fn centered_axpy(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
-            for ((a, &v), &mj) in acc.iter_mut().zip(x).zip(m) {
-                *a += u * (v - mj);
-            }
-        }
-    }
-
-    /// AVX2 versions (x86-64 only; callers check the CPU first).
-    #[cfg(target_arch = "x86_64")]
-    pub(super) mod avx2 {
-        use std::arch::x86_64::{
-            _mm256_add_pd, _mm256_loadu_pd, _mm256_mul_pd, _mm256_set1_pd, _mm256_setzero_pd,
-            _mm256_storeu_pd, _mm256_sub_pd,
-        };
-
-        /// As [`super::portable::centered_dot`].
-        ///
-        /// # Safety
-        /// The CPU must support AVX2.
-        #[inline]
-        #[target_feature(enable = "avx2")]
-        pub unsafe fn centered_dot(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
-            let n = x.len();
-            let (m, c) = (&m[..n], &c[..n]);
-            let main = n - n % 8;
-            let (px, pm, pc) = (x.as_ptr(), m.as_ptr(), c.as_ptr());
-            let mut a0 = _mm256_setzero_pd();
-            let mut a1 = _mm256_setzero_pd();
-            let mut k = 0;
-            while k < main {
-                // SAFETY: k + 8 <= main <= n, the length of all three slices.
-                unsafe {
-                    let d0 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), _mm256_loadu_pd(pm.add(k)));
-                    let d1 = _mm256_sub_pd(
-                        _mm256_loadu_pd(px.add(k + 4)),
-                        _mm256_loadu_pd(pm.add(k + 4)),
-                    );
-                    a0 = _mm256_add_pd(a0, _mm256_mul_pd(d0, _mm256_loadu_pd(pc.add(k))));
-                    a1 = _mm256_add_pd(a1, _mm256_mul_pd(d1, _mm256_loadu_pd(pc.add(k + 4))));
-                }
-                k += 8;
-            }
-            let mut s = [0.0_f64; 8];
-            // SAFETY: `s` has room for two groups of four.
-            unsafe {
-                _mm256_storeu_pd(s.as_mut_ptr(), a0);
-                _mm256_storeu_pd(s.as_mut_ptr().add(4), a1);
-            }
-            let mut tail = 0.0;
-            for k in main..n {
-                tail += (x[k] - m[k]) * c[k];
-            }
-            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
-        }
-
-        /// As [`super::portable::shifted_dot`].
-        ///
-        /// # Safety
-        /// The CPU must support AVX2.
-        #[inline]
-        #[target_feature(enable = "avx2")]
-        pub unsafe fn shifted_dot(x: &[f64], m: f64, u: &[f64]) -> f64 {
-            let n = x.len();
-            let u = &u[..n];
-            let main = n - n % 8;
-            let (px, pu) = (x.as_ptr(), u.as_ptr());
-            let vm = _mm256_set1_pd(m);
-            let mut a0 = _mm256_setzero_pd();
-            let mut a1 = _mm256_setzero_pd();
-            let mut k = 0;
-            while k < main {
-                // SAFETY: k + 8 <= main <= n, the length of both slices.
-                unsafe {
-                    let d0 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), vm);
-                    let d1 = _mm256_sub_pd(_mm256_loadu_pd(px.add(k + 4)), vm);
-                    a0 = _mm256_add_pd(a0, _mm256_mul_pd(d0, _mm256_loadu_pd(pu.add(k))));
-                    a1 = _mm256_add_pd(a1, _mm256_mul_pd(d1, _mm256_loadu_pd(pu.add(k + 4))));
-                }
-                k += 8;
-            }
-            let mut s = [0.0_f64; 8];
-            // SAFETY: `s` has room for two groups of four.
-            unsafe {
-                _mm256_storeu_pd(s.as_mut_ptr(), a0);
-                _mm256_storeu_pd(s.as_mut_ptr().add(4), a1);
-            }
-            let mut tail = 0.0;
-            for k in main..n {
-                tail += (x[k] - m) * u[k];
-            }
-            (((s[0] + s[1]) + (s[2] + s[3])) + ((s[4] + s[5]) + (s[6] + s[7]))) + tail
-        }
-
-        /// As [`super::portable::centered_axpy`].
-        ///
-        /// # Safety
-        /// The CPU must support AVX2.
-        #[inline]
-        #[target_feature(enable = "avx2")]
-        pub unsafe fn centered_axpy(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
-            let n = acc.len().min(x.len()).min(m.len());
-            let main = n - n % 4;
-            let (pa, px, pm) = (acc.as_mut_ptr(), x.as_ptr(), m.as_ptr());
-            let vu = _mm256_set1_pd(u);
-            let mut k = 0;
-            while k < main {
-                // SAFETY: k + 4 <= main <= n, within all three slices.
-                unsafe {
-                    let d = _mm256_sub_pd(_mm256_loadu_pd(px.add(k)), _mm256_loadu_pd(pm.add(k)));
-                    let v = _mm256_add_pd(_mm256_loadu_pd(pa.add(k)), _mm256_mul_pd(vu, d));
-                    _mm256_storeu_pd(pa.add(k), v);
-                }
-                k += 4;
-            }
-            for k in main..n {
-                acc[k] += u * (x[k] - m[k]);
-            }
-        }
-    }
-
-    /// `sum_j (x_j - m_j) c_j`; `AVX` only where AVX2 was detected.
-    #[inline(always)]
-    pub(super) fn centered_dot<const AVX: bool>(x: &[f64], m: &[f64], c: &[f64]) -> f64 {
-        #[cfg(target_arch = "x86_64")]
-        if AVX {
-            // SAFETY: `AVX` is true only in code reached after detection.
-            return unsafe { avx2::centered_dot(x, m, c) };
-        }
-        portable::centered_dot(x, m, c)
-    }
-
-    /// `sum_i (x_i - m) u_i`; `AVX` only where AVX2 was detected.
-    #[inline(always)]
-    pub(super) fn shifted_dot<const AVX: bool>(x: &[f64], m: f64, u: &[f64]) -> f64 {
-        #[cfg(target_arch = "x86_64")]
-        if AVX {
-            // SAFETY: as above.
-            return unsafe { avx2::shifted_dot(x, m, u) };
-        }
-        portable::shifted_dot(x, m, u)
-    }
-
-    /// `acc_j += u (x_j - m_j)`; `AVX` only where AVX2 was detected.
-    #[inline(always)]
-    pub(super) fn centered_axpy<const AVX: bool>(acc: &mut [f64], u: f64, x: &[f64], m: &[f64]) {
-        #[cfg(target_arch = "x86_64")]
-        if AVX {
-            // SAFETY: as above.
-            return unsafe { avx2::centered_axpy(acc, u, x, m) };
-        }
-        portable::centered_axpy(acc, u, x, m)
-    }
-}
-
 /// One row: residual, then `acc += w r (x - m)`; returns `w r^2`.
 #[inline(always)]
-fn row_update<const AVX: bool>(
-    row: &[f64],
-    means: &[f64],
-    coef: &[f64],
-    t: f64,
-    w: f64,
-    acc: &mut [f64],
-) -> f64 {
-    let r = t - simd::centered_dot::<AVX>(row, means, coef);
+fn row_update(row: &[f64], means: &[f64], coef: &[f64], t: f64, w: f64, acc: &mut [f64]) -> f64 {
+    let r = t - kernels::centered_dot(row, means, coef);
     let u = w * r;
-    simd::centered_axpy::<AVX>(acc, u, row, means);
+    kernels::centered_axpy(acc, u, row, means);
     u * r
 }
 
 #[inline(always)]
-fn rows_impl<const AVX: bool>(
-    inputs: &Inputs<'_, '_>,
-    rows: impl Iterator<Item = usize>,
-    out: &mut Pass,
-) {
+fn rows_impl(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
     let Inputs { x, means, coef, .. } = *inputs;
     for i in rows {
         let w = inputs.problem.scaled_weight(i);
@@ -560,7 +343,7 @@ fn rows_impl<const AVX: bool>(
         let t = inputs.target(i);
         let row = x.index_axis(Axis(0), i);
         if let Some(slice) = row.to_slice() {
-            out.sq += row_update::<AVX>(slice, means, coef, t, w, &mut out.acc);
+            out.sq += row_update(slice, means, coef, t, w, &mut out.acc);
         } else {
             // Strided rows (column-major mini-batches, other layouts).
             let mut fit = 0.0;
@@ -580,7 +363,7 @@ fn rows_impl<const AVX: bool>(
 /// Rows of a design stored row after row without gaps, with a contiguous
 /// target (and weights): plain slices, no per-row indexing.
 #[inline(always)]
-fn contiguous_impl<const AVX: bool, const WEIGHTED: bool>(
+fn contiguous_impl<const WEIGHTED: bool>(
     inputs: &Inputs<'_, '_>,
     data: &[f64],
     y: &[f64],
@@ -601,7 +384,7 @@ fn contiguous_impl<const AVX: bool, const WEIGHTED: bool>(
         } else {
             (yi - ym) * inv_sy
         };
-        sq += row_update::<AVX>(row, inputs.means, inputs.coef, t, wi, &mut out.acc);
+        sq += row_update(row, inputs.means, inputs.coef, t, wi, &mut out.acc);
     }
     out.sq += sq;
 }
@@ -609,21 +392,16 @@ fn contiguous_impl<const AVX: bool, const WEIGHTED: bool>(
 /// The contiguous row-major path for rows `r0..r1`; `false` (nothing done)
 /// if the block, the target or the weights are not contiguous.
 #[inline(always)]
-fn contiguous_any<const AVX: bool>(
-    inputs: &Inputs<'_, '_>,
-    r0: usize,
-    r1: usize,
-    out: &mut Pass,
-) -> bool {
+fn contiguous_any(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) -> bool {
     let block = inputs.x.slice_move(s![r0..r1, ..]);
     let target = inputs.problem.target().slice_move(s![r0..r1]);
     let (Some(data), Some(y)) = (block.to_slice(), target.to_slice()) else {
         return false;
     };
     match inputs.problem.weights() {
-        None => contiguous_impl::<AVX, false>(inputs, data, y, &[], out),
+        None => contiguous_impl::<false>(inputs, data, y, &[], out),
         Some(w) => match w.slice_move(s![r0..r1]).to_slice() {
-            Some(w) => contiguous_impl::<AVX, true>(inputs, data, y, w, out),
+            Some(w) => contiguous_impl::<true>(inputs, data, y, w, out),
             None => return false,
         },
     }
@@ -631,7 +409,7 @@ fn contiguous_any<const AVX: bool>(
 }
 
 #[inline(always)]
-fn block_cols_impl<const AVX: bool>(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
+fn block_cols_impl(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
     let Inputs { x, means, coef, .. } = *inputs;
     let len = r1 - r0;
     let mut r: Vec<f64> = (r0..r1).map(|i| inputs.target(i)).collect();
@@ -664,45 +442,16 @@ fn block_cols_impl<const AVX: bool>(inputs: &Inputs<'_, '_>, r0: usize, r1: usiz
     for (j, col) in block.axis_iter(Axis(1)).enumerate() {
         let m = means[j];
         out.acc[j] += match col.to_slice() {
-            Some(col) => simd::shifted_dot::<AVX>(col, m, &u),
+            Some(col) => kernels::shifted_dot(col, m, &u),
             None => col.iter().zip(&u).map(|(&v, &uk)| (v - m) * uk).sum(),
         };
     }
 }
 
-// The three paths compiled once more with AVX2 enabled, so that the
-// element-wise loops between the vector kernels use it too.
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn rows_avx2(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
-    rows_impl::<true>(inputs, rows, out)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn block_cols_avx2(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
-    block_cols_impl::<true>(inputs, r0, r1, out)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn contiguous_avx2(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) -> bool {
-    contiguous_any::<true>(inputs, r0, r1, out)
-}
-
-/// Whether the AVX2 kernels may run (the standard library caches the answer).
-#[inline]
-fn has_avx2() -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        std::arch::is_x86_feature_detected!("avx2")
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    {
-        false
-    }
-}
+// The three paths, each compiled once per instruction set and picked at
+// run time (see `crate::linalg::kernels::dispatch`), so that the
+// element-wise loops between the vector kernels use the wider
+// instructions too.
 
 /// Runs the contiguous row-major path if the block qualifies; `false` if not
 /// (nothing was done).
@@ -710,38 +459,21 @@ fn dispatch_contiguous(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut 
     if inputs.means.is_empty() {
         return false;
     }
-    #[cfg(target_arch = "x86_64")]
-    if has_avx2() {
-        // SAFETY: the CPU supports AVX2 (checked just above); the function
-        // has no other requirement.
-        return unsafe { contiguous_avx2(inputs, r0, r1, out) };
-    }
-    contiguous_any::<false>(inputs, r0, r1, out)
+    kernels::dispatch(|| contiguous_any(inputs, r0, r1, out))
 }
 
 fn dispatch_rows(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
-    #[cfg(target_arch = "x86_64")]
-    if has_avx2() {
-        // SAFETY: as in `dispatch_contiguous`.
-        unsafe { rows_avx2(inputs, rows, out) };
-        return;
-    }
-    rows_impl::<false>(inputs, rows, out)
+    kernels::dispatch(|| rows_impl(inputs, rows, out))
 }
 
 fn dispatch_block_cols(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
-    #[cfg(target_arch = "x86_64")]
-    if has_avx2() {
-        // SAFETY: as in `dispatch_contiguous`.
-        unsafe { block_cols_avx2(inputs, r0, r1, out) };
-        return;
-    }
-    block_cols_impl::<false>(inputs, r0, r1, out)
+    kernels::dispatch(|| block_cols_impl(inputs, r0, r1, out))
 }
 
 #[cfg(test)]
 mod tests {
-    use super::simd::portable;
+    use crate::linalg::extended::Accumulator;
+    use crate::linalg::kernels;
 
     /// Deterministic values of assorted sizes and signs.
     fn values(n: usize, seed: u64) -> Vec<f64> {
@@ -757,38 +489,46 @@ mod tests {
             .collect()
     }
 
+    /// The pass's kernels against the same sums in double-double
+    /// arithmetic (the differences `x - m` are formed alike, then each
+    /// product and sum is exact): within a few units of rounding of the
+    /// sum of magnitudes, and the same bits under `dispatch` as without.
     #[test]
-    fn avx2_kernels_give_the_portable_bits() {
-        #[cfg(target_arch = "x86_64")]
-        if std::arch::is_x86_feature_detected!("avx2") {
-            use super::simd::avx2;
-            for n in [0, 1, 3, 7, 8, 9, 15, 16, 17, 100, 257] {
-                let (x, m, c) = (values(n, 1), values(n, 2), values(n, 3));
-                // SAFETY: AVX2 is available (checked above).
-                let (d, s) = unsafe {
-                    (
-                        avx2::centered_dot(&x, &m, &c),
-                        avx2::shifted_dot(&x, 0.25, &c),
-                    )
-                };
-                assert_eq!(d.to_bits(), portable::centered_dot(&x, &m, &c).to_bits());
-                assert_eq!(s.to_bits(), portable::shifted_dot(&x, 0.25, &c).to_bits());
-                let mut a1 = values(n, 4);
-                let mut a2 = a1.clone();
-                // SAFETY: as above.
-                unsafe { avx2::centered_axpy(&mut a1, -1.5, &x, &m) };
-                portable::centered_axpy(&mut a2, -1.5, &x, &m);
-                assert_eq!(a1, a2);
+    fn kernels_match_double_double_sums() {
+        for n in [0usize, 1, 3, 7, 8, 9, 15, 16, 17, 100, 257] {
+            let (x, m, c) = (values(n, 1), values(n, 2), values(n, 3));
+            let mut exact = Accumulator::default();
+            let mut shifted = Accumulator::default();
+            let (mut scale, mut scale_s) = (0.0, 0.0);
+            for k in 0..n {
+                exact.add_product(x[k] - m[k], c[k]);
+                shifted.add_product(x[k] - 0.25, c[k]);
+                scale += ((x[k] - m[k]) * c[k]).abs();
+                scale_s += ((x[k] - 0.25) * c[k]).abs();
+            }
+            let d = kernels::dispatch(|| kernels::centered_dot(&x, &m, &c));
+            let s = kernels::dispatch(|| kernels::shifted_dot(&x, 0.25, &c));
+            assert_eq!(d.to_bits(), kernels::centered_dot(&x, &m, &c).to_bits());
+            assert_eq!(s.to_bits(), kernels::shifted_dot(&x, 0.25, &c).to_bits());
+            let bound = |scale: f64| 8.0 * n as f64 * f64::EPSILON * scale;
+            assert!((d - exact.value()).abs() <= bound(scale), "n = {n}");
+            assert!((s - shifted.value()).abs() <= bound(scale_s), "n = {n}");
+            // axpy: each entry rounds once (a fused multiply-add), so it is
+            // within one rounding of the double-double value.
+            let mut a = values(n, 4);
+            let before = a.clone();
+            kernels::dispatch(|| kernels::centered_axpy(&mut a, -1.5, &x, &m));
+            for k in 0..n {
+                let mut e = Accumulator::default();
+                e.add(before[k]);
+                e.add_product(-1.5, x[k] - m[k]);
+                let v = e.value();
+                assert!(
+                    (a[k] - v).abs() <= 2.0 * f64::EPSILON * v.abs(),
+                    "entry {k} of {n}: {} against {v}",
+                    a[k]
+                );
             }
         }
-    }
-
-    #[test]
-    fn portable_dot_matches_a_plain_sum() {
-        // Identity up to rounding: same terms, different grouping.
-        let (x, m, c) = (values(100, 5), values(100, 6), values(100, 7));
-        let plain: f64 = (0..100).map(|k| (x[k] - m[k]) * c[k]).sum();
-        let scale: f64 = (0..100).map(|k| ((x[k] - m[k]) * c[k]).abs()).sum();
-        assert!((portable::centered_dot(&x, &m, &c) - plain).abs() <= 1e-14 * scale);
     }
 }
