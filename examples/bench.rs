@@ -24,6 +24,51 @@
 //! `[1 | X]` made before the clock starts (so the copy is not charged to
 //! them). `extra` is the peak memory a run allocated beyond what was live
 //! before it, counted by a global allocator in this example.
+//!
+//! Physical limits, measured in the same run before the rows: the peak rate
+//! of fused multiply-adds (a register-resident loop at each instruction set
+//! the processor runs, AVX-512, AVX2 + FMA and the baseline; one thread and
+//! every thread of the pool) and the read bandwidth (a parallel streaming
+//! sum over a buffer of `--stream-mib` MiB, default 1024, far larger than
+//! the caches). Every row then gets a limit: the seconds its own work takes
+//! at those rates, `max(flops / peak, bytes / bandwidth)` with the peak of
+//! the widest unit on every thread of the pool, and its ratio to that limit.
+//! The work of each row, with `n` rows, `p` columns, `k = p + 1` (the
+//! centered design with the target column), `c` unknowns of the baselines
+//! (`p`, plus one with an intercept), `t` targets and `f = 8` bytes a value:
+//!
+//! | row | flops | bytes read |
+//! |-----|-------|------------|
+//! | `gram` | `n k (k + 1)` (the symmetric half) | `f n k` |
+//! | `stream` | `n p` | `f n p` |
+//! | `validate`, `fill` | `n p` | `f n k` |
+//! | `residuals` | `2 n p` | `f n k` |
+//! | `tsqr` | `2 n k^2 - 2 k^3 / 3` | `f n k` |
+//! | `cholesky`, `ridge` | `n k (k + 1) + 2 n p` | `2 f n k` (Gram pass, residual pass) |
+//! | `qr`, `qr-refined`, `svd` | `2 n k^2 - 2 k^3 / 3 + 2 n p` | `2 f n k` |
+//! | `cholesky-state` | `n (p + t) (p + t + 1)` | `f n (p + t)` |
+//! | `qr-state` | `2 n (p + t)^2 - 2 (p + t)^3 / 3` | `f n (p + t)` |
+//! | `gradient-step` | `4 n p` | `f n k` |
+//! | `accelerated` | `4 n p` per iteration run | `f n k` per iteration |
+//! | `obvious-normal` | `2 n c^2 + 2 n c` | `f n (c + 1)` |
+//! | `obvious-qr`, `obvious-svd` | `2 n c^2 - 2 c^3 / 3` | `f n (c + 1)` |
+//! | `reference-svd` | `4 n c^2 - 4 c^3 / 3` (bidiagonalisation) | `f n (c + 1)` |
+//!
+//! Only the terms that grow with `n` (and the leading cubic term of the
+//! factorisations) are counted, so every limit is a lower bound on the
+//! time of that work on this machine.
+//!
+//! Many targets and blocks: `--targets K` fits `K` targets over the one
+//! design through the fit states (`qr-state`, `cholesky-state`; target
+//! `t` is the seeded target plus `t / 10` times column `t mod p`), timed
+//! beside the same states with one target; `--blocks B` (default 64) splits
+//! the rows into `B` consecutive blocks, each absorbed into its own state in
+//! parallel through the public [`leastline::FitState`] API, the states
+//! merged in a fixed binary tree (the same tree on any thread count) and
+//! finished. `--reference` adds `reference-svd`, a general-purpose float64
+//! library's one-call least-squares solve (nalgebra's `SVD::solve` on the
+//! dense `[1 | X]`, single-threaded as that library runs; timed once after
+//! the matrix is built, since one run takes many seconds on large shapes).
 
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -32,8 +77,11 @@ use std::time::Instant;
 use faer::linalg::solvers::SolveLstsq;
 use faer::{Mat, Par};
 use leastline::bench_support as floors;
-use leastline::{Accelerated, Cholesky, GradientDescent, Problem, Qr, Ridge, Solver, Svd};
-use ndarray::{Array1, Array2, ShapeBuilder};
+use leastline::{
+    Accelerated, Cholesky, CrossProductState, FitState, GradientDescent, Problem, Qr, Ridge,
+    Solver, Svd, TriangleState,
+};
+use ndarray::{s, Array1, Array2, ArrayView2, ShapeBuilder};
 
 #[path = "support/design.rs"]
 mod design;
@@ -137,6 +185,9 @@ const SOLVERS: &[(&str, Floor, Maker)] = &[
         Box::new(Accelerated::new().with_tolerance(1e-8))
     }),
 ];
+
+/// The state paths (their own loop: blocks absorbed in parallel, merged).
+const STATE_SOLVERS: &[&str] = &["qr-state", "cholesky-state"];
 
 /// The name of the timed single full-gradient iteration (not a solver of
 /// its own: ten fixed-step iterations minus the set-up, divided by ten).
@@ -259,16 +310,22 @@ struct Options {
     baselines: bool,
     json: bool,
     col_major: bool,
+    targets: usize,
+    blocks: usize,
+    reference: bool,
+    stream_mib: usize,
 }
 
 fn usage() -> ! {
     eprintln!(
         "usage: bench [--rows N] [--cols P] [--solvers a,b,...] [--threads T] [--repeats R] \
-         [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json]\nsolvers: {}",
+         [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json] \
+         [--targets K] [--blocks B] [--reference] [--stream-mib M]\nsolvers: {}",
         SOLVERS
             .iter()
             .map(|s| s.0)
             .chain([GRADIENT_STEP])
+            .chain(STATE_SOLVERS.iter().copied())
             .collect::<Vec<_>>()
             .join(", ")
     );
@@ -283,6 +340,7 @@ fn parse() -> Options {
             .iter()
             .map(|s| s.0.to_string())
             .chain([GRADIENT_STEP.to_string()])
+            .chain(STATE_SOLVERS.iter().map(|s| s.to_string()))
             .collect(),
         threads: None,
         repeats: 5,
@@ -291,6 +349,10 @@ fn parse() -> Options {
         baselines: true,
         json: false,
         col_major: false,
+        targets: 1,
+        blocks: 64,
+        reference: false,
+        stream_mib: 1024,
     };
     let mut args = std::env::args().skip(1);
     while let Some(a) = args.next() {
@@ -311,11 +373,18 @@ fn parse() -> Options {
             "--no-baselines" => o.baselines = false,
             "--json" => o.json = true,
             "--col-major" => o.col_major = true,
+            "--targets" => o.targets = number(value()).max(1),
+            "--blocks" => o.blocks = number(value()).max(1),
+            "--reference" => o.reference = true,
+            "--stream-mib" => o.stream_mib = number(value()).max(1),
             _ => usage(),
         }
     }
     for s in &o.solvers {
-        if s != GRADIENT_STEP && !SOLVERS.iter().any(|e| e.0 == s) {
+        if s != GRADIENT_STEP
+            && !STATE_SOLVERS.contains(&s.as_str())
+            && !SOLVERS.iter().any(|e| e.0 == s)
+        {
             eprintln!("unknown solver `{s}`");
             usage();
         }
@@ -377,6 +446,8 @@ struct Row {
     floor: Option<Floor>,
     t: Timing,
     work: Work,
+    targets: usize,
+    blocks: usize,
 }
 
 impl Row {
@@ -391,6 +462,8 @@ impl Row {
 fn run(o: &Options) {
     let (n, p) = (o.rows, o.cols);
     let k = p + 1;
+    let load_before = load_average();
+    let limits = measure_limits(o);
     let (x, y) = make_data(n, p, o.seed);
     let x = if o.col_major {
         let mut f = Array2::<f64>::zeros((n, p).f());
@@ -416,6 +489,7 @@ fn run(o: &Options) {
     let gram_work = Work::Flops(floors::gram_flops(n, k));
     let qr_work = Work::Flops(floors::qr_flops(n, k));
     let mut rows: Vec<Row> = Vec::new();
+    let mut accelerated_iterations = None;
     let mut push = |name: &str, kind, floor, t, work| {
         rows.push(Row {
             name: name.to_string(),
@@ -423,6 +497,8 @@ fn run(o: &Options) {
             floor,
             t,
             work,
+            targets: 1,
+            blocks: 1,
         })
     };
 
@@ -457,9 +533,16 @@ fn run(o: &Options) {
             continue;
         }
         let solver = make();
-        if let Err(err) = solver.fit(&problem) {
-            eprintln!("{name}: {err}");
-            continue;
+        match solver.fit(&problem) {
+            Err(err) => {
+                eprintln!("{name}: {err}");
+                continue;
+            }
+            Ok(fit) => {
+                if *name == "accelerated" {
+                    accelerated_iterations = fit.report.iterations.as_ref().map(|it| it.iterations);
+                }
+            }
         }
         let t = time(r, &mut || {
             solver
@@ -523,6 +606,12 @@ fn run(o: &Options) {
         }
     }
 
+    state_rows(o, &x, &y, &mut rows);
+    if o.reference {
+        reference_row(o, &x, &y, &mut rows);
+    }
+    let load_after = load_average();
+
     let floor_secs = |f: Floor, rows: &[Row]| {
         rows.iter()
             .find(|row| row.kind == "floor" && row.name == f.name())
@@ -543,6 +632,11 @@ fn run(o: &Options) {
                 "min_seconds": row.t.min,
                 "cpu_seconds": row.t.cpu,
                 "extra_bytes": row.t.extra,
+                "targets": row.targets,
+                "blocks": row.blocks,
+                "peak_gflops": limits.peak_all,
+                "peak_gflops_one_thread": limits.peak_one,
+                "read_gbps": limits.read_gbps,
             });
             if let Some(map) = obj.as_object_mut() {
                 let key = if unit == "GB/s" {
@@ -551,6 +645,9 @@ fn run(o: &Options) {
                     "gflops"
                 };
                 map.insert(key.into(), rate.into());
+                let limit = limits.seconds(cost(row, o, accelerated_iterations));
+                map.insert("limit_seconds".into(), limit.into());
+                map.insert("ratio_to_limit".into(), (row.t.seconds / limit).into());
                 if let Some(f) = row.floor {
                     let fs = floor_secs(f, &rows);
                     map.insert("floor".into(), f.name().into());
@@ -566,9 +663,19 @@ fn run(o: &Options) {
         "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, median of {r} runs",
         o.intercept
     );
+    limits.print(&load_before, &load_after);
     println!(
-        "{:<15} {:<8} {:>9} {:>9} {:>9} {:>15} {:>14} {:>10}",
-        "name", "kind", "median s", "min s", "cpu s", "rate", "ratio to floor", "extra MiB"
+        "{:<18} {:<8} {:>9} {:>9} {:>9} {:>15} {:>14} {:>10} {:>9} {:>8}",
+        "name",
+        "kind",
+        "median s",
+        "min s",
+        "cpu s",
+        "rate",
+        "ratio to floor",
+        "extra MiB",
+        "limit s",
+        "x limit"
     );
     for row in &rows {
         let ratio = row
@@ -576,18 +683,396 @@ fn run(o: &Options) {
             .map(|f| format!("{:.2} x {}", row.t.seconds / floor_secs(f, &rows), f.name()))
             .unwrap_or_else(|| "-".into());
         let (rate, unit) = row.rate();
+        let limit = limits.seconds(cost(row, o, accelerated_iterations));
+        let name = if row.targets > 1 {
+            format!("{} t={}", row.name, row.targets)
+        } else {
+            row.name.clone()
+        };
         println!(
-            "{:<15} {:<8} {:>9.4} {:>9.4} {:>9.4} {:>15} {:>14} {:>10.1}",
-            row.name,
+            "{:<18} {:<8} {:>9.4} {:>9.4} {:>9.4} {:>15} {:>14} {:>10.1} {:>9.4} {:>8.2}",
+            name,
             row.kind,
             row.t.seconds,
             row.t.min,
             row.t.cpu,
             format!("{rate:.1} {unit}"),
             ratio,
-            row.t.extra as f64 / (1u64 << 20) as f64
+            row.t.extra as f64 / (1u64 << 20) as f64,
+            limit,
+            row.t.seconds / limit
         );
     }
+    print_checks(&rows, &limits, o);
+}
+
+// ---------------------------------------------------------------------------
+// Physical limits of this machine, measured in the same run.
+
+/// Peak rates and bandwidth measured before the rows.
+struct Limits {
+    /// (level, GFLOP/s on one thread, GFLOP/s on every thread of the pool)
+    levels: Vec<(floors::Level, f64, f64)>,
+    /// Widest level's GFLOP/s, one thread and every thread.
+    peak_one: f64,
+    peak_all: f64,
+    /// Streaming read, GB/s, every thread.
+    read_gbps: f64,
+}
+
+impl Limits {
+    /// The seconds of `(flops, bytes)` at the peak rate and the bandwidth.
+    fn seconds(&self, (flops, bytes): (f64, f64)) -> f64 {
+        (flops / (self.peak_all * 1e9)).max(bytes / (self.read_gbps * 1e9))
+    }
+
+    fn print(&self, before: &str, after: &str) {
+        println!(
+            "machine: {} ({} logical CPUs); load average before {before}, after {after}",
+            cpu_model(),
+            std::thread::available_parallelism().map_or(0, |n| n.get())
+        );
+        for (level, one, all) in &self.levels {
+            println!(
+                "fma peak {:<7} {:>8.1} GFLOP/s 1 thread {:>8.1} GFLOP/s all threads",
+                level.name(),
+                one,
+                all
+            );
+        }
+        println!(
+            "read bandwidth {:.1} GB/s (all threads); limit = max(flops / {:.1} GFLOP/s, bytes / {:.1} GB/s)",
+            self.read_gbps, self.peak_all, self.read_gbps
+        );
+    }
+}
+
+/// The first `model name` of /proc/cpuinfo, or `unknown`.
+fn cpu_model() -> String {
+    std::fs::read_to_string("/proc/cpuinfo")
+        .ok()
+        .and_then(|t| {
+            t.lines()
+                .find(|l| l.starts_with("model name"))
+                .and_then(|l| l.split(':').nth(1))
+                .map(|m| m.trim().to_string())
+        })
+        .unwrap_or_else(|| "unknown".into())
+}
+
+/// The three load averages of /proc/loadavg, or `?`.
+fn load_average() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .ok()
+        .map(|t| t.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_else(|| "?".into())
+}
+
+/// Rounds of the FMA loop per timed run (about 0.05 s at AVX-512 rates).
+const FMA_ROUNDS: usize = 20_000_000;
+
+fn measure_limits(o: &Options) -> Limits {
+    let r = o.repeats;
+    let mut levels = Vec::new();
+    for level in floors::Level::ALL.into_iter().rev() {
+        let Some((flops_one, _)) = floors::fma_loop(level, FMA_ROUNDS) else {
+            if !o.json {
+                eprintln!("fma peak {}: not on this processor", level.name());
+            }
+            continue;
+        };
+        let one = time(r, &mut || {
+            floors::fma_loop(level, FMA_ROUNDS).map_or(f64::NAN, |v| v.1)
+        });
+        let flops_all = floors::fma_loop_all_threads(level, FMA_ROUNDS).map_or(f64::NAN, |v| v.0);
+        let all = time(r, &mut || {
+            floors::fma_loop_all_threads(level, FMA_ROUNDS).map_or(f64::NAN, |v| v.1)
+        });
+        levels.push((
+            level,
+            flops_one / one.seconds * 1e-9,
+            flops_all / all.seconds * 1e-9,
+        ));
+    }
+    let (peak_one, peak_all) = levels.first().map_or((f64::NAN, f64::NAN), |l| (l.1, l.2));
+    let len = o.stream_mib * (1 << 20) / 8;
+    let buf = vec![1.0f64; len];
+    let t = time(r, &mut || floors::stream_sum(&buf));
+    let read_gbps = (len * 8) as f64 / t.seconds * 1e-9;
+    Limits {
+        levels,
+        peak_one,
+        peak_all,
+        read_gbps,
+    }
+}
+
+/// `(flops, bytes)` of a row's own work: the formulas of the module docs.
+fn cost(row: &Row, o: &Options, accelerated_iterations: Option<usize>) -> (f64, f64) {
+    let (n, p) = (o.rows as f64, o.cols as f64);
+    let k = p + 1.0;
+    let c = p + if o.intercept { 1.0 } else { 0.0 };
+    let t = row.targets as f64;
+    let f = 8.0;
+    let gram = n * k * (k + 1.0);
+    let qr = |m: f64| 2.0 * n * m * m - 2.0 * m * m * m / 3.0;
+    match row.name.as_str() {
+        "gram" => (gram, f * n * k),
+        "stream" => (n * p, f * n * p),
+        "validate" | "fill" => (n * p, f * n * k),
+        "residuals" => (2.0 * n * p, f * n * k),
+        "tsqr" => (qr(k), f * n * k),
+        "cholesky" | "ridge" => (gram + 2.0 * n * p, 2.0 * f * n * k),
+        "qr" | "qr-refined" | "svd" => (qr(k) + 2.0 * n * p, 2.0 * f * n * k),
+        "cholesky-state" => (n * (p + t) * (p + t + 1.0), f * n * (p + t)),
+        "qr-state" => (qr(p + t), f * n * (p + t)),
+        GRADIENT_STEP => (4.0 * n * p, f * n * k),
+        "accelerated" => {
+            let it = accelerated_iterations.unwrap_or(1) as f64;
+            (it * 4.0 * n * p, it * f * n * k)
+        }
+        "obvious-normal" => (2.0 * n * c * c + 2.0 * n * c, f * n * (c + 1.0)),
+        "reference-svd" => (4.0 * n * c * c - 4.0 * c * c * c / 3.0, f * n * (c + 1.0)),
+        _ => (qr(c), f * n * (c + 1.0)),
+    }
+}
+
+/// Prints the ratios the speed goals are stated in, each with its goal.
+fn print_checks(rows: &[Row], limits: &Limits, o: &Options) {
+    let secs = |name: &str, targets: usize| {
+        rows.iter()
+            .find(|r| r.name == name && r.targets == targets)
+            .map(|r| r.t.seconds)
+    };
+    let mut lines = Vec::new();
+    if let Some(g) = secs("gram", 1) {
+        let rate = floors::gram_flops(o.rows, o.cols + 1) / g * 1e-9;
+        lines.push(format!(
+            "gram at {:.0}% of the fma peak ({rate:.1} of {:.1} GFLOP/s; goal >= 60%)",
+            100.0 * rate / limits.peak_all,
+            limits.peak_all
+        ));
+    }
+    let pairs: &[(&str, usize, &str, usize, &str)] = &[
+        (
+            "cholesky",
+            1,
+            "gram",
+            1,
+            "normal equations / gram (goal <= 1.3)",
+        ),
+        ("qr", 1, "gram", 1, "qr / gram (goal <= 2.5)"),
+        ("svd", 1, "gram", 1, "svd / gram (goal <= 2.7)"),
+        (
+            GRADIENT_STEP,
+            1,
+            "stream",
+            1,
+            "gradient step / one read of X (goal <= 1.3)",
+        ),
+        (
+            "cholesky",
+            1,
+            "stream",
+            1,
+            "normal equations / one read of X (goal <= 1.5 at 10,000,000 x 10)",
+        ),
+        ("qr-state", 1, "qr", 1, "qr-state / qr (goal <= 1.1)"),
+        (
+            "cholesky-state",
+            1,
+            "cholesky",
+            1,
+            "cholesky-state / cholesky (goal <= 1.1)",
+        ),
+        (
+            "qr-state",
+            o.targets,
+            "qr-state",
+            1,
+            "qr-state many targets / one (goal <= 1.5)",
+        ),
+        (
+            "cholesky-state",
+            o.targets,
+            "cholesky-state",
+            1,
+            "cholesky-state many targets / one (goal <= 1.5)",
+        ),
+        (
+            "reference-svd",
+            1,
+            "qr",
+            1,
+            "reference one-call solve / qr (goal >= 20)",
+        ),
+    ];
+    for &(a, ta, b, tb, what) in pairs {
+        if a == b && ta == tb {
+            continue;
+        }
+        if let (Some(x), Some(y)) = (secs(a, ta), secs(b, tb)) {
+            lines.push(format!("{what}: {:.2}", x / y));
+        }
+    }
+    if !lines.is_empty() {
+        println!("ratios (medians of this run):");
+        for l in lines {
+            println!("  {l}");
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// State paths: blocks absorbed in parallel, merged in a fixed tree.
+
+/// `t` targets over the design: the seeded target, then the target plus
+/// `j / 10` times column `j mod p` for `j = 1..t`.
+fn targets_matrix(x: &Array2<f64>, y: &Array1<f64>, t: usize) -> Array2<f64> {
+    let (n, p) = x.dim();
+    Array2::from_shape_fn((n, t), |(i, j)| {
+        if j == 0 || p == 0 {
+            y[i]
+        } else {
+            y[i] + 0.1 * j as f64 * x[(i, j % p)]
+        }
+    })
+}
+
+/// Absorbs the rows of blocks `lo..hi` (of `blocks` equal splits of the
+/// rows) into one state: one block alone, more split in halves absorbed in
+/// parallel and merged (left absorbs right), a tree fixed by `blocks`.
+fn absorb_tree<S: FitState + Send>(
+    x: ArrayView2<'_, f64>,
+    ys: ArrayView2<'_, f64>,
+    (lo, hi, blocks): (usize, usize, usize),
+    make: &(dyn Fn() -> leastline::Result<S> + Sync),
+) -> leastline::Result<S> {
+    let n = x.nrows();
+    if hi - lo <= 1 {
+        let (r0, r1) = (lo * n / blocks, hi * n / blocks);
+        let mut s = make()?;
+        s.absorb(x.slice(s![r0..r1, ..]), ys.slice(s![r0..r1, ..]), None)?;
+        return Ok(s);
+    }
+    let mid = lo + (hi - lo) / 2;
+    let (a, b) = rayon::join(
+        || absorb_tree(x, ys, (lo, mid, blocks), make),
+        || absorb_tree(x, ys, (mid, hi, blocks), make),
+    );
+    let mut a = a?;
+    a.merge(&b?)?;
+    Ok(a)
+}
+
+/// A state fit of every target; the sum of their residual sums of squares.
+fn state_fit<S: FitState + Send>(
+    x: ArrayView2<'_, f64>,
+    ys: ArrayView2<'_, f64>,
+    blocks: usize,
+    make: &(dyn Fn() -> leastline::Result<S> + Sync),
+) -> leastline::Result<f64> {
+    let b = blocks.clamp(1, x.nrows().max(1));
+    let state = absorb_tree(x, ys, (0, b, b), make)?;
+    Ok(state
+        .finish()?
+        .iter()
+        .map(|f| f.report.residual_sum_of_squares)
+        .sum())
+}
+
+/// Times the state paths with one target and (with `--targets K`) `K`.
+fn state_rows(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<Row>) {
+    let (n, p) = x.dim();
+    let mut counts = vec![1];
+    if o.targets > 1 {
+        counts.push(o.targets);
+    }
+    for &t in &counts {
+        let ys = targets_matrix(x, y, t);
+        for &name in STATE_SOLVERS {
+            if !o.solvers.iter().any(|s| s == name) {
+                continue;
+            }
+            let run = |xv: ArrayView2<'_, f64>| -> leastline::Result<f64> {
+                if name == "qr-state" {
+                    state_fit(xv, ys.view(), o.blocks, &|| {
+                        TriangleState::new(p, t, o.intercept)
+                    })
+                } else {
+                    state_fit(xv, ys.view(), o.blocks, &|| {
+                        CrossProductState::new(p, t, o.intercept)
+                    })
+                }
+            };
+            if let Err(err) = run(x.view()) {
+                eprintln!("{name} ({t} targets): {err}");
+                continue;
+            }
+            let timing = time(o.repeats, &mut || run(x.view()).unwrap_or(f64::NAN));
+            let k = (p + t) as f64;
+            let work = if name == "qr-state" {
+                Work::Flops(2.0 * n as f64 * k * k - 2.0 * k * k * k / 3.0)
+            } else {
+                Work::Flops(n as f64 * k * (k + 1.0))
+            };
+            rows.push(Row {
+                name: name.to_string(),
+                kind: "solver",
+                floor: Some(Floor::Gram),
+                t: timing,
+                work,
+                targets: t,
+                blocks: o.blocks.clamp(1, n.max(1)),
+            });
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Reference: a general-purpose float64 library's one-call least squares.
+
+/// nalgebra's SVD-based solve of `[1 | X] b = y` (or `X b = y`), timed once
+/// after the dense matrix is built (the build is not charged).
+fn reference_row(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<Row>) {
+    let (n, p) = x.dim();
+    let off = usize::from(o.intercept);
+    if n < p + off {
+        eprintln!("reference skipped: {n} rows < {} unknowns", p + off);
+        return;
+    }
+    let mut a = Some(nalgebra::DMatrix::<f64>::from_fn(n, p + off, |i, j| {
+        if j < off {
+            1.0
+        } else {
+            x[(i, j - off)]
+        }
+    }));
+    let b = nalgebra::DVector::<f64>::from_fn(n, |i, _| y[i]);
+    let s = measure(&mut || {
+        let Some(a) = a.take() else {
+            return f64::NAN;
+        };
+        match a.svd(true, true).solve(&b, 1e-10) {
+            Ok(beta) => beta[beta.len() - 1],
+            Err(_) => f64::NAN,
+        }
+    });
+    let c = (p + off) as f64;
+    rows.push(Row {
+        name: "reference-svd".into(),
+        kind: "baseline",
+        floor: Some(Floor::Gram),
+        t: Timing {
+            seconds: s.wall,
+            min: s.wall,
+            cpu: s.cpu,
+            extra: s.extra,
+        },
+        work: Work::Flops(4.0 * n as f64 * c * c - 4.0 * c * c * c / 3.0),
+        targets: 1,
+        blocks: 1,
+    });
 }
 
 fn main() {

@@ -16,6 +16,13 @@
 //! (the centering fill, the residual pass, the QR's passes within a panel)
 //! is still a large share; the legend of the column sweep also gives the
 //! slope over its three largest points.
+//!
+//! A fifth line, `gram-limit`, is the machine's own limit for the Gram
+//! pass's work at each point: `max(n k (k + 1) / peak, 8 n k / bandwidth)`
+//! with `k = p + 1`, where the peak (a register-resident fused
+//! multiply-add loop at the widest instruction set present, on every
+//! thread) and the read bandwidth (a parallel streaming sum over 1 GiB) are
+//! measured once at the start of the run.
 
 use std::error::Error as StdError;
 use std::fmt::Write as _;
@@ -64,7 +71,24 @@ fn best_time(f: &mut dyn FnMut() -> f64) -> f64 {
         .fold(f64::INFINITY, f64::min)
 }
 
-fn measure(sweep: &'static str, n: usize, p: usize, out: &mut Vec<Point>) {
+/// Peak GFLOP/s (widest level, every thread) and read GB/s of this machine.
+fn machine_limits() -> (f64, f64) {
+    let level = floors::Level::best();
+    let rounds = 20_000_000;
+    let flops = floors::fma_loop_all_threads(level, rounds).map_or(f64::NAN, |v| v.0);
+    let peak = flops
+        / best_time(&mut || floors::fma_loop_all_threads(level, rounds).map_or(f64::NAN, |v| v.1))
+        * 1e-9;
+    let buf = vec![1.0f64; 1 << 27];
+    let read = (buf.len() * 8) as f64 / best_time(&mut || floors::stream_sum(&buf)) * 1e-9;
+    eprintln!(
+        "limits: {peak:.1} GFLOP/s ({}), {read:.1} GB/s",
+        level.name()
+    );
+    (peak, read)
+}
+
+fn measure(sweep: &'static str, n: usize, p: usize, limits: (f64, f64), out: &mut Vec<Point>) {
     let (x, y) = design::make_data(n, p, 7);
     let problem = match Problem::new(x.view(), y.view()) {
         Ok(problem) => problem,
@@ -80,6 +104,12 @@ fn measure(sweep: &'static str, n: usize, p: usize, out: &mut Vec<Point>) {
             seconds,
         });
     };
+    let k = (p + 1) as f64;
+    push(
+        "gram-limit",
+        (floors::gram_flops(n, p + 1) / (limits.0 * 1e9))
+            .max(8.0 * n as f64 * k / (limits.1 * 1e9)),
+    );
     push(
         "gram-floor",
         best_time(&mut || floors::gram_floor(&problem)),
@@ -109,12 +139,13 @@ fn main() -> Result<(), Box<dyn StdError>> {
     let args: Vec<String> = std::env::args().skip(1).collect();
     let csv_path = args.first().map_or("docs/scaling.csv", String::as_str);
     let svg_path = args.get(1).map_or("docs/scaling.svg", String::as_str);
+    let limits = machine_limits();
     let mut points = Vec::new();
     for &n in ROWS_SWEEP {
-        measure("rows", n, ROWS_SWEEP_COLS, &mut points);
+        measure("rows", n, ROWS_SWEEP_COLS, limits, &mut points);
     }
     for &p in COLS_SWEEP {
-        measure("cols", COLS_SWEEP_ROWS, p, &mut points);
+        measure("cols", COLS_SWEEP_ROWS, p, limits, &mut points);
     }
     let mut csv = String::from("sweep,solver,rows,cols,seconds\n");
     for pt in &points {
@@ -126,10 +157,12 @@ fn main() -> Result<(), Box<dyn StdError>> {
     }
     std::fs::write(csv_path, csv)?;
 
-    let names: Vec<String> = std::iter::once("gram-floor".to_string())
+    let names: Vec<String> = ["gram-limit", "gram-floor"]
+        .into_iter()
+        .map(str::to_string)
         .chain(SOLVERS.iter().map(|s| s.0.to_string()))
         .collect();
-    let colors = [BLACK, BLUE, RED, GREEN];
+    let colors = [MAGENTA, BLACK, BLUE, RED, GREEN];
     let root = SVGBackend::new(svg_path, (1100, 460)).into_drawing_area();
     root.fill(&WHITE)?;
     let (left, right) = root.split_horizontally(550);

@@ -94,3 +94,34 @@ pub fn fill_pass(problem: &Problem<'_>) -> f64 {
         })
         .sum()
 }
+
+pub use crate::linalg::kernels::{current_level, fma_loop, force_level, Level};
+
+/// [`fma_loop`] at `level` on every thread of the current rayon pool at
+/// once; returns the operations done by all threads together and a
+/// checksum, `None` when the processor cannot run `level`.
+pub fn fma_loop_all_threads(level: Level, iterations: usize) -> Option<(f64, f64)> {
+    if !level.available() {
+        return None;
+    }
+    let parts = rayon::broadcast(|_| fma_loop(level, iterations));
+    parts.into_iter().try_fold((0.0, 0.0), |(f, c), part| {
+        part.map(|(pf, pc)| (f + pf, c + pc))
+    })
+}
+
+/// Sums `buf` in parallel over chunks of 64 KiB, each chunk in the
+/// dispatched lane kernel: one streaming read of `buf`, the bandwidth probe
+/// of the benchmarks (give it a buffer many times larger than the caches).
+pub fn stream_sum(buf: &[f64]) -> f64 {
+    use rayon::prelude::*;
+    buf.par_chunks(1 << 13)
+        .map(|chunk| {
+            crate::linalg::kernels::dispatch(|| {
+                let mut acc = [0.0; crate::linalg::kernels::LANES];
+                crate::linalg::kernels::accumulate(chunk, &mut acc);
+                crate::linalg::kernels::reduce(acc)
+            })
+        })
+        .sum()
+}

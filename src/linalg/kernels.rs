@@ -2,13 +2,16 @@
 //! time.
 //!
 //! Each kernel is plain Rust over slices, run inside [`dispatch`], which
-//! compiles it once per instruction set (AVX2 + FMA where the processor has
-//! them, the x86-64 baseline otherwise) and picks the best at run time, so a
-//! default release build is fast without `target-cpu=native`. Every kernel
-//! fixes its order of operations (eight lanes, a fixed lane reduction, and
-//! fused multiply-adds only where written as `mul_add`, which rounds once on
-//! every instruction set), so its result does not depend on the instruction
-//! set picked.
+//! compiles it once per instruction set (AVX-512 where the processor has
+//! it, else AVX2 + FMA, else the x86-64 baseline) and picks the best at run
+//! time, so a default release build is fast without `target-cpu=native`.
+//! Every kernel fixes its order of operations (eight lanes, a fixed lane
+//! reduction, and fused multiply-adds only where written as `mul_add`, which
+//! rounds once on every instruction set), so its result does not depend on
+//! the instruction set picked. [`force_level`] pins the level (for tests and
+//! benchmarks that compare the levels).
+
+use std::sync::atomic::{AtomicU8, Ordering};
 
 use ndarray::{ArrayView2, Axis};
 use pulp::{Simd, WithSimd};
@@ -16,7 +19,113 @@ use pulp::{Simd, WithSimd};
 /// Lanes of the kernels' accumulators.
 pub(crate) const LANES: usize = 8;
 
-/// Runs `f` compiled for the best instruction set this processor has.
+/// An instruction set the kernels can be compiled for.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Level {
+    /// The target's baseline (SSE2 on x86-64), no fused multiply-add unit.
+    Scalar,
+    /// x86-64-v3: AVX2 and FMA, 256-bit vectors.
+    V3,
+    /// x86-64-v4: AVX-512 (F, BW, CD, DQ, VL), 512-bit vectors.
+    V4,
+}
+
+impl Level {
+    /// Every level, narrowest first.
+    pub const ALL: [Level; 3] = [Level::Scalar, Level::V3, Level::V4];
+
+    /// A short name: `scalar`, `avx2` or `avx512`.
+    pub fn name(self) -> &'static str {
+        match self {
+            Level::Scalar => "scalar",
+            Level::V3 => "avx2",
+            Level::V4 => "avx512",
+        }
+    }
+
+    /// Whether this processor can run the level.
+    pub fn available(self) -> bool {
+        arch_for(self).is_some()
+    }
+
+    /// The widest level this processor runs.
+    pub fn best() -> Level {
+        [Level::V4, Level::V3]
+            .into_iter()
+            .find(|l| l.available())
+            .unwrap_or(Level::Scalar)
+    }
+
+    fn code(self) -> u8 {
+        match self {
+            Level::Scalar => 1,
+            Level::V3 => 2,
+            Level::V4 => 3,
+        }
+    }
+}
+
+/// The level pinned by [`force_level`] (0: none, the best is used).
+static FORCED: AtomicU8 = AtomicU8::new(0);
+
+/// Pins every later [`dispatch`] (in every thread) to `level`, or back to
+/// the best available with `None`. Returns `false`, and changes nothing,
+/// when the processor cannot run `level`.
+pub fn force_level(level: Option<Level>) -> bool {
+    match level {
+        None => {
+            FORCED.store(0, Ordering::Relaxed);
+            true
+        }
+        Some(l) if l.available() => {
+            FORCED.store(l.code(), Ordering::Relaxed);
+            true
+        }
+        Some(_) => false,
+    }
+}
+
+/// The level [`dispatch`] runs at now.
+pub fn current_level() -> Level {
+    match FORCED.load(Ordering::Relaxed) {
+        1 => Level::Scalar,
+        2 => Level::V3,
+        3 => Level::V4,
+        _ => Level::best(),
+    }
+}
+
+/// pulp's token for `level`, `None` when the processor cannot run it.
+#[cfg(target_arch = "x86_64")]
+fn arch_for(level: Level) -> Option<pulp::Arch> {
+    use pulp::x86::{V3, V4};
+    match level {
+        Level::Scalar => Some(pulp::Arch::Scalar),
+        Level::V3 => V3::try_new().map(pulp::Arch::V3),
+        Level::V4 => V4::try_new().map(pulp::Arch::V4),
+    }
+}
+
+/// pulp's token for `level`, `None` when the processor cannot run it.
+#[cfg(not(target_arch = "x86_64"))]
+fn arch_for(level: Level) -> Option<pulp::Arch> {
+    match level {
+        Level::Scalar => Some(pulp::Arch::new()),
+        Level::V3 | Level::V4 => None,
+    }
+}
+
+/// The token [`dispatch`] uses: the pinned level if any, else the best.
+#[inline(always)]
+fn arch() -> pulp::Arch {
+    match FORCED.load(Ordering::Relaxed) {
+        0 => pulp::Arch::new(),
+        _ => arch_for(current_level()).unwrap_or_default(),
+    }
+}
+
+/// Runs `f` compiled for the best instruction set this processor has (or
+/// the level pinned by [`force_level`]).
 #[inline(always)]
 pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
     struct Op<F>(F);
@@ -27,7 +136,62 @@ pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
             (self.0)()
         }
     }
-    pulp::Arch::new().dispatch(Op(f))
+    arch().dispatch(Op(f))
+}
+
+/// Independent accumulator chains of [`fma_loop`]: enough to keep two
+/// fused multiply-add pipes of latency up to six busy, few enough to stay
+/// in the sixteen vector registers of AVX2.
+const FMA_CHAINS: usize = 12;
+
+/// A register-resident loop of fused multiply-adds at `level` (the
+/// baseline level, which has no fused unit, does a multiply and an add):
+/// `iterations` rounds over [`FMA_CHAINS`] independent vector chains.
+/// Returns the floating-point operations done (two per lane and chain and
+/// round) and a checksum that depends on every round; `None` when the
+/// processor cannot run `level`. The peak-rate probe of the benchmarks.
+pub fn fma_loop(level: Level, iterations: usize) -> Option<(f64, f64)> {
+    struct Op {
+        iterations: usize,
+        a: f64,
+        b: f64,
+    }
+    impl WithSimd for Op {
+        type Output = (f64, f64);
+        #[inline(always)]
+        fn with_simd<S: Simd>(self, simd: S) -> (f64, f64) {
+            let a = simd.splat_f64s(self.a);
+            let b = simd.splat_f64s(self.b);
+            let mut acc = [simd.splat_f64s(0.0); FMA_CHAINS];
+            for _ in 0..self.iterations {
+                for c in acc.iter_mut() {
+                    *c = simd.mul_add_f64s(a, *c, b);
+                }
+            }
+            let mut total = simd.splat_f64s(0.0);
+            for c in acc {
+                total = simd.add_f64s(total, c);
+            }
+            let flops = (2 * FMA_CHAINS * S::F64_LANES) as f64 * self.iterations as f64;
+            (flops, simd.reduce_sum_f64s(total))
+        }
+    }
+    // `a` slightly below one keeps every chain bounded; black_box keeps the
+    // constants opaque to the optimiser.
+    let a = std::hint::black_box(1.0 - 1.0 / 1024.0);
+    let b = std::hint::black_box(0.5);
+    if level == Level::Scalar {
+        let mut acc = [0.0f64; FMA_CHAINS];
+        for _ in 0..iterations {
+            for c in acc.iter_mut() {
+                *c = a * *c + b;
+            }
+            acc = std::hint::black_box(acc);
+        }
+        let flops = (2 * FMA_CHAINS) as f64 * iterations as f64;
+        return Some((flops, acc.iter().sum()));
+    }
+    Some(arch_for(level)?.dispatch(Op { iterations, a, b }))
 }
 
 /// Calls `f(local_row, row)` for every row of `xb`, each row as a slice.
