@@ -280,6 +280,14 @@ pub enum Error {
         /// The criterion that was scored.
         criterion: crate::vocabulary::Criterion,
     },
+    /// A penalty criterion that needs the rows was asked of a summary that
+    /// does not keep them (a fit state keeps `O(p^2)` numbers, not the
+    /// rows each leverage needs).
+    #[error("the {criterion} criterion needs every row's leverage, and a fit state does not keep the rows: score with generalized cross-validation, or fit the rows in memory")]
+    CriterionNeedsRows {
+        /// The criterion refused.
+        criterion: crate::ridge::Criterion,
+    },
     /// A saved form (feature `serde`) with another format tag or version
     /// than this version of the crate reads.
     #[error("the saved {what} has format {found:?} version {version}; this crate reads format {expected:?} version {supported}")]

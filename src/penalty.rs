@@ -105,28 +105,43 @@ impl PenaltyMap {
     /// (`sq_norms = Some(|Z_j|^2)`): `f_j = sqrt(n_min / |Z_j|^2)`,
     /// `u = n_min / W`, with `n_min` the smallest non-zero squared norm.
     pub fn new(problem: &Problem<'_>, scaling: &Scaling, sq_norms: Option<&[f64]>) -> Self {
-        let p = problem.columns();
+        Self::from_parts(
+            &scaling.constant,
+            &scaling.scale_exp,
+            exponent(problem.stats.weight_scale),
+            problem.stats.total_weight,
+            sq_norms,
+        )
+    }
+
+    /// As [`PenaltyMap::new`], from the pieces of a frame: which columns
+    /// are constant, each column's scale `2^scale_exp[j]`, the weight scale
+    /// `2^weight_exp` and the total weight divided by it (a fit state gives
+    /// these without a [`Problem`]).
+    pub fn from_parts(
+        constant: &[bool],
+        scale_exp: &[i32],
+        weight_exp: i32,
+        total_weight: f64,
+        sq_norms: Option<&[f64]>,
+    ) -> Self {
+        let p = constant.len();
         let live = |j: usize| -> bool {
-            !scaling.constant[j] && sq_norms.is_none_or(|n| n[j] > 0.0 && n[j].is_finite())
+            !constant[j] && sq_norms.is_none_or(|n| n[j] > 0.0 && n[j].is_finite())
         };
         match sq_norms {
             None => {
-                let smax = (0..p)
-                    .filter(|&j| live(j))
-                    .map(|j| scaling.scale[j])
-                    .fold(0.0_f64, f64::max);
-                if smax == 0.0 {
+                let Some(emax) = (0..p).filter(|&j| live(j)).map(|j| scale_exp[j]).max() else {
                     return PenaltyMap {
                         factors: vec![0.0; p],
                         unit: 1.0,
                         unit_exp: 0,
                     };
-                }
-                let emax = exponent(smax);
+                };
                 let factors = (0..p)
                     .map(|j| {
                         if live(j) {
-                            ldexp(1.0, scaling.scale_exp[j] - emax)
+                            ldexp(1.0, scale_exp[j] - emax)
                         } else {
                             0.0
                         }
@@ -135,7 +150,7 @@ impl PenaltyMap {
                 PenaltyMap {
                     factors,
                     unit: 1.0,
-                    unit_exp: -2 * emax - exponent(problem.stats.weight_scale),
+                    unit_exp: -2 * emax - weight_exp,
                 }
             }
             Some(norms) => {
@@ -162,8 +177,8 @@ impl PenaltyMap {
                 // u = n_min / W with W = W~ ws (the caller's total weight).
                 PenaltyMap {
                     factors,
-                    unit: nmin / problem.stats.total_weight,
-                    unit_exp: -exponent(problem.stats.weight_scale),
+                    unit: nmin / total_weight,
+                    unit_exp: -weight_exp,
                 }
             }
         }
@@ -189,6 +204,17 @@ impl PenaltyMap {
 
     /// Coefficients in the caller's units: `b_j = f_j gamma^_j s_y / s_j`.
     pub fn to_caller(&self, scaling: &Scaling, gamma_hat: &[f64]) -> Vec<f64> {
+        self.to_caller_parts(&scaling.scale_exp, scaling.target_exp, gamma_hat)
+    }
+
+    /// As [`PenaltyMap::to_caller`], from the column scales `2^scale_exp[j]`
+    /// and the target scale `2^target_exp` of a frame.
+    pub fn to_caller_parts(
+        &self,
+        scale_exp: &[i32],
+        target_exp: i32,
+        gamma_hat: &[f64],
+    ) -> Vec<f64> {
         gamma_hat
             .iter()
             .enumerate()
@@ -196,7 +222,7 @@ impl PenaltyMap {
                 if self.factors[j] == 0.0 {
                     0.0
                 } else {
-                    scaling.to_caller(j, self.factors[j] * g)
+                    ldexp(self.factors[j] * g, target_exp - scale_exp[j])
                 }
             })
             .collect()

@@ -97,9 +97,9 @@
 mod cholesky;
 mod dual;
 mod folds;
-mod path;
+pub(crate) mod path;
 mod qr;
-mod selection;
+pub(crate) mod selection;
 
 pub use crate::vocabulary::Criterion;
 pub use folds::{HeldOutError, RowFolds};

@@ -74,7 +74,7 @@ pub struct RidgePath<'p, 'a> {
 
 /// Which side of the design the decomposition came from.
 #[derive(Debug)]
-pub(super) enum Side {
+pub(crate) enum Side {
     /// SVD of the triangle: right singular vectors `V` (`p x p`) and the
     /// squared residual of the target outside the columns' span.
     Columns {
@@ -89,7 +89,7 @@ pub(super) enum Side {
 
 /// Squared singular values and target coordinates of `Ẑ`.
 #[derive(Debug)]
-pub(super) struct Spectrum {
+pub(crate) struct Spectrum {
     /// `s_k^2`, non-increasing.
     pub sq: Vec<f64>,
     /// Leading directions treated as non-zero.
@@ -100,6 +100,43 @@ pub(super) struct Spectrum {
 }
 
 impl Spectrum {
+    /// Residual sum of squares at the uniform penalty `mu`, in scaled units.
+    pub fn rss(&self, mu: f64) -> f64 {
+        let base = match &self.side {
+            Side::Columns { rss0, .. } => *rss0,
+            Side::Rows { .. } => 0.0,
+        };
+        base + (0..self.sq.len())
+            .map(|k| {
+                let e = (1.0 - self.phi(k, mu)) * self.d[k];
+                e * e
+            })
+            .sum::<f64>()
+    }
+
+    /// Effective degrees of freedom `tr H` at the uniform penalty `mu`,
+    /// counting the intercept as one.
+    pub fn df(&self, mu: f64, intercept: bool) -> f64 {
+        let slopes: f64 = (0..self.kept).map(|k| self.phi(k, mu)).sum();
+        slopes + f64::from(u8::from(intercept))
+    }
+
+    /// Coefficients `gamma^` (length `p`) at `mu` from the columns side:
+    /// `sum_k v_k s_k d_k / (s_k^2 + mu)`. `None` on the rows side.
+    pub fn column_coefficients(&self, mu: f64, p: usize) -> Option<Vec<f64>> {
+        let Side::Columns { v, .. } = &self.side else {
+            return None;
+        };
+        let mut gamma = vec![0.0; p];
+        for k in 0..self.kept {
+            let c = self.sq[k].sqrt() * self.d[k] / (self.sq[k] + mu);
+            for (j, g) in gamma.iter_mut().enumerate() {
+                *g += v[(j, k)] * c;
+            }
+        }
+        Some(gamma)
+    }
+
     /// Filter factor `s_k^2 / (s_k^2 + mu)` (0 for directions not kept).
     pub fn phi(&self, k: usize, mu: f64) -> f64 {
         if k < self.kept {
@@ -154,52 +191,26 @@ impl<'p, 'a> RidgePath<'p, 'a> {
         standardize: bool,
         watch: &Watch<'_>,
     ) -> Result<Self> {
-        let p = problem.columns();
         let tri = match gram_triangle(problem, &scaling, standardize, watch)? {
             Some(t) => t,
             None => qr_triangle(problem, &scaling, standardize, watch)?,
         };
-        let (sq, d, v) = if p == 0 {
-            (Vec::new(), Vec::new(), Mat::<f64>::zeros(0, 0))
-        } else {
-            let dec = thin_svd(tri.rh.as_ref())?;
-            let d = (0..p)
-                .map(|k| (0..p).map(|i| dec.u[(i, k)] * tri.r[i]).sum())
-                .collect();
-            (dec.s.iter().map(|s| s * s).collect(), d, dec.v)
-        };
         let tol = problem.default_rank_tolerance();
-        let top = sq.first().copied().unwrap_or(0.0);
-        let kept = sq
-            .iter()
-            .take_while(|&&s2| s2 > 0.0 && s2.sqrt() > tol * top.sqrt())
-            .count();
-        // R^ = R diag(f): the design's own triangle is R^ diag(1/f) (zero
-        // columns for those that take no part).
-        let f = &tri.map.factors;
-        let own = Mat::<f64>::from_fn(p, p, |i, j| {
-            if f[j] == 0.0 {
-                0.0
-            } else {
-                tri.rh[(i, j)] / f[j]
-            }
-        });
-        let design_condition = Some(crate::linalg::svd::condition(own.as_ref(), tol)?);
+        let (spectrum, condition) = column_spectrum(
+            tri.rh.as_ref(),
+            &tri.r,
+            tri.rss0,
+            &tri.map.factors,
+            tol,
+            tri.source,
+        )?;
+        let design_condition = Some(condition);
         Ok(RidgePath {
             problem,
             scaling,
             design_condition,
             map: tri.map,
-            spectrum: Spectrum {
-                sq,
-                kept,
-                d,
-                side: Side::Columns {
-                    v,
-                    rss0: tri.rss0,
-                    source: tri.source,
-                },
-            },
+            spectrum,
         })
     }
 
@@ -298,17 +309,11 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     pub(super) fn scaled_coefficients(&self, mu: f64) -> Vec<f64> {
         let sp = &self.spectrum;
         let p = self.problem.columns();
+        if let Some(gamma) = sp.column_coefficients(mu, p) {
+            return gamma;
+        }
         match &sp.side {
-            Side::Columns { v, .. } => {
-                let mut gamma = vec![0.0; p];
-                for k in 0..sp.kept {
-                    let c = sp.sq[k].sqrt() * sp.d[k] / (sp.sq[k] + mu);
-                    for (j, g) in gamma.iter_mut().enumerate() {
-                        *g += v[(j, k)] * c;
-                    }
-                }
-                gamma
-            }
+            Side::Columns { .. } => Vec::new(),
             Side::Rows { u, rows } => {
                 let mut w = vec![0.0; rows.len()];
                 for k in 0..sp.kept {
@@ -331,25 +336,13 @@ impl<'p, 'a> RidgePath<'p, 'a> {
 
     /// Residual sum of squares in scaled units.
     pub(super) fn scaled_rss(&self, mu: f64) -> f64 {
-        let sp = &self.spectrum;
-        let base = match &sp.side {
-            Side::Columns { rss0, .. } => *rss0,
-            Side::Rows { .. } => 0.0,
-        };
-        base + (0..sp.sq.len())
-            .map(|k| {
-                let e = (1.0 - sp.phi(k, mu)) * sp.d[k];
-                e * e
-            })
-            .sum::<f64>()
+        self.spectrum.rss(mu)
     }
 
     /// Effective degrees of freedom `tr H` at the uniform penalty `mu`,
     /// counting the intercept as one.
     pub(super) fn scaled_df(&self, mu: f64) -> f64 {
-        let sp = &self.spectrum;
-        let slopes: f64 = (0..sp.kept).map(|k| sp.phi(k, mu)).sum();
-        slopes + f64::from(u8::from(self.problem.has_intercept()))
+        self.spectrum.df(mu, self.problem.has_intercept())
     }
 
     /// Effective degrees of freedom of the fit with penalty `penalty`: the
@@ -400,40 +393,95 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// [`Error::Overflow`] if the singular values are too large to square;
     /// [`Error::TooLarge`] when `count` penalties cannot be allocated.
     pub fn default_grid(&self, count: usize) -> Result<Vec<f64>> {
-        if count == 0 {
-            return Err(Error::InvalidParameter {
-                name: "grid",
-                value: 0.0,
-                reason: "must hold at least one penalty",
-            });
-        }
-        let s = self.singular_values();
-        let kept = self.spectrum.kept;
-        let (top, low) = if kept == 0 {
-            (1.0, 1.0)
-        } else {
-            (s[0] * s[0], s[kept - 1] * s[kept - 1])
-        };
-        let hi = 10.0 * top;
-        let lo = (low / 100.0).max(1e-10 * top);
-        if !(hi.is_finite() && lo > 0.0) {
-            return Err(Error::Overflow {
-                what: "default penalty grid",
-            });
-        }
-        let mut grid = crate::alloc::with_capacity("penalty grid", count)?;
-        if count == 1 {
-            grid.push(lo.sqrt() * hi.sqrt());
-            return Ok(grid);
-        }
-        let (a, b) = (lo.ln(), hi.ln());
-        grid.extend((0..count).map(|i| {
-            (a + (b - a) * i as f64 / (count - 1) as f64)
-                .exp()
-                .clamp(lo, hi)
-        }));
-        Ok(grid)
+        default_grid(&self.singular_values(), self.spectrum.kept, count)
     }
+}
+
+/// The grid of [`RidgePath::default_grid`] from the singular values `s`
+/// (penalty units) of which the first `kept` count.
+pub(crate) fn default_grid(s: &[f64], kept: usize, count: usize) -> Result<Vec<f64>> {
+    if count == 0 {
+        return Err(Error::InvalidParameter {
+            name: "grid",
+            value: 0.0,
+            reason: "must hold at least one penalty",
+        });
+    }
+    let (top, low) = if kept == 0 {
+        (1.0, 1.0)
+    } else {
+        (s[0] * s[0], s[kept - 1] * s[kept - 1])
+    };
+    let hi = 10.0 * top;
+    let lo = (low / 100.0).max(1e-10 * top);
+    if !(hi.is_finite() && lo > 0.0) {
+        return Err(Error::Overflow {
+            what: "default penalty grid",
+        });
+    }
+    let mut grid = crate::alloc::with_capacity("penalty grid", count)?;
+    if count == 1 {
+        grid.push(lo.sqrt() * hi.sqrt());
+        return Ok(grid);
+    }
+    let (a, b) = (lo.ln(), hi.ln());
+    grid.extend((0..count).map(|i| {
+        (a + (b - a) * i as f64 / (count - 1) as f64)
+            .exp()
+            .clamp(lo, hi)
+    }));
+    Ok(grid)
+}
+
+/// The spectrum of the columns side from the triangle `rh` (uniform-penalty
+/// coordinates, `p x p`), the target's coordinates `r`, the squared residual
+/// `rss0` outside the columns' span and the column factors: the SVD
+/// `rh = U S V^T`, `d = U^T r`, the directions kept (singular values above
+/// `tol` times the largest), and the 2-norm condition number of the
+/// design's own triangle `rh diag(1/f)`.
+///
+/// # Errors
+/// [`Error::NoConvergence`] if the SVD fails.
+pub(crate) fn column_spectrum(
+    rh: faer::MatRef<'_, f64>,
+    r: &[f64],
+    rss0: f64,
+    factors: &[f64],
+    tol: f64,
+    source: &'static str,
+) -> Result<(Spectrum, f64)> {
+    let p = rh.ncols();
+    let (sq, d, v) = if p == 0 {
+        (Vec::new(), Vec::new(), Mat::<f64>::zeros(0, 0))
+    } else {
+        let dec = thin_svd(rh)?;
+        let d = (0..p)
+            .map(|k| (0..p).map(|i| dec.u[(i, k)] * r[i]).sum())
+            .collect();
+        (dec.s.iter().map(|s| s * s).collect(), d, dec.v)
+    };
+    let top = sq.first().copied().unwrap_or(0.0);
+    let kept = sq
+        .iter()
+        .take_while(|&&s2| s2 > 0.0 && s2.sqrt() > tol * top.sqrt())
+        .count();
+    // R^ = R diag(f): the design's own triangle is R^ diag(1/f) (zero
+    // columns for those that take no part).
+    let own = Mat::<f64>::from_fn(p, p, |i, j| {
+        if factors[j] == 0.0 {
+            0.0
+        } else {
+            rh[(i, j)] / factors[j]
+        }
+    });
+    let condition = crate::linalg::svd::condition(own.as_ref(), tol)?;
+    let spectrum = Spectrum {
+        sq,
+        kept,
+        d,
+        side: Side::Columns { v, rss0, source },
+    };
+    Ok((spectrum, condition))
 }
 
 /// A `p x p` triangle `R^` with `R^T R^ = Ẑ^T Ẑ` (uniform-penalty

@@ -7,11 +7,11 @@ use crate::error::{Error, Result};
 use crate::linalg::dense;
 use crate::observe::{Observer, Stage, Watch};
 use crate::passes::loo;
-use crate::scaled::ldexp;
-use crate::solver::caller_rss;
+use crate::penalty::PenaltyMap;
+use crate::scaled::{exponent, ldexp};
 use crate::vocabulary::Criterion;
 
-use super::path::{RidgePath, Side};
+use super::path::{RidgePath, Side, Spectrum};
 
 /// Scores of every penalty of a grid, and the one that minimises the
 /// chosen criterion.
@@ -124,77 +124,23 @@ impl RidgePath<'_, '_> {
         criterion: Criterion,
         watch: &Watch<'_>,
     ) -> Result<super::PenaltyCurve> {
-        check_grid(grid)?;
         let problem = self.problem;
-        let loss_exp = 2 * self.scaling.target_exp;
-        let wt = problem.stats.total_weight;
-        let nu = problem.usable_rows() as f64;
-        let m = grid.len();
-        let mus: Vec<f64> = grid.iter().map(|&l| self.map.scaled(l)).collect();
-        let mut effective_df = crate::alloc::with_capacity("penalty curve", m)?;
-        let mut rss = crate::alloc::with_capacity("penalty curve", m)?;
-        let mut gcv = crate::alloc::with_capacity("penalty curve", m)?;
-        // A score in the caller's units from its scaled value: infinite only
-        // where it is not determined, an error where it exceeds the range.
-        let caller = |scaled: f64, what: &'static str| -> Result<f64> {
-            if scaled == f64::INFINITY {
-                return Ok(scaled);
-            }
-            let v = ldexp(scaled, loss_exp);
-            if v.is_finite() {
-                Ok(v)
-            } else {
-                Err(Error::Overflow { what })
-            }
+        let units = CurveUnits {
+            total_weight: problem.stats.total_weight,
+            usable_rows: problem.usable_rows(),
+            intercept: problem.has_intercept(),
+            target_exp: self.scaling.target_exp,
+            weight_exp: exponent(problem.stats.weight_scale),
         };
-        for &mu in &mus {
-            let df = self.scaled_df(mu);
-            let r = self.scaled_rss(mu);
-            let denom = 1.0 - df / nu;
-            let score = if denom > 4.0 * f64::EPSILON {
-                (r / wt) / (denom * denom)
-            } else {
-                f64::INFINITY
-            };
-            gcv.push(caller(score, "generalized cross-validation score")?);
-            effective_df.push(df);
-            rss.push(caller_rss(problem, self.scaling.target_exp, r)?);
-        }
-        let loo = match criterion {
-            Criterion::LeaveOneOut => Some(
-                self.loo_sums(&mus, watch)?
-                    .into_iter()
-                    .map(|s| caller(s / wt, "leave-one-out error"))
-                    .collect::<Result<Vec<f64>>>()?,
-            ),
-            Criterion::GeneralizedCrossValidation => None,
-        };
-        let scores = loo.as_ref().unwrap_or(&gcv);
-        let mut best: Option<usize> = None;
-        for (i, &s) in scores.iter().enumerate() {
-            if !s.is_finite() {
-                continue;
-            }
-            best = match best {
-                None => Some(i),
-                Some(b) if s < scores[b] || (s == scores[b] && grid[i] > grid[b]) => Some(i),
-                keep => keep,
-            };
-        }
-        let best_index = best.ok_or(Error::NoFiniteScore {
-            penalties: grid.len(),
+        let loo = |mus: &[f64]| self.loo_sums(mus, watch);
+        penalty_curve(
+            &self.spectrum,
+            &self.map,
+            &units,
+            grid,
             criterion,
-        })?;
-        Ok(super::PenaltyCurve {
-            penalties: grid.to_vec(),
-            effective_df,
-            residual_sum_of_squares: rss,
-            gcv,
-            loo,
-            criterion,
-            best_index,
-            best_penalty: grid[best_index],
-        })
+            Some(&loo),
+        )
     }
 
     /// `sum_i (r_i / (1 - H_ii))^2` in scaled units for each `mu`.
@@ -260,4 +206,115 @@ impl RidgePath<'_, '_> {
             }
         }
     }
+}
+
+/// The units a spectrum's scores are formed in: the total weight divided by
+/// `2^weight_exp`, the usable rows, the intercept, and the target's scale
+/// `2^target_exp` (residuals are in units of `2^(target_exp + weight_exp / 2)`).
+pub(crate) struct CurveUnits {
+    pub total_weight: f64,
+    pub usable_rows: usize,
+    pub intercept: bool,
+    pub target_exp: i32,
+    pub weight_exp: i32,
+}
+
+/// The leave-one-out sums `sum_i (r_i / (1 - H_ii))^2` (scaled units) of
+/// each uniform penalty, from the rows.
+pub(crate) type LooSums<'a> = &'a dyn Fn(&[f64]) -> Result<Vec<f64>>;
+
+/// The [`PenaltyCurve`] of `grid` from a spectrum, its penalty mapping and
+/// its units; see [`RidgePath::curve`]. `loo` gives the leave-one-out sums;
+/// without it (a fit state, which has no rows) the leave-one-out criterion
+/// is refused with [`Error::CriterionNeedsRows`].
+///
+/// # Errors
+/// As [`RidgePath::curve`], and [`Error::CriterionNeedsRows`].
+pub(crate) fn penalty_curve(
+    spectrum: &Spectrum,
+    map: &PenaltyMap,
+    units: &CurveUnits,
+    grid: &[f64],
+    criterion: Criterion,
+    loo: Option<LooSums<'_>>,
+) -> Result<PenaltyCurve> {
+    if criterion == Criterion::LeaveOneOut && loo.is_none() {
+        return Err(Error::CriterionNeedsRows { criterion });
+    }
+    check_grid(grid)?;
+    let loss_exp = 2 * units.target_exp;
+    let wt = units.total_weight;
+    let nu = units.usable_rows as f64;
+    let m = grid.len();
+    let mus: Vec<f64> = grid.iter().map(|&l| map.scaled(l)).collect();
+    let mut effective_df = crate::alloc::with_capacity("penalty curve", m)?;
+    let mut rss = crate::alloc::with_capacity("penalty curve", m)?;
+    let mut gcv = crate::alloc::with_capacity("penalty curve", m)?;
+    // A score in the caller's units from its scaled value: infinite only
+    // where it is not determined, an error where it exceeds the range.
+    let caller = |scaled: f64, what: &'static str| -> Result<f64> {
+        if scaled == f64::INFINITY {
+            return Ok(scaled);
+        }
+        let v = ldexp(scaled, loss_exp);
+        if v.is_finite() {
+            Ok(v)
+        } else {
+            Err(Error::Overflow { what })
+        }
+    };
+    for &mu in &mus {
+        let df = spectrum.df(mu, units.intercept);
+        let r = spectrum.rss(mu);
+        let denom = 1.0 - df / nu;
+        let score = if denom > 4.0 * f64::EPSILON {
+            (r / wt) / (denom * denom)
+        } else {
+            f64::INFINITY
+        };
+        gcv.push(caller(score, "generalized cross-validation score")?);
+        effective_df.push(df);
+        let r_caller = ldexp(r, loss_exp + units.weight_exp);
+        if !r_caller.is_finite() {
+            return Err(Error::Overflow {
+                what: "residual sum of squares",
+            });
+        }
+        rss.push(r_caller);
+    }
+    let loo = match loo {
+        Some(sums) if criterion == Criterion::LeaveOneOut => Some(
+            sums(&mus)?
+                .into_iter()
+                .map(|s| caller(s / wt, "leave-one-out error"))
+                .collect::<Result<Vec<f64>>>()?,
+        ),
+        _ => None,
+    };
+    let scores = loo.as_ref().unwrap_or(&gcv);
+    let mut best: Option<usize> = None;
+    for (i, &s) in scores.iter().enumerate() {
+        if !s.is_finite() {
+            continue;
+        }
+        best = match best {
+            None => Some(i),
+            Some(b) if s < scores[b] || (s == scores[b] && grid[i] > grid[b]) => Some(i),
+            keep => keep,
+        };
+    }
+    let best_index = best.ok_or(Error::NoFiniteScore {
+        penalties: grid.len(),
+        criterion,
+    })?;
+    Ok(PenaltyCurve {
+        penalties: grid.to_vec(),
+        effective_df,
+        residual_sum_of_squares: rss,
+        gcv,
+        loo,
+        criterion,
+        best_index,
+        best_penalty: grid[best_index],
+    })
 }

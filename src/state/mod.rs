@@ -54,6 +54,12 @@
 //! log-likelihood) without the rows; a sandwich covariance needs them
 //! again and is refused.
 //!
+//! **Penalty path.** [`TriangleState::ridge_path`] gives a
+//! [`StateRidgePath`]: ridge fits, effective degrees of freedom, residual
+//! sums of squares and generalized cross-validation at any penalty, from
+//! one SVD of the state's triangle; the leave-one-out criterion needs the
+//! rows and is refused.
+//!
 //! **Reports.** A state's fits report the solver `"qr-state"`,
 //! `"cholesky-state"`, `"svd-state"` (minimum norm) or `"ridge-state"`,
 //! the factorisation used, and fingerprint 0: a state fit is not tied to
@@ -83,11 +89,13 @@
 
 mod cross;
 mod inference;
+mod ridge;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
 
 pub use cross::CrossProductState;
+pub use ridge::StateRidgePath;
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};

@@ -104,7 +104,7 @@ impl TriangleState {
     }
 
     /// The triangle in the frame's units, constant columns zeroed.
-    fn framed(&self, frame: &Frame) -> Mat<f64> {
+    pub(super) fn framed(&self, frame: &Frame) -> Mat<f64> {
         let (p, width) = (self.core.p, self.core.width());
         Mat::from_fn(width, width, |i, j| {
             if i > j || (j < p && frame.constant[j]) {
@@ -374,12 +374,12 @@ impl TriangleState {
 /// The centered total sum of squares of column `c` of the stacked problem
 /// (the target's, in frame units): the squared norm of the triangle's
 /// column, which keeps the norm of the centered, weighted column.
-fn total_squares(r: &Mat<f64>, c: usize) -> f64 {
+pub(super) fn total_squares(r: &Mat<f64>, c: usize) -> f64 {
     let (s, e) = residual_squares(r, 0, c);
     ldexp(s, e)
 }
 
-fn residual_squares(r: &Mat<f64>, p: usize, c: usize) -> (f64, i32) {
+pub(super) fn residual_squares(r: &Mat<f64>, p: usize, c: usize) -> (f64, i32) {
     let big = (p..=c).fold(0.0f64, |m, i| m.max(r[(i, c)].abs()));
     if big == 0.0 {
         return (0.0, 0);
