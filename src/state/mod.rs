@@ -83,11 +83,13 @@
 
 mod cross;
 mod inference;
+mod second_pass;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
 
 pub use cross::CrossProductState;
+pub use second_pass::{BlockDiagnostics, SecondPass};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
