@@ -342,6 +342,20 @@ pub enum Error {
         /// Target columns of the block.
         found: usize,
     },
+    /// A second pass over a fit state's rows (see
+    /// [`crate::state::SecondPass`]) was given other rows than the state
+    /// absorbed: a block starting at another row than the next one
+    /// expected, more rows than the state holds, or, at the end, fewer rows
+    /// or another count of rows with positive weight.
+    #[error("the second pass expected {what} {expected} but was given {found}")]
+    PassMismatch {
+        /// What disagrees ("first row of the block", "rows", "rows with positive weight").
+        what: &'static str,
+        /// The value the state implies.
+        expected: usize,
+        /// The value the pass was given.
+        found: usize,
+    },
     /// A fit state read back (feature `serde`) is inconsistent: a size that
     /// does not match, a number that is not finite, a negative weight, a
     /// non-zero entry below the diagonal of a triangle.

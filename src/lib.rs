@@ -306,7 +306,10 @@ pub use ridge::{
 };
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
-pub use state::{CrossProductState, FitState, StateLayout, StateRidgePath, TriangleState};
+pub use state::{
+    BlockDiagnostics, CrossProductState, FitState, SecondPass, StateLayout, StateRidgePath,
+    TriangleState,
+};
 #[cfg(feature = "serde")]
 pub use state::{StateData, STATE_FORMAT, STATE_VERSION};
 

@@ -1,4 +1,4 @@
-//! Classical inference from a triangular factor that a fit state holds
+//! Classical (and, after a second pass, sandwich) inference from a triangular factor that a fit state holds
 //! (see [`crate::TriangleState::inference`] and
 //! [`crate::CrossProductState::inference`]): the same numbers as
 //! [`Inference::with_options`], without the rows.
@@ -41,6 +41,11 @@ pub(crate) struct FactorParts<'a> {
     pub log_weights: f64,
     pub names: Vec<String>,
     pub solver: String,
+    /// The middle matrix of a sandwich covariance in orthonormal
+    /// coordinates (`q x q`, frame units divided by `4^e`, `2^e` the
+    /// power of two at or below `rnorm`), formed by the state's second
+    /// pass over the rows; `None` for the classical covariance.
+    pub meat: Option<MatRef<'a, f64>>,
 }
 
 /// Checks what can be refused before anything is factored: the level, the
@@ -51,8 +56,19 @@ pub(crate) fn precheck(
     usable_rows: usize,
     parameters: usize,
 ) -> Result<()> {
+    precheck_rows(options, usable_rows, parameters, false)
+}
+
+/// [`precheck`], where `rows_seen` says a second pass has formed the
+/// middle matrix a sandwich covariance needs.
+pub(crate) fn precheck_rows(
+    options: &InferenceOptions,
+    usable_rows: usize,
+    parameters: usize,
+    rows_seen: bool,
+) -> Result<()> {
     options.check()?;
-    if options.covariance != CovarianceKind::Classical {
+    if options.covariance != CovarianceKind::Classical && !rows_seen {
         return Err(refuse(InferenceRefusal::NeedsRows {
             covariance: options.covariance,
         }));
@@ -73,7 +89,7 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
     let has_intercept = parts.intercept;
     let q = p + usize::from(has_intercept);
     let n = parts.usable_rows;
-    precheck(&options, n, q)?;
+    precheck_rows(&options, n, q, parts.meat.is_some())?;
     let df = n - q;
     let dff = df as f64;
     crate::alloc::reserve_matrices("inference matrices", q + 1, q + 1, 3)?;
@@ -99,15 +115,25 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
     let sigma_scaled = rss_norm / dff.sqrt();
     let sigma_exp = exponent(sigma_scaled);
     let sigma_m = ldexp(sigma_scaled, -sigma_exp);
+    let residual_exp = exponent(rss_norm.max(f64::MIN_POSITIVE));
+    let meat = parts.meat;
     let mut covariance = ndarray::Array2::<f64>::zeros((q, q));
     congruence_into(
         crate::linalg::as_faer_mut(&mut covariance),
         v.as_ref(),
-        None,
-        sigma_m * sigma_m,
+        meat,
+        if meat.is_some() {
+            1.0
+        } else {
+            sigma_m * sigma_m
+        },
     );
     drop(v);
-    let cov_exp = 2 * sigma_exp;
+    let cov_exp = if meat.is_some() {
+        2 * residual_exp
+    } else {
+        2 * sigma_exp
+    };
     let mut units: Vec<i32> = (0..p).map(|j| ey - parts.col_exps[j]).collect();
     if has_intercept {
         units.push(ey);
@@ -124,14 +150,13 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
     let ws_exp = parts.weight_exp;
     let (residual_variance, residual_sd) = residual_spread(sigma_m, sigma_exp, ey, ws_exp)?;
     let tnorm = parts.tnorm;
-    let residual_exp = exponent(rss_norm.max(f64::MIN_POSITIVE));
     let goodness = goodness::compute(goodness::Inputs {
         n,
         centered: has_intercept,
         log_weights: parts.log_weights,
         r,
         gamma,
-        meat: None,
+        meat,
         meat_exp: 2 * residual_exp,
         sigma_scaled,
         rss_norm,
@@ -151,7 +176,7 @@ pub(crate) fn from_factor(parts: FactorParts<'_>, options: InferenceOptions) -> 
         total_weight: parts.total_weight,
         means: parts.means.to_vec(),
         target_mean: parts.target_mean,
-        meat: None,
+        meat: meat.map(|m| ndarray::Array2::from_shape_fn((q, q), |(i, j)| m[(i, j)])),
         meat_exp: 2 * residual_exp,
         sigma_scaled,
         gamma: gamma.to_vec(),

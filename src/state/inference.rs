@@ -13,7 +13,7 @@ use crate::solver::Fit;
 
 impl Core {
     /// Checks the target index and what can be refused before a factor.
-    fn check_inference(&self, target: usize, options: &InferenceOptions) -> Result<()> {
+    pub(super) fn check_inference(&self, target: usize, options: &InferenceOptions) -> Result<()> {
         options.check()?;
         if target >= self.k {
             return Err(Error::InvalidParameter {
@@ -38,6 +38,7 @@ impl Core {
         fits: &[Fit],
         t: usize,
         options: InferenceOptions,
+        meat: Option<MatRef<'_, f64>>,
     ) -> Result<Inference> {
         let p = self.p;
         let fit = &fits[t];
@@ -63,6 +64,7 @@ impl Core {
                     .clone()
                     .unwrap_or_else(|| crate::model::default_names(p)),
                 solver: fit.report.solver.clone(),
+                meat,
             },
             options,
         )
@@ -120,8 +122,20 @@ impl TriangleState {
     /// freedom, or a rank-deficient design; the errors of
     /// [`TriangleState::finish_with`] (no rows, overflow).
     pub fn inference(&self, target: usize, options: InferenceOptions) -> Result<Inference> {
+        self.core.check_inference(target, &options)?;
+        self.inference_with(target, options, None)
+    }
+
+    /// [`TriangleState::inference`] with the middle matrix of a sandwich
+    /// covariance that a second pass formed (see
+    /// [`crate::inference::from_state::FactorParts::meat`]).
+    pub(crate) fn inference_with(
+        &self,
+        target: usize,
+        options: InferenceOptions,
+        meat: Option<MatRef<'_, f64>>,
+    ) -> Result<Inference> {
         let core = &self.core;
-        core.check_inference(target, &options)?;
         let fits = self.finish_with(None).map_err(as_refusal)?;
         let (frame, rf, _) = self.factor(None).map_err(as_refusal)?;
         let p = core.p;
@@ -131,7 +145,16 @@ impl TriangleState {
         triangular::solve_upper(r11, &mut gamma);
         let rnorm = norm((p..=c).map(|i| rf[(i, c)]));
         let tnorm = norm((0..=c).map(|i| rf[(i, c)]));
-        core.inference_from(&frame, r11, &gamma, [rnorm, tnorm], &fits, target, options)
+        core.inference_from(
+            &frame,
+            r11,
+            &gamma,
+            [rnorm, tnorm],
+            &fits,
+            target,
+            options,
+            meat,
+        )
     }
 }
 
@@ -189,6 +212,7 @@ impl CrossProductState {
             &fits,
             target,
             options,
+            None,
         )
     }
 }

@@ -90,12 +90,14 @@
 mod cross;
 mod inference;
 mod ridge;
+mod second_pass;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
 
 pub use cross::CrossProductState;
 pub use ridge::StateRidgePath;
+pub use second_pass::{BlockDiagnostics, SecondPass};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
