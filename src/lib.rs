@@ -303,7 +303,10 @@ pub use ridge::{
 };
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
-pub use state::{CrossProductState, FitState, StateLayout, TriangleState};
+pub use state::{
+    CrossProductState, FitState, ManyTargets, ManyTargetsBuilder, SharedSolver, StateLayout,
+    TriangleState,
+};
 #[cfg(feature = "serde")]
 pub use state::{StateData, STATE_FORMAT, STATE_VERSION};
 
