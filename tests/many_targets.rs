@@ -140,14 +140,15 @@ fn shared_state_equals_one_state_per_target() {
         .build()
         .expect("many");
     let fits = many.fit(&Qr::new()).expect("fit");
-    for t in 0..k {
+    assert_eq!(fits.len(), k);
+    for (t, fit) in fits.iter().enumerate() {
         let mut one = TriangleState::new(p, 1, true).expect("state");
         let yt = ys.slice(s![.., t..t + 1]);
         absorb_rows(&mut one, x.view(), yt, Some(w.view()), &Unobserved).expect("absorb");
         let alone = one.finish().expect("finish").remove(0);
-        assert_eq!(coefficients(&fits[t]), coefficients(&alone), "target {t}");
+        assert_eq!(coefficients(fit), coefficients(&alone), "target {t}");
         let rss = digits(
-            fits[t].report.residual_sum_of_squares,
+            fit.report.residual_sum_of_squares,
             alone.report.residual_sum_of_squares,
         );
         assert!(rss >= 15.0, "target {t}: RSS {rss} digits");
