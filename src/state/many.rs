@@ -34,7 +34,7 @@ pub const ABSORB_BLOCK_ROWS: usize = 8192;
 /// ```
 /// use leastline::state::absorb_rows;
 /// use leastline::{FitState, TriangleState, Unobserved};
-/// use ndarray::{Array1, Array2};
+/// use ndarray::Array2;
 ///
 /// // Three sensors on a bridge deck, each read against the load and the
 /// // air temperature, 20,000 readings.
@@ -372,7 +372,16 @@ impl<'a> ManyTargets<'a> {
         solver: &dyn SharedSolver,
         observer: &dyn Observer,
     ) -> Result<Vec<Fit>> {
-        solver.fit_many(self, observer)
+        let fits = solver.fit_many(self, observer)?;
+        let Some(names) = &self.names else {
+            return Ok(fits);
+        };
+        fits.into_iter()
+            .map(|mut fit| {
+                fit.model = fit.model.with_names(names.iter().cloned())?;
+                Ok(fit)
+            })
+            .collect()
     }
 
     /// Fits each target on its own with `solver` (any solver, the gradient
