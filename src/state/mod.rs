@@ -91,6 +91,7 @@ mod cross;
 mod inference;
 mod ridge;
 mod second_pass;
+mod many;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
@@ -98,6 +99,7 @@ mod wire;
 pub use cross::CrossProductState;
 pub use ridge::StateRidgePath;
 pub use second_pass::{BlockDiagnostics, SecondPass};
+pub use many::{absorb_rows, ManyTargets, ManyTargetsBuilder, SharedSolver, ABSORB_BLOCK_ROWS};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
