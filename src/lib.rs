@@ -289,6 +289,8 @@ pub mod state;
 /// against (`use leastline::ndarray::array;`).
 pub use ndarray;
 
+pub use linalg::backend::{backend, set_backend, Backend};
+
 pub use error::{Error, Input, Result};
 pub use gradient::{Accelerated, GradientDescent, Stochastic};
 pub use inference::{

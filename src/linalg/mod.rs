@@ -19,6 +19,7 @@
 //! - [`dense`], [`dual`], [`loo`]: small products, the row Gram of wide designs and
 //!   leave-one-out sums for the ridge solvers and the penalty path.
 
+pub(crate) mod backend;
 pub(crate) mod cholesky;
 pub(crate) mod dense;
 pub(crate) mod dual;
