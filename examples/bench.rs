@@ -13,7 +13,11 @@
 //! default 5; the median is reported), `--seed S`, `--no-intercept`,
 //! `--no-baselines` (skip the straightforward versions), `--col-major` (store
 //! the design column by column instead of row by row), `--json` (one JSON
-//! object per line instead of the table).
+//! object per line instead of the table), `--backend faer|lapack` (the
+//! library of the `p x p` and stacked factorisations, see
+//! `leastline::set_backend`; `lapack` needs the cargo feature
+//! `lapack-openblas-system` or `lapack-openblas-static`; default: the
+//! build's default, LAPACK when compiled in).
 //!
 //! Floors: `gram` is the symmetric Gram matrix of the centered, scaled design
 //! with the target column, over row blocks in parallel (the work every
@@ -259,12 +263,14 @@ struct Options {
     baselines: bool,
     json: bool,
     col_major: bool,
+    backend: leastline::Backend,
 }
 
 fn usage() -> ! {
     eprintln!(
         "usage: bench [--rows N] [--cols P] [--solvers a,b,...] [--threads T] [--repeats R] \
-         [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json]\nsolvers: {}",
+         [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json] \
+         [--backend faer|lapack]\nsolvers: {}",
         SOLVERS
             .iter()
             .map(|s| s.0)
@@ -291,6 +297,7 @@ fn parse() -> Options {
         baselines: true,
         json: false,
         col_major: false,
+        backend: leastline::backend(),
     };
     let mut args = std::env::args().skip(1);
     while let Some(a) = args.next() {
@@ -311,6 +318,13 @@ fn parse() -> Options {
             "--no-baselines" => o.baselines = false,
             "--json" => o.json = true,
             "--col-major" => o.col_major = true,
+            "--backend" => {
+                o.backend = match value().as_str() {
+                    "faer" => leastline::Backend::Faer,
+                    "lapack" => leastline::Backend::Lapack,
+                    _ => usage(),
+                }
+            }
             _ => usage(),
         }
     }
@@ -539,6 +553,7 @@ fn run(o: &Options) {
                 "cols": p,
                 "intercept": o.intercept,
                 "threads": threads,
+                "backend": o.backend.name(),
                 "seconds": row.t.seconds,
                 "min_seconds": row.t.min,
                 "cpu_seconds": row.t.cpu,
@@ -563,8 +578,9 @@ fn run(o: &Options) {
         return;
     }
     println!(
-        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, median of {r} runs",
-        o.intercept
+        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, backend {}, median of {r} runs",
+        o.intercept,
+        o.backend.name()
     );
     println!(
         "{:<15} {:<8} {:>9} {:>9} {:>9} {:>15} {:>14} {:>10}",
@@ -592,6 +608,10 @@ fn run(o: &Options) {
 
 fn main() {
     let o = parse();
+    if let Err(e) = leastline::set_backend(o.backend) {
+        eprintln!("--backend {}: {e}", o.backend.name());
+        std::process::exit(2)
+    }
     match o.threads {
         Some(t) => match rayon::ThreadPoolBuilder::new().num_threads(t).build() {
             Ok(pool) => pool.install(|| run(&o)),
