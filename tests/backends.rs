@@ -14,6 +14,7 @@ mod common;
 
 use std::sync::Mutex;
 
+use common::nist::FLOORS;
 use common::{gen, nist};
 use leastline::ndarray::{Array1, Array2};
 use leastline::{set_backend, Backend, Cholesky, Problem, Qr, Solver, Svd};
@@ -42,22 +43,6 @@ fn fit_under(
     out.extend(fit.model.coefficients().iter());
     out
 }
-
-/// The NIST floors of tests/accuracy.rs (digits of the certified values
-/// that QR and SVD keep on each dataset).
-const FLOORS: [(&str, f64); 11] = [
-    ("Norris", 12.0),
-    ("Pontius", 12.0),
-    ("NoInt1", 14.0),
-    ("NoInt2", 14.0),
-    ("Filip", 7.0),
-    ("Longley", 10.0),
-    ("Wampler1", 9.0),
-    ("Wampler2", 13.0),
-    ("Wampler3", 9.0),
-    ("Wampler4", 7.0),
-    ("Wampler5", 5.0),
-];
 
 #[test]
 fn nist_floors_hold_under_both_backends_and_the_backends_agree() {
