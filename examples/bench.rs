@@ -13,7 +13,11 @@
 //! default 5; the median is reported), `--seed S`, `--no-intercept`,
 //! `--no-baselines` (skip the straightforward versions), `--col-major` (store
 //! the design column by column instead of row by row), `--json` (one JSON
-//! object per line instead of the table).
+//! object per line instead of the table), `--backend faer|lapack` (the
+//! library of the `p x p` and stacked factorisations, see
+//! `leastline::set_backend`; `lapack` needs the cargo feature
+//! `lapack-openblas-system` or `lapack-openblas-static`; default: the
+//! build's default, LAPACK when compiled in).
 //!
 //! Floors: `gram` is the symmetric Gram matrix of the centered, scaled design
 //! with the target column, over row blocks in parallel (the work every
@@ -314,13 +318,14 @@ struct Options {
     blocks: usize,
     reference: bool,
     stream_mib: usize,
+    backend: leastline::Backend,
 }
 
 fn usage() -> ! {
     eprintln!(
         "usage: bench [--rows N] [--cols P] [--solvers a,b,...] [--threads T] [--repeats R] \
          [--seed S] [--no-intercept] [--no-baselines] [--col-major] [--json] \
-         [--targets K] [--blocks B] [--reference] [--stream-mib M]\nsolvers: {}",
+         [--targets K] [--blocks B] [--reference] [--stream-mib M] [--backend faer|lapack]\nsolvers: {}",
         SOLVERS
             .iter()
             .map(|s| s.0)
@@ -353,6 +358,7 @@ fn parse() -> Options {
         blocks: 64,
         reference: false,
         stream_mib: 1024,
+        backend: leastline::backend(),
     };
     let mut args = std::env::args().skip(1);
     while let Some(a) = args.next() {
@@ -377,6 +383,13 @@ fn parse() -> Options {
             "--blocks" => o.blocks = number(value()).max(1),
             "--reference" => o.reference = true,
             "--stream-mib" => o.stream_mib = number(value()).max(1),
+            "--backend" => {
+                o.backend = match value().as_str() {
+                    "faer" => leastline::Backend::Faer,
+                    "lapack" => leastline::Backend::Lapack,
+                    _ => usage(),
+                }
+            }
             _ => usage(),
         }
     }
@@ -628,6 +641,7 @@ fn run(o: &Options) {
                 "cols": p,
                 "intercept": o.intercept,
                 "threads": threads,
+                "backend": o.backend.name(),
                 "seconds": row.t.seconds,
                 "min_seconds": row.t.min,
                 "cpu_seconds": row.t.cpu,
@@ -660,8 +674,9 @@ fn run(o: &Options) {
         return;
     }
     println!(
-        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, median of {r} runs",
-        o.intercept
+        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, backend {}, median of {r} runs",
+        o.intercept,
+        o.backend.name()
     );
     limits.print(&load_before, &load_after);
     println!(
@@ -1077,6 +1092,10 @@ fn reference_row(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<R
 
 fn main() {
     let o = parse();
+    if let Err(e) = leastline::set_backend(o.backend) {
+        eprintln!("--backend {}: {e}", o.backend.name());
+        std::process::exit(2)
+    }
     match o.threads {
         Some(t) => match rayon::ThreadPoolBuilder::new().num_threads(t).build() {
             Ok(pool) => pool.install(|| run(&o)),

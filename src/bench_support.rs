@@ -125,3 +125,102 @@ pub fn stream_sum(buf: &[f64]) -> f64 {
         })
         .sum()
 }
+
+/// Seconds per call of each routine behind the backend seam on one `p x p`
+/// problem under `backend` (every routine forced to that backend, whatever
+/// the per-routine choice), best of `reps` calls: `(routine, seconds)` for
+/// the triangle merge, Cholesky, SVD with and without vectors, symmetric
+/// eigen, triangular inverse and triangular solve. The matrices are fixed
+/// by `p` (a seeded random triangle and its Gram matrix), so both backends
+/// factor the same ones.
+///
+/// # Errors
+/// [`crate::Error::BackendUnavailable`] for a backend this build lacks;
+/// [`crate::Error::NoConvergence`] from a factorisation.
+pub fn backend_kernels(
+    backend: crate::Backend,
+    p: usize,
+    reps: usize,
+) -> crate::Result<Vec<(&'static str, f64)>> {
+    use crate::linalg::{backend as seam, cholesky, dense, svd, triangular};
+    use faer::Mat;
+    use rand::{RngExt, SeedableRng};
+    let before = crate::backend();
+    crate::set_backend(backend)?;
+    seam::route_every_routine(true);
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(p as u64);
+    let tri = |rng: &mut rand_chacha::ChaCha8Rng| {
+        Mat::<f64>::from_fn(p, p, |i, j| {
+            if i == j {
+                1.0 + rng.random_range(0.0..1.0)
+            } else if i < j {
+                rng.random_range(-1.0..1.0) / (p as f64).sqrt()
+            } else {
+                0.0
+            }
+        })
+    };
+    let (a, b) = (tri(&mut rng), tri(&mut rng));
+    let gram = crate::linalg::dense::product(a.transpose(), a.as_ref());
+    let time = |f: &mut dyn FnMut() -> crate::Result<()>| -> crate::Result<f64> {
+        let mut best = f64::INFINITY;
+        for _ in 0..reps.max(1) {
+            let t = std::time::Instant::now();
+            f()?;
+            best = best.min(t.elapsed().as_secs_f64());
+        }
+        Ok(best)
+    };
+    let run = || -> crate::Result<Vec<(&'static str, f64)>> {
+        let mut out = Vec::new();
+        out.push((
+            "merge of two triangles",
+            time(&mut || {
+                let mut m = a.clone();
+                seam::merge_triangles(&mut m, b.as_ref());
+                Ok(())
+            })?,
+        ));
+        out.push((
+            "Cholesky",
+            time(&mut || {
+                let mut l = gram.clone();
+                cholesky::factor_in_place(l.as_mut()).map_err(|_| crate::Error::NoConvergence {
+                    what: "Cholesky factorisation",
+                })
+            })?,
+        ));
+        out.push((
+            "SVD with vectors",
+            time(&mut || svd::thin_svd(a.as_ref()).map(|_| ()))?,
+        ));
+        out.push((
+            "singular values",
+            time(&mut || svd::singular_values(a.as_ref()).map(|_| ()))?,
+        ));
+        out.push((
+            "symmetric eigen",
+            time(&mut || dense::symmetric_eigen(gram.as_ref()).map(|_| ()))?,
+        ));
+        out.push((
+            "triangular inverse",
+            time(&mut || {
+                triangular::inverse_upper(a.as_ref());
+                Ok(())
+            })?,
+        ));
+        out.push((
+            "triangular solve",
+            time(&mut || {
+                let mut v = vec![1.0; p];
+                triangular::solve_upper(a.as_ref(), &mut v);
+                Ok(())
+            })?,
+        ));
+        Ok(out)
+    };
+    let out = run();
+    seam::route_every_routine(false);
+    crate::set_backend(before)?;
+    out
+}

@@ -186,6 +186,13 @@ pub enum Error {
         /// What the allowed range is.
         reason: &'static str,
     },
+    /// A linear-algebra backend was asked for that this build does not
+    /// contain (see [`crate::set_backend`]).
+    #[error("the {backend} backend is not compiled into this build: enable the cargo feature lapack-openblas-system or lapack-openblas-static")]
+    BackendUnavailable {
+        /// The backend's name (`"lapack"`).
+        backend: &'static str,
+    },
     /// A dense factorisation failed to converge (SVD iterations).
     #[error("the {what} did not converge")]
     NoConvergence {

@@ -292,6 +292,8 @@ mod vocabulary;
 /// against (`use leastline::ndarray::array;`).
 pub use ndarray;
 
+pub use linalg::backend::{backend, set_backend, Backend};
+
 pub use error::{Error, Input, Result};
 pub use gradient::{Accelerated, GradientDescent, Stochastic};
 pub use inference::{

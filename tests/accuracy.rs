@@ -69,19 +69,7 @@ fn certified_digits(solver: &dyn Solver, name: &str) -> f64 {
 /// change of rounding order in the QR can move it, and the refined QR path,
 /// which removes the solver's own error, reaches exactly the 13.2 the data
 /// allow (`refinement_reaches_13_digits_except_where_the_data_forbid`).
-const FLOORS: [(&str, f64); 11] = [
-    ("Norris", 12.0),
-    ("Pontius", 12.0),
-    ("NoInt1", 14.0),
-    ("NoInt2", 14.0),
-    ("Filip", 7.0),
-    ("Longley", 10.0),
-    ("Wampler1", 9.0),
-    ("Wampler2", 13.0),
-    ("Wampler3", 9.0),
-    ("Wampler4", 7.0),
-    ("Wampler5", 5.0),
-];
+use common::nist::FLOORS;
 
 #[test]
 fn floors_cover_all_eleven_datasets() {

@@ -27,6 +27,10 @@ pub(crate) fn factor(a: MatRef<'_, f64>) -> Factor {
 /// Factors `a` in place (no copy): its lower triangle becomes `L`, its
 /// upper part is zeroed. `Err(pivot)` at a non-positive pivot.
 pub(crate) fn factor_in_place(mut l: faer::MatMut<'_, f64>) -> Result<(), usize> {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::Cholesky) {
+        return super::backend::lapack::cholesky_in_place(l);
+    }
     let n = l.nrows();
     let req = cholesky_in_place_scratch::<f64>(n, Par::Seq, Default::default());
     let mut mem = MemBuffer::new(req);

@@ -48,6 +48,11 @@ pub(crate) struct SymmetricEigen {
 /// # Errors
 /// [`Error::NoConvergence`] if the iteration fails.
 pub(crate) fn symmetric_eigen(a: MatRef<'_, f64>) -> Result<SymmetricEigen> {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::SymmetricEigen) {
+        let (values, vectors) = super::backend::lapack::symmetric_eigen(a)?;
+        return Ok(SymmetricEigen { values, vectors });
+    }
     let n = a.nrows();
     let mut s = faer::diag::Diag::<f64>::zeros(n);
     let mut u = Mat::<f64>::zeros(n, n);

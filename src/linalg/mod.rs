@@ -18,6 +18,7 @@
 //! - the fixed row-block partition ([`block_groups`], [`block_rows`]) and
 //!   the fixed fold tree ([`tree_reduce`]) every pass uses.
 
+pub(crate) mod backend;
 pub(crate) mod cholesky;
 pub(crate) mod dense;
 pub(crate) mod extended;

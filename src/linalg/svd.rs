@@ -41,6 +41,10 @@ fn run(
     a: MatRef<'_, f64>,
     vectors: Option<(MatMut<'_, f64>, MatMut<'_, f64>)>,
 ) -> Result<Vec<f64>> {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::Svd) {
+        return super::backend::lapack::svd(a, vectors);
+    }
     let (m, n) = (a.nrows(), a.ncols());
     let r = m.min(n);
     let mut s = faer::diag::Diag::<f64>::zeros(r);

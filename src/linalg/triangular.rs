@@ -8,6 +8,12 @@ use faer::{Mat, MatRef, Par};
 
 /// Solves `R x = b` in place for upper-triangular `R`.
 pub(crate) fn solve_upper(r: MatRef<'_, f64>, b: &mut [f64]) {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::TriangularSolve)
+        && super::backend::lapack::solve_triangular(r, b, true)
+    {
+        return;
+    }
     let n = b.len();
     let mut rhs = Mat::<f64>::from_fn(n, 1, |i, _| b[i]);
     solve_upper_triangular_in_place(r, rhs.as_mut(), Par::Seq);
@@ -18,6 +24,12 @@ pub(crate) fn solve_upper(r: MatRef<'_, f64>, b: &mut [f64]) {
 
 /// Solves `L x = b` in place for lower-triangular `L`.
 pub(crate) fn solve_lower(l: MatRef<'_, f64>, b: &mut [f64]) {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::TriangularSolve)
+        && super::backend::lapack::solve_triangular(l, b, false)
+    {
+        return;
+    }
     let n = b.len();
     let mut rhs = Mat::<f64>::from_fn(n, 1, |i, _| b[i]);
     solve_lower_triangular_in_place(l, rhs.as_mut(), Par::Seq);
@@ -35,6 +47,10 @@ pub(crate) fn norm1(a: MatRef<'_, f64>) -> f64 {
 
 /// Writes the inverse of the upper-triangular `r` into `dst` (same size).
 pub(crate) fn inverse_upper_into(dst: faer::MatMut<'_, f64>, r: MatRef<'_, f64>) {
+    #[cfg(feature = "lapack")]
+    if super::backend::routes_to_lapack(super::backend::Routine::TriangularInverse) {
+        return super::backend::lapack::inverse_upper_into(dst, r);
+    }
     invert_upper_triangular(dst, r, Par::Seq);
 }
 
@@ -42,7 +58,7 @@ pub(crate) fn inverse_upper_into(dst: faer::MatMut<'_, f64>, r: MatRef<'_, f64>)
 pub(crate) fn inverse_upper(r: MatRef<'_, f64>) -> Mat<f64> {
     let n = r.nrows();
     let mut inv = Mat::<f64>::zeros(n, n);
-    invert_upper_triangular(inv.as_mut(), r, Par::Seq);
+    inverse_upper_into(inv.as_mut(), r);
     inv
 }
 

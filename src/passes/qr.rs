@@ -136,14 +136,7 @@ fn factor_r(
     };
     // Folding triangle `b` into `a`: the QR of `[a; b]`.
     let merge = |mut a: Mat<f64>, part: Mat<f64>| {
-        let mut buf = vec![0.0f64; k * ld];
-        for i in 0..k {
-            for j in i..k {
-                buf[i * ld + j] = part[(i, j)];
-            }
-        }
-        let mut work = StackedQrWork::new(k);
-        stacked_qr(a.as_mut(), &mut buf, ld, k, &mut work);
+        crate::linalg::backend::merge_triangles(&mut a, part.as_ref());
         a
     };
     let r = tree_reduce(&groups, &leaf, &merge).unwrap_or_else(|| Mat::zeros(k, k));

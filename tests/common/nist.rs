@@ -318,3 +318,22 @@ pub fn parse(text: &str, path: &str) -> Dataset {
         certified,
     }
 }
+
+/// Digits of the certified coefficients that plain double-precision QR and
+/// SVD keep on each NIST StRD linear dataset: the floors of
+/// tests/accuracy.rs (see the note there on Wampler2), shared with
+/// tests/backends.rs.
+#[allow(dead_code)]
+pub const FLOORS: [(&str, f64); 11] = [
+    ("Norris", 12.0),
+    ("Pontius", 12.0),
+    ("NoInt1", 14.0),
+    ("NoInt2", 14.0),
+    ("Filip", 7.0),
+    ("Longley", 10.0),
+    ("Wampler1", 9.0),
+    ("Wampler2", 13.0),
+    ("Wampler3", 9.0),
+    ("Wampler4", 7.0),
+    ("Wampler5", 5.0),
+];
