@@ -65,7 +65,7 @@ fn args() -> Result<Args> {
 }
 
 /// Deterministic values (SplitMix64), so runs read the same table.
-fn fill(seed: u64, n: usize, out: &mut Vec<Vec<f64>>) {
+fn fill(seed: u64, n: usize, out: &mut [Vec<f64>]) {
     let mut s = seed;
     let mut next = || {
         s = s.wrapping_add(0x9E37_79B9_7F4A_7C15);

@@ -45,7 +45,7 @@ pub(crate) enum Summary {
     /// No row seen yet.
     #[default]
     Empty,
-    Open(State),
+    Open(Box<State>),
     Refused(String),
 }
 
@@ -232,7 +232,7 @@ impl Summary {
     ) {
         if let Summary::Empty = self {
             *self = match State::new(shape) {
-                Ok(s) => Summary::Open(s),
+                Ok(s) => Summary::Open(Box::new(s)),
                 Err(e) => Summary::Refused(e.to_string()),
             };
         }
@@ -326,7 +326,7 @@ impl Summary {
                     StateKind::CrossProduct => CrossProductState::try_from(data).map(State::Cross),
                 }
                 .map_err(|e| bad(e.to_string()))?;
-                Ok(Summary::Open(state))
+                Ok(Summary::Open(Box::new(state)))
             }
             ROWS => {
                 let p = shape.columns.len();
@@ -374,7 +374,7 @@ impl Summary {
                     ..Outcome::default()
                 }
             }
-            Summary::Open(s) => s,
+            Summary::Open(s) => s.as_ref(),
         };
         let rows_used = state.usable_rows() as u64;
         let fits = match (state, shape.options.ridge) {

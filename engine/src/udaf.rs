@@ -185,7 +185,7 @@ impl AggregateUDFImpl for LeastSquares {
     }
 }
 
-fn float_column<'a>(values: &'a [ArrayRef], i: usize) -> Result<&'a Float64Array> {
+fn float_column(values: &[ArrayRef], i: usize) -> Result<&Float64Array> {
     values
         .get(i)
         .and_then(|a| a.as_any().downcast_ref::<Float64Array>())

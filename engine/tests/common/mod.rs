@@ -19,6 +19,7 @@ use datafusion::parquet::file::properties::WriterProperties;
 use datafusion::prelude::*;
 use leastline::ndarray::{Array1, Array2};
 use leastline::{Fit, Problem, Qr, Solver};
+use leastline_engine::Outcome;
 
 /// Columns of the generated table besides the group.
 pub const COLUMNS: [&str; 3] = ["light", "humidity", "vent"];
@@ -212,19 +213,27 @@ pub async fn register_csv(ctx: &SessionContext, dir: &Path) {
         .unwrap();
 }
 
-/// One group's result, read back from the struct.
+/// One group's result, read back from the struct: the column names, whether
+/// the standard errors are null, and the rest as the crate's [`Outcome`]
+/// (reached through `Deref`).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Got {
     pub columns: Vec<String>,
-    pub coefficients: Option<Vec<f64>>,
-    pub intercept: Option<f64>,
     pub std_errors_null: bool,
-    pub residual_ss: Option<f64>,
-    pub rows_used: u64,
-    pub rank: Option<u64>,
-    pub condition: Option<f64>,
-    pub r_squared: Option<f64>,
-    pub refusal: Option<String>,
+    pub outcome: Outcome,
+}
+
+impl std::ops::Deref for Got {
+    type Target = Outcome;
+    fn deref(&self) -> &Outcome {
+        &self.outcome
+    }
+}
+
+impl std::ops::DerefMut for Got {
+    fn deref_mut(&mut self) -> &mut Outcome {
+        &mut self.outcome
+    }
 }
 
 fn opt_f64(s: &StructArray, name: &str, i: usize) -> Option<f64> {
@@ -269,15 +278,17 @@ pub fn read(batches: &[RecordBatch]) -> BTreeMap<String, Got> {
                 groups.value(i).to_string(),
                 Got {
                     columns,
-                    coefficients,
-                    intercept: opt_f64(s, "intercept", i),
                     std_errors_null: list("std_errors").is_none(),
-                    residual_ss: opt_f64(s, "residual_ss", i),
-                    rows_used: rows.value(i),
-                    rank: rank.is_valid(i).then(|| rank.value(i)),
-                    condition: opt_f64(s, "condition", i),
-                    r_squared: opt_f64(s, "r_squared", i),
-                    refusal: refusal.is_valid(i).then(|| refusal.value(i).to_string()),
+                    outcome: Outcome {
+                        coefficients,
+                        intercept: opt_f64(s, "intercept", i),
+                        residual_ss: opt_f64(s, "residual_ss", i),
+                        rows_used: rows.value(i),
+                        rank: rank.is_valid(i).then(|| rank.value(i)),
+                        condition: opt_f64(s, "condition", i),
+                        r_squared: opt_f64(s, "r_squared", i),
+                        refusal: refusal.is_valid(i).then(|| refusal.value(i).to_string()),
+                    },
                 },
             );
         }
