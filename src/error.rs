@@ -293,7 +293,7 @@ pub enum Error {
     #[error("the {criterion} criterion needs every row's leverage, and a fit state does not keep the rows: score with generalized cross-validation, or fit the rows in memory")]
     CriterionNeedsRows {
         /// The criterion refused.
-        criterion: crate::ridge::Criterion,
+        criterion: crate::vocabulary::Criterion,
     },
     /// A saved form (feature `serde`) with another format tag or version
     /// than this version of the crate reads.

@@ -24,9 +24,10 @@
 //! cannot be fitted does not fail the query: its `refusal` says why (a
 //! rank-deficient design, naming the dependent columns; a NaN or infinity,
 //! naming its column; no complete row) and the fit's fields are null.
-//! `std_errors` is null for now: the core crate has no inference from a
-//! fit state yet, and a fit's report alone (residual standard error, no
-//! factor of the design) does not determine them.
+//! `std_errors` are the classical standard errors from the merged state's
+//! own inference (`TriangleState::inference`, `CrossProductState::inference`);
+//! null for a ridge fit (a biased estimator) and where the state refuses
+//! inference (no residual degrees of freedom).
 //!
 //! **State**: each partial aggregate is the serialised mergeable state of
 //! the core crate ([`leastline::StateData`] as JSON in a `Binary` value),

@@ -70,8 +70,7 @@ pub(crate) fn build(outcomes: &[Outcome], columns: &[String]) -> StructArray {
         names.append_value(columns.iter().map(|c| Some(c.as_str())));
         coefficients.append_option(o.coefficients.as_ref().map(|c| c.iter().map(|&v| Some(v))));
         intercept.append_option(o.intercept);
-        // The core has no inference from a state yet: see the crate docs.
-        std_errors.append_null();
+        std_errors.append_option(o.std_errors.as_ref().map(|v| v.iter().map(|&e| Some(e))));
         rss.append_option(o.residual_ss);
         rows.append_value(o.rows_used);
         rank.append_option(o.rank);

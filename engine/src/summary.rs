@@ -12,6 +12,7 @@
 
 use datafusion::arrow::array::{Array, Float64Array};
 use datafusion::common::{DataFusionError, Result};
+use leastline::inference::InferenceOptions;
 use leastline::ndarray::{Array1, Array2, ShapeBuilder};
 use leastline::{CrossProductState, Error, FitState, Input, StateData, TriangleState};
 
@@ -56,6 +57,11 @@ pub struct Outcome {
     pub coefficients: Option<Vec<f64>>,
     /// The intercept (`None` without one or when refused).
     pub intercept: Option<f64>,
+    /// Classical standard errors of the coefficients, in their order, from
+    /// the state's own inference (`None` for a ridge fit, whose estimator is
+    /// biased, and where the state refuses inference, e.g. with no residual
+    /// degrees of freedom).
+    pub std_errors: Option<Vec<f64>>,
     /// Weighted residual sum of squares.
     pub residual_ss: Option<f64>,
     /// Rows with a non-zero weight that entered the fit.
@@ -404,9 +410,17 @@ impl Summary {
                 };
             }
         };
+        let inference = match (state, shape.options.ridge) {
+            (_, Some(_)) => None,
+            (State::Triangle(s), None) => s.inference(0, InferenceOptions::new()).ok(),
+            (State::Cross(s), None) => s.inference(0, InferenceOptions::new()).ok(),
+        };
+        let std_errors =
+            inference.map(|inf| inf.coefficients.iter().map(|e| e.std_error).collect());
         let r = &fit.report;
         Outcome {
             coefficients: Some(fit.model.coefficients().to_vec()),
+            std_errors,
             intercept: shape.options.intercept.then(|| fit.model.intercept()),
             residual_ss: Some(r.residual_sum_of_squares),
             rows_used: r.usable_rows as u64,

@@ -20,7 +20,23 @@ fn check_groups(what: &str, rows: &[Row], got: &std::collections::BTreeMap<Strin
         let fit = reference(rows, g).unwrap();
         let r = &got[g];
         assert_eq!(r.columns, COLUMNS, "{what}");
-        assert!(r.std_errors_null, "{what}");
+        // Standard errors against the core's in-memory inference of the
+        // same rows (the classical covariance), to 12 digits.
+        let (x, y, _) = common::group_arrays(rows, g);
+        let problem = Problem::builder(x.view(), y.view())
+            .with_names(COLUMNS)
+            .build()
+            .unwrap();
+        let inference = leastline::Inference::new(&problem, &fit).unwrap();
+        let se = r.std_errors.as_ref().expect("standard errors");
+        assert_eq!(se.len(), inference.coefficients.len(), "{what}");
+        for (a, b) in se.iter().zip(&inference.coefficients) {
+            assert!(
+                digits(*a, b.std_error) >= 12.0,
+                "{what} {g}: se {a} vs {}",
+                b.std_error
+            );
+        }
         assert_agrees(&format!("{what} {g}"), r, &fit, 13.0);
     }
     // The rank-deficient group is refused as a value, with its rank, the

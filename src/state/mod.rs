@@ -89,17 +89,17 @@
 
 mod cross;
 mod inference;
+mod many;
 mod ridge;
 mod second_pass;
-mod many;
 mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
 
 pub use cross::CrossProductState;
+pub use many::{absorb_rows, ManyTargets, ManyTargetsBuilder, SharedSolver, ABSORB_BLOCK_ROWS};
 pub use ridge::StateRidgePath;
 pub use second_pass::{BlockDiagnostics, SecondPass};
-pub use many::{absorb_rows, ManyTargets, ManyTargetsBuilder, SharedSolver, ABSORB_BLOCK_ROWS};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};

@@ -213,13 +213,11 @@ pub async fn register_csv(ctx: &SessionContext, dir: &Path) {
         .unwrap();
 }
 
-/// One group's result, read back from the struct: the column names, whether
-/// the standard errors are null, and the rest as the crate's [`Outcome`]
+/// One group's result, read back from the struct: the column names and the rest as the crate's [`Outcome`]
 /// (reached through `Deref`).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Got {
     pub columns: Vec<String>,
-    pub std_errors_null: bool,
     pub outcome: Outcome,
 }
 
@@ -278,9 +276,10 @@ pub fn read(batches: &[RecordBatch]) -> BTreeMap<String, Got> {
                 groups.value(i).to_string(),
                 Got {
                     columns,
-                    std_errors_null: list("std_errors").is_none(),
                     outcome: Outcome {
                         coefficients,
+                        std_errors: list("std_errors")
+                            .map(|a| a.as_primitive::<Float64Type>().values().to_vec()),
                         intercept: opt_f64(s, "intercept", i),
                         residual_ss: opt_f64(s, "residual_ss", i),
                         rows_used: rows.value(i),
