@@ -25,7 +25,7 @@ pub enum Stage {
     /// leave-one-out errors of [`crate::RidgePath::curve_observed`].
     Residuals,
     /// A pass of an iterative-refinement step ([`crate::Qr::refined`]);
-    /// [`Progress::iteration`] is the step.
+    /// [`Progress::iteration`](crate::Progress::iteration) is the step.
     Refinement,
     /// The gradient solvers' setup: column norms, the loss at the start
     /// and the step-size estimate.

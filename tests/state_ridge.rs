@@ -128,6 +128,8 @@ fn state_path_equals_the_in_memory_path() {
                         assert_eq!(got.best_index, want.best_index, "{what}");
                         assert_eq!(got.best_penalty, want.best_penalty, "{what}");
                         assert!(got.loo.is_none());
+                        #[allow(clippy::needless_range_loop)]
+                        // five parallel vectors indexed together
                         for i in 0..grid.len() {
                             let d = [
                                 digits(got.gcv[i], want.gcv[i]),

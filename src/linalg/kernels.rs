@@ -1,7 +1,7 @@
 //! Hot loops over the design, vectorised with instructions chosen at run
 //! time.
 //!
-//! Each kernel is plain Rust over slices, run inside [`dispatch`], which
+//! Each kernel is plain Rust over slices, run inside `dispatch`, which
 //! compiles it once per instruction set (AVX-512 where the processor has
 //! it, else AVX2 + FMA, else the x86-64 baseline) and picks the best at run
 //! time, so a default release build is fast without `target-cpu=native`.
@@ -68,7 +68,7 @@ impl Level {
 /// The level pinned by [`force_level`] (0: none, the best is used).
 static FORCED: AtomicU8 = AtomicU8::new(0);
 
-/// Pins every later [`dispatch`] (in every thread) to `level`, or back to
+/// Pins every later `dispatch` (in every thread) to `level`, or back to
 /// the best available with `None`. Returns `false`, and changes nothing,
 /// when the processor cannot run `level`.
 pub fn force_level(level: Option<Level>) -> bool {
@@ -85,7 +85,7 @@ pub fn force_level(level: Option<Level>) -> bool {
     }
 }
 
-/// The level [`dispatch`] runs at now.
+/// The level `dispatch` runs at now.
 pub fn current_level() -> Level {
     match FORCED.load(Ordering::Relaxed) {
         1 => Level::Scalar,
@@ -115,7 +115,7 @@ fn arch_for(level: Level) -> Option<pulp::Arch> {
     }
 }
 
-/// The token [`dispatch`] uses: the pinned level if any, else the best.
+/// The token `dispatch` uses: the pinned level if any, else the best.
 #[inline(always)]
 fn arch() -> pulp::Arch {
     match FORCED.load(Ordering::Relaxed) {
@@ -146,7 +146,7 @@ const FMA_CHAINS: usize = 12;
 
 /// A register-resident loop of fused multiply-adds at `level` (the
 /// baseline level, which has no fused unit, does a multiply and an add):
-/// `iterations` rounds over [`FMA_CHAINS`] independent vector chains.
+/// `iterations` rounds over `FMA_CHAINS` independent vector chains.
 /// Returns the floating-point operations done (two per lane and chain and
 /// round) and a checksum that depends on every round; `None` when the
 /// processor cannot run `level`. The peak-rate probe of the benchmarks.

@@ -83,7 +83,7 @@ fn as_refusal(e: Error) -> Error {
 
 impl TriangleState {
     /// Classical inference for target `target` (0-based) of the QR fit
-    /// [`TriangleState::finish`] gives: standard errors, t values,
+    /// [`TriangleState::finish`](crate::FitState::finish) gives: standard errors, t values,
     /// p-values and intervals of every coefficient and the intercept,
     /// sigma, R² and adjusted R², the overall F test, the log-likelihood
     /// (see [`crate::inference`] for the conventions). The covariance
@@ -160,7 +160,7 @@ impl TriangleState {
 
 impl CrossProductState {
     /// Classical inference for target `target` (0-based) of the Cholesky
-    /// fit [`CrossProductState::finish`] gives, as
+    /// fit [`CrossProductState::finish`](crate::FitState::finish) gives, as
     /// [`TriangleState::inference`]: `(R^T R)^-1` is formed through the
     /// Cholesky factor `R = L^T` of the design's cross products (the
     /// accuracy of the normal equations; refused, as the finish, when too
