@@ -136,25 +136,7 @@ impl<'a> ProblemBuilder<'a> {
     /// repeated name.
     pub fn build(self) -> Result<Problem<'a>> {
         let (n, p) = self.design.dim();
-        if self.target.len() != n {
-            return Err(Error::LengthMismatch {
-                input: Input::Target,
-                design_rows: n,
-                len: self.target.len(),
-            });
-        }
-        if let Some(w) = &self.weights {
-            if w.len() != n {
-                return Err(Error::LengthMismatch {
-                    input: Input::Weights,
-                    design_rows: n,
-                    len: w.len(),
-                });
-            }
-        }
-        if n == 0 {
-            return Err(Error::NoRows);
-        }
+        check_row_counts(n, self.target.len(), self.weights.as_ref().map(|w| w.len()))?;
         if p == 0 && !self.intercept {
             return Err(Error::NothingToFit);
         }
@@ -867,4 +849,37 @@ pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, inv_target_s
         total.merge(p);
     }
     total.value()
+}
+
+/// The shape checks every problem builder shares: the targets and the
+/// weights have one entry (or row) per design row, and there is a row.
+///
+/// # Errors
+/// [`Error::LengthMismatch`] naming the target or the weights;
+/// [`Error::NoRows`].
+pub(crate) fn check_row_counts(
+    n: usize,
+    target_rows: usize,
+    weight_len: Option<usize>,
+) -> Result<()> {
+    if target_rows != n {
+        return Err(Error::LengthMismatch {
+            input: Input::Target,
+            design_rows: n,
+            len: target_rows,
+        });
+    }
+    if let Some(len) = weight_len {
+        if len != n {
+            return Err(Error::LengthMismatch {
+                input: Input::Weights,
+                design_rows: n,
+                len,
+            });
+        }
+    }
+    if n == 0 {
+        return Err(Error::NoRows);
+    }
+    Ok(())
 }

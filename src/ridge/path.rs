@@ -100,6 +100,15 @@ pub(crate) struct Spectrum {
 }
 
 impl Spectrum {
+    /// The singular values in the penalty's units (`sqrt` of `sq`, mapped
+    /// back through `map`), one per direction examined.
+    pub(crate) fn caller_singular_values(&self, map: &PenaltyMap) -> Vec<f64> {
+        self.sq
+            .iter()
+            .map(|&s2| map.caller_singular_value(s2))
+            .collect()
+    }
+
     /// Residual sum of squares at the uniform penalty `mu`, in scaled units.
     pub fn rss(&self, mu: f64) -> f64 {
         let base = match &self.side {
@@ -282,11 +291,7 @@ impl<'p, 'a> RidgePath<'p, 'a> {
     /// per direction examined: `p` when rows >= columns, else the usable
     /// rows (less one with an intercept).
     pub fn singular_values(&self) -> Vec<f64> {
-        self.spectrum
-            .sq
-            .iter()
-            .map(|&s2| self.map.caller_singular_value(s2))
-            .collect()
+        self.spectrum.caller_singular_values(&self.map)
     }
 
     /// Numerical rank of the design (singular values treated as non-zero).

@@ -200,25 +200,11 @@ impl<'a> ManyTargetsBuilder<'a> {
     pub fn build(self) -> Result<ManyTargets<'a>> {
         let many = self.inner;
         let n = many.design.nrows();
-        if many.targets.nrows() != n {
-            return Err(Error::LengthMismatch {
-                input: Input::Target,
-                design_rows: n,
-                len: many.targets.nrows(),
-            });
-        }
-        if let Some(w) = &many.weights {
-            if w.len() != n {
-                return Err(Error::LengthMismatch {
-                    input: Input::Weights,
-                    design_rows: n,
-                    len: w.len(),
-                });
-            }
-        }
-        if n == 0 {
-            return Err(Error::NoRows);
-        }
+        crate::problem::check_row_counts(
+            n,
+            many.targets.nrows(),
+            many.weights.as_ref().map(|w| w.len()),
+        )?;
         if many.targets.ncols() == 0 {
             return Err(Error::InvalidParameter {
                 name: "targets",

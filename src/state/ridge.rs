@@ -141,11 +141,7 @@ impl StateRidgePath {
     /// penalty's units, non-increasing, as
     /// [`crate::ridge::RidgePath::singular_values`] (one per column).
     pub fn singular_values(&self) -> Vec<f64> {
-        self.spectrum
-            .sq
-            .iter()
-            .map(|&s2| self.map.caller_singular_value(s2))
-            .collect()
+        self.spectrum.caller_singular_values(&self.map)
     }
 
     /// Numerical rank of the design (singular values treated as non-zero).
