@@ -271,6 +271,7 @@ mod fmt;
 pub mod gradient;
 pub mod inference;
 mod linalg;
+mod many;
 pub mod model;
 pub mod observe;
 mod passes;
@@ -300,17 +301,18 @@ pub use inference::{
     Collinearity, CovarianceKind, Diagnostics, Estimate, GoodnessOfFit, Inference,
     InferenceOptions, InferenceRefusal, OverallTest, Predictions,
 };
+pub use many::{ManyTargets, ManyTargetsBuilder, SharedSolver};
 pub use model::LinearModel;
 pub use observe::{Control, Observer, Progress, Stage, Unobserved};
 pub use problem::{Problem, ProblemBuilder};
 pub use ridge::{
     Criterion, HeldOutError, PenaltyCurve, Ridge, RidgeFactorization, RidgePath, RowFolds,
+    StateRidgePath,
 };
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
 pub use state::{
-    BlockDiagnostics, CrossProductState, FitState, ManyTargets, ManyTargetsBuilder, SecondPass,
-    SharedSolver, StateLayout, StateRidgePath, TriangleState,
+    BlockDiagnostics, CrossProductState, FitState, SecondPass, StateLayout, TriangleState,
 };
 #[cfg(feature = "serde")]
 pub use state::{StateData, STATE_FORMAT, STATE_VERSION};

@@ -291,6 +291,130 @@ fn fill_block_rows(
     }
 }
 
+/// What the columns after the design hold in a filled block.
+#[derive(Clone, Copy)]
+pub(crate) enum Tail<'v> {
+    /// Nothing: the block is the design alone.
+    None,
+    /// The problem's target, centered, weighted and scaled.
+    Target,
+    /// `sqrt(w_i) v_i * inv_scale` from a caller's vector (one entry per
+    /// row of the problem).
+    Vector(&'v [f64], f64),
+    /// Several targets: `sqrt(w_i) (y_it - m_t) * inv_t` for each column
+    /// `t` of `ys` (one row per row of the problem).
+    Targets(TargetColumns<'v>),
+}
+
+impl Tail<'_> {
+    /// Columns the tail adds after the design.
+    pub fn width(&self) -> usize {
+        match self {
+            Tail::None => 0,
+            Tail::Target | Tail::Vector(..) => 1,
+            Tail::Targets(t) => t.ys.ncols(),
+        }
+    }
+}
+
+/// Targets filled after the design (see [`Tail::Targets`]): the values,
+/// their weighted means (0 without an intercept) and the inverses of their
+/// power-of-two scales.
+#[derive(Clone, Copy)]
+pub(crate) struct TargetColumns<'v> {
+    pub ys: ndarray::ArrayView2<'v, f64>,
+    pub means: &'v [f64],
+    pub inv: &'v [f64],
+}
+
+/// Writes rows `r0..r1` of the transformed design and its tail into `out`
+/// (`r1 - r0` rows, `p + tail.width()` columns, any layout). The target
+/// columns are formed as [`fill_block`] forms the problem's target, so that
+/// one target filled as [`Tail::Targets`] has the bits of [`Tail::Target`].
+pub(crate) fn fill_tail(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    r0: usize,
+    r1: usize,
+    tail: Tail<'_>,
+    mut out: MatMut<'_, f64>,
+) {
+    let p = problem.columns();
+    match tail {
+        Tail::None => fill_block(problem, scaling, r0, r1, false, out),
+        Tail::Target => fill_block(problem, scaling, r0, r1, true, out),
+        Tail::Vector(v, inv_scale) => {
+            fill_block(
+                problem,
+                scaling,
+                r0,
+                r1,
+                false,
+                out.rb_mut().subcols_mut(0, p),
+            );
+            for (local, i) in (r0..r1).enumerate() {
+                out[(local, p)] = problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
+            }
+        }
+        Tail::Targets(t) => {
+            fill_block(
+                problem,
+                scaling,
+                r0,
+                r1,
+                false,
+                out.rb_mut().subcols_mut(0, p),
+            );
+            for (c, ((y, &m), &inv)) in
+                t.ys.columns()
+                    .into_iter()
+                    .zip(t.means)
+                    .zip(t.inv)
+                    .enumerate()
+            {
+                for (local, i) in (r0..r1).enumerate() {
+                    // Rows of weight zero stay exact zeros (see `fill_block`).
+                    let sw = problem.scaled_weight(i).sqrt();
+                    out[(local, p + c)] = if sw == 0.0 {
+                        0.0
+                    } else {
+                        sw * ((y[i] - m) * inv)
+                    };
+                }
+            }
+        }
+    }
+}
+
+/// Columns of the design that are numerically dependent on earlier ones,
+/// from a factor `r` with `r^T r = Z^T Z` (`p x p`): a column is dependent
+/// when its distance to the span of the earlier independent columns is at
+/// most `tolerance` times an upper bound of the raw column's weighted norm,
+/// or when it is numerically constant beside the intercept.
+pub(crate) fn dependent_columns(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    r: faer::MatRef<'_, f64>,
+    tolerance: f64,
+) -> Vec<usize> {
+    let p = r.ncols();
+    let threshold = |j: usize| {
+        if scaling.constant[j] {
+            f64::INFINITY
+        } else {
+            tolerance * scaling.raw_norm_bound(problem, j)
+        }
+    };
+    // Fast path: the diagonal of a triangle bounds each column's distance to
+    // the span of *all* earlier columns from below, so if every pivot is
+    // large no column is dependent.
+    let triangular = (0..p).all(|j| (0..j).all(|i| r[(j, i)] == 0.0));
+    if triangular && (0..p).all(|j| r[(j, j)].abs() > threshold(j)) {
+        return Vec::new();
+    }
+    crate::linalg::householder::dependent_columns(r, threshold)
+}
+
 /// Rows per tile of the transposing fill (a tile of a 100-column design is
 /// 25 KiB: it stays in the first-level cache).
 pub(crate) const TILE: usize = 32;

@@ -71,8 +71,19 @@ pub(crate) struct Stats {
     pub target_mean: f64,
     /// Largest |y_i - target_mean| over rows with non-zero weight.
     pub target_centered_max: f64,
-    /// Power of two dividing every weight internally (max weight scale).
+    /// Power of four dividing every weight internally: the one at or below
+    /// the largest weight (so that `sqrt(w)` is divided by an exact power
+    /// of two, as a fit state holds it).
     pub weight_scale: f64,
+    /// Largest weight (1 without weights).
+    pub largest_weight: f64,
+    /// Smallest and largest value of each column over rows with non-zero
+    /// weight.
+    pub lo: Vec<f64>,
+    pub hi: Vec<f64>,
+    /// Smallest and largest target value over rows with non-zero weight.
+    pub target_lo: f64,
+    pub target_hi: f64,
     /// Sum of weights divided by `weight_scale`.
     pub total_weight: f64,
     /// Rows with a non-zero weight.
@@ -143,16 +154,16 @@ impl<'a> ProblemBuilder<'a> {
         if let Some(names) = &self.names {
             crate::model::check_names(names, p)?;
         }
-        let weight_scale = match &self.weights {
+        let (weight_scale, largest_weight) = match &self.weights {
             Some(w) => check_weights(w)?,
-            None => 1.0,
+            None => (1.0, 1.0),
         };
         check_vector(&self.target, Input::Target)?;
         let stats = compute_stats(
             &self.design,
             &self.target,
             self.weights.as_ref(),
-            weight_scale,
+            (weight_scale, largest_weight),
             self.intercept,
         )
         .map_err(|e| e.name_columns(self.names.as_deref()))?;
@@ -307,7 +318,7 @@ pub(crate) use crate::scaled::pow2_scale;
 
 /// Checks the weights and returns the weight scale: the power of two at or
 /// below the largest weight.
-fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
+fn check_weights(w: &ArrayView1<'_, f64>) -> Result<(f64, f64)> {
     let mut max = 0.0_f64;
     for (row, &value) in w.iter().enumerate() {
         if !crate::error::finite_nonnegative(value) {
@@ -318,7 +329,9 @@ fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
     if max == 0.0 {
         return Err(Error::AllWeightsZero { rows: w.len() });
     }
-    let scale = pow2_scale(max);
+    // The power of four at or below the largest weight.
+    let e = crate::scaled::exponent(max);
+    let scale = crate::scaled::pow2(e - e.rem_euclid(2));
     // Every positive weight must keep a normal value once divided by the
     // scale, or its row would be dropped (or its weight rounded) silently.
     for (row, &value) in w.iter().enumerate() {
@@ -330,7 +343,7 @@ fn check_weights(w: &ArrayView1<'_, f64>) -> Result<f64> {
             });
         }
     }
-    Ok(scale)
+    Ok((scale, max))
 }
 
 fn check_vector(v: &ArrayView1<'_, f64>, input: Input) -> Result<()> {
@@ -556,7 +569,7 @@ fn compute_stats(
     x: &ArrayView2<'_, f64>,
     y: &ArrayView1<'_, f64>,
     w: Option<&ArrayView1<'_, f64>>,
-    weight_scale: f64,
+    (weight_scale, largest_weight): (f64, f64),
     intercept: bool,
 ) -> Result<Stats> {
     let (n, p) = x.dim();
@@ -731,6 +744,11 @@ fn compute_stats(
         target_mean,
         target_centered_max,
         weight_scale,
+        largest_weight,
+        lo: total.min.clone(),
+        hi: total.max.clone(),
+        target_lo: total.ymin,
+        target_hi: total.ymax,
         total_weight,
         usable_rows: total.usable,
         fingerprint: hash.finish(),

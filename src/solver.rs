@@ -397,7 +397,17 @@ pub(crate) fn rss_exponent(problem: &Problem<'_>, target_exp: i32) -> i32 {
 /// freedom: see [`FitReport::sigma`] and [`FitReport::r_squared`].
 pub(crate) fn spread_measures(
     problem: &Problem<'_>,
+    rss: (f64, i32),
+    residual_df: Option<usize>,
+) -> (Option<f64>, Option<f64>) {
+    spread_from(rss, problem.centered_target_squares(), residual_df)
+}
+
+/// [`spread_measures`] with the centered total sum of squares of the
+/// target given as `(tm, te)` (value `tm 2^te`, caller's units).
+fn spread_from(
     (m, e): (f64, i32),
+    (tm, te): (f64, i32),
     residual_df: Option<usize>,
 ) -> (Option<f64>, Option<f64>) {
     let sigma = residual_df.filter(|&df| df > 0).map(|df| {
@@ -416,7 +426,6 @@ pub(crate) fn spread_measures(
         ldexp(u.sqrt(), t / 2)
     });
     let sigma = sigma.filter(|s| s.is_finite());
-    let (tm, te) = problem.centered_target_squares();
     let r_squared = if tm > 0.0 && tm.is_finite() {
         if m == 0.0 {
             Some(1.0)
@@ -429,6 +438,107 @@ pub(crate) fn spread_measures(
         None
     };
     (sigma, r_squared)
+}
+
+/// What a finished [`Fit`] records of the rows it came from: an in-memory
+/// [`Problem`] or a fit state.
+pub(crate) struct Origin<'a> {
+    pub names: Option<&'a [String]>,
+    pub columns: usize,
+    pub usable_rows: usize,
+    pub intercept: bool,
+    /// The problem's fingerprint (0 for a fit state's fits).
+    pub fingerprint: u64,
+}
+
+impl<'a> Origin<'a> {
+    /// The origin of a fit of `problem`.
+    pub fn of(problem: &'a Problem<'_>) -> Self {
+        Origin {
+            names: problem.names(),
+            columns: problem.columns(),
+            usable_rows: problem.usable_rows(),
+            intercept: problem.has_intercept(),
+            fingerprint: problem.fingerprint(),
+        }
+    }
+}
+
+/// The numbers of a closed-form fit of one target, before they become a
+/// [`Fit`] (see [`assemble`]).
+pub(crate) struct Solved {
+    /// Slopes in the caller's units.
+    pub beta: Vec<f64>,
+    pub intercept: f64,
+    pub rank: Option<usize>,
+    pub condition: Option<f64>,
+    /// The weighted residual sum of squares as `(m, e)`, value `m 2^e` in
+    /// the caller's units (the scaled form keeps every digit of a value
+    /// that would be subnormal).
+    pub rss: (f64, i32),
+    /// The centered (or, without an intercept, raw) weighted total sum of
+    /// squares of the target, in the same form and units.
+    pub tss: (f64, i32),
+    pub penalty: f64,
+}
+
+/// The one way every closed-form fit, in memory or from a fit state,
+/// becomes a [`Fit`]: refuses non-finite numbers with
+/// [`Error::Overflow`], and derives the residual degrees of freedom, the
+/// residual standard error and R² from the scaled sums of squares.
+pub(crate) fn assemble(
+    origin: &Origin<'_>,
+    solver: &str,
+    factorization: &str,
+    solved: Solved,
+) -> Result<Fit> {
+    if solved.beta.iter().any(|b| !b.is_finite()) {
+        return Err(Error::Overflow {
+            what: "coefficient vector",
+        });
+    }
+    if !solved.intercept.is_finite() {
+        return Err(Error::Overflow { what: "intercept" });
+    }
+    let rss = ldexp(solved.rss.0, solved.rss.1);
+    if !rss.is_finite() {
+        return Err(Error::Overflow {
+            what: "residual sum of squares",
+        });
+    }
+    if solved.condition.is_some_and(|c| !c.is_finite()) {
+        return Err(Error::Overflow {
+            what: "condition estimate",
+        });
+    }
+    let residual_df = solved.rank.map(|rank| {
+        origin
+            .usable_rows
+            .saturating_sub(rank + usize::from(origin.intercept))
+    });
+    let (sigma, r_squared) = spread_from(solved.rss, solved.tss, residual_df);
+    Ok(Fit {
+        model: LinearModel::fitted(
+            origin.names,
+            ndarray::Array1::from(solved.beta),
+            solved.intercept,
+        ),
+        report: FitReport {
+            solver: solver.to_string(),
+            rank: solved.rank,
+            columns: origin.columns,
+            condition: solved.condition,
+            residual_sum_of_squares: rss,
+            residual_df,
+            sigma,
+            r_squared,
+            usable_rows: origin.usable_rows,
+            penalty: solved.penalty,
+            factorization: Some(factorization.to_string()),
+            iterations: None,
+            fingerprint: origin.fingerprint,
+        },
+    })
 }
 
 /// The weighted residual sum of squares in the caller's units from its
@@ -490,52 +600,27 @@ fn finish_parts(
             what: "coefficient vector",
         });
     }
-    let intercept = intercept_for(problem, &beta);
-    if !intercept.is_finite() {
-        return Err(Error::Overflow { what: "intercept" });
-    }
     if !rss.is_finite() {
         return Err(Error::Overflow {
             what: "residual sum of squares",
         });
     }
-    let condition = match condition {
-        Some(c) if !c.is_finite() => {
-            return Err(Error::Overflow {
-                what: "condition estimate",
-            })
-        }
-        other => other,
-    };
+    let intercept = intercept_for(problem, &beta);
     // "ridge-<factorisation>" names the ridge solver and its route.
     let (solver, factorization) = match solver.strip_prefix("ridge-") {
         Some(route) => ("ridge", route),
         None => (solver, solver.strip_suffix("-refined").unwrap_or(solver)),
     };
-    let residual_df = rank.map(|rank| {
-        problem
-            .usable_rows()
-            .saturating_sub(rank + usize::from(problem.has_intercept()))
-    });
-    let (sigma, r_squared) = spread_measures(problem, rss_parts, residual_df);
-    Ok(Fit {
-        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
-        report: FitReport {
-            solver: solver.to_string(),
-            rank,
-            columns: problem.columns(),
-            condition,
-            residual_sum_of_squares: rss,
-            residual_df,
-            sigma,
-            r_squared,
-            usable_rows: problem.usable_rows(),
-            penalty,
-            factorization: Some(factorization.to_string()),
-            iterations: None,
-            fingerprint: problem.fingerprint(),
-        },
-    })
+    let solved = Solved {
+        beta,
+        intercept,
+        rank,
+        condition,
+        rss: rss_parts,
+        tss: problem.centered_target_squares(),
+        penalty,
+    };
+    assemble(&Origin::of(problem), solver, factorization, solved)
 }
 
 /// The intercept `mean(y) - mean(x) . beta` (0 without an intercept).

@@ -2,7 +2,8 @@
 //! `linalg` see none of the problem-aware modules.
 //!
 //! Reads every `src/**/*.rs`, collects the `crate::<module>` paths its code
-//! names (comments and doc comments skipped; a root re-export such as
+//! names (comments, doc comments and the unit-test module at the end of a
+//! file skipped; a root re-export such as
 //! `crate::Qr` is traced to the module `lib.rs` takes it from), and looks for
 //! a cycle between top-level modules by depth-first search.
 
@@ -155,7 +156,11 @@ fn module_graph() -> Graph {
         if first == "lib" || first == "main" || !modules.contains(&first) {
             continue;
         }
-        let code = code_only(&fs::read_to_string(&file).expect("readable source"));
+        let source = fs::read_to_string(&file).expect("readable source");
+        // A unit-test module (the end of a file, by the crate's custom) may
+        // use any module: it is not part of the library's import graph.
+        let library = &source[..unit_tests_at(&source)];
+        let code = code_only(library);
         for name in crate_names(&code) {
             let target = if modules.contains(&name) {
                 Some(name)
@@ -170,6 +175,27 @@ fn module_graph() -> Graph {
         }
     }
     graph
+}
+
+/// Where a file's unit-test module begins (`#[cfg(test)]`, then any other
+/// attributes, then `mod tests`), or its length when it has none.
+fn unit_tests_at(source: &str) -> usize {
+    let mut from = 0;
+    while let Some(found) = source[from..].find("#[cfg(test)]") {
+        let at = from + found;
+        let mut rest = source[at + "#[cfg(test)]".len()..].trim_start();
+        while rest.starts_with("#[") {
+            match rest.find(']') {
+                Some(end) => rest = rest[end + 1..].trim_start(),
+                None => break,
+            }
+        }
+        if rest.starts_with("mod tests") {
+            return at;
+        }
+        from = at + 1;
+    }
+    source.len()
 }
 
 /// A cycle, as the list of modules along it, if the graph has one.
@@ -232,6 +258,15 @@ fn the_search_finds_a_planted_cycle_and_accepts_a_chain() {
     let cycle = find_cycle(&graph).expect("a -> b -> c -> a");
     assert_eq!(cycle.first(), cycle.last());
     assert_eq!(cycle.len(), 4, "{cycle:?}");
+}
+
+#[test]
+fn only_the_unit_test_module_is_left_out() {
+    let source = "use a;\n#[cfg(test)]\nfn helper() {}\n#[cfg(test)]\n#[allow(x)]\nmod tests {}";
+    let at = unit_tests_at(source);
+    assert!(source[..at].contains("fn helper"));
+    assert!(source[at..].starts_with("#[cfg(test)]\n#[allow(x)]\nmod tests"));
+    assert_eq!(unit_tests_at("use a;"), "use a;".len());
 }
 
 #[test]

@@ -629,7 +629,7 @@ impl Inference {
             )
         };
         let r = crate::linalg::as_faer(&basis_r.view());
-        let dependent = crate::solvers::dependent_columns(problem, &scaling, r, tolerance);
+        let dependent = crate::prep::dependent_columns(problem, &scaling, r, tolerance);
         if !dependent.is_empty() {
             return Err(refuse(InferenceRefusal::RankDeficient {
                 rank: p - dependent.len(),

@@ -30,6 +30,7 @@ pub enum Level {
     V4,
 }
 
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 impl Level {
     /// Every level, narrowest first.
     pub const ALL: [Level; 3] = [Level::Scalar, Level::V3, Level::V4];
@@ -71,6 +72,7 @@ static FORCED: AtomicU8 = AtomicU8::new(0);
 /// Pins every later `dispatch` (in every thread) to `level`, or back to
 /// the best available with `None`. Returns `false`, and changes nothing,
 /// when the processor cannot run `level`.
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 pub fn force_level(level: Option<Level>) -> bool {
     match level {
         None => {
@@ -142,6 +144,7 @@ pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
 /// Independent accumulator chains of [`fma_loop`]: enough to keep two
 /// fused multiply-add pipes of latency up to six busy, few enough to stay
 /// in the sixteen vector registers of AVX2.
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 const FMA_CHAINS: usize = 12;
 
 /// A register-resident loop of fused multiply-adds at `level` (the
@@ -150,6 +153,7 @@ const FMA_CHAINS: usize = 12;
 /// Returns the floating-point operations done (two per lane and chain and
 /// round) and a checksum that depends on every round; `None` when the
 /// processor cannot run `level`. The peak-rate probe of the benchmarks.
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 pub fn fma_loop(level: Level, iterations: usize) -> Option<(f64, f64)> {
     struct Op {
         iterations: usize,
@@ -334,6 +338,7 @@ pub(crate) fn reduce(a: [f64; LANES]) -> f64 {
 
 /// Adds `x` into eight lane accumulators.
 #[inline(always)]
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 pub(crate) fn accumulate(x: &[f64], acc: &mut [f64; LANES]) {
     let n = x.len();
     let whole = n - n % LANES;

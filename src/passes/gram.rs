@@ -7,7 +7,7 @@ use crate::error::Result;
 use crate::linalg::gram::lower_gram_add;
 use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce};
 use crate::observe::Watch;
-use crate::prep::{fill_block, Scaling};
+use crate::prep::{fill_tail, Scaling, Tail};
 use crate::problem::Problem;
 
 /// Returns the full symmetric `k x k` matrix `Z^T Z`, where `Z` is the
@@ -32,7 +32,23 @@ pub(crate) fn centered_gram(
     with_target: bool,
     watch: &Watch<'_>,
 ) -> Result<Mat<f64>> {
-    let k = problem.columns() + usize::from(with_target);
+    let tail = if with_target {
+        Tail::Target
+    } else {
+        Tail::None
+    };
+    centered_gram_with(problem, scaling, tail, watch)
+}
+
+/// As [`centered_gram`], with the columns after the design given by `tail`
+/// (several targets for a cross-product state).
+pub(crate) fn centered_gram_with(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    tail: Tail<'_>,
+    watch: &Watch<'_>,
+) -> Result<Mat<f64>> {
+    let k = problem.columns() + tail.width();
     let b = block_rows(k);
     let groups = block_groups(problem.rows(), b, accumulator_groups(problem.rows(), k));
     // A column-major design is read column by column into a `rows x k`
@@ -55,18 +71,11 @@ pub(crate) fn centered_gram(
             // `z` is the `len x k` block of Z, whatever its storage.
             let z = if by_columns {
                 let mut z = block.as_mut().subrows_mut(0, len);
-                fill_block(problem, scaling, r0, r1, with_target, z.rb_mut());
+                fill_tail(problem, scaling, r0, r1, tail, z.rb_mut());
                 z.into_const()
             } else {
                 let mut zt = block.as_mut().subcols_mut(0, len);
-                fill_block(
-                    problem,
-                    scaling,
-                    r0,
-                    r1,
-                    with_target,
-                    zt.rb_mut().transpose_mut(),
-                );
+                fill_tail(problem, scaling, r0, r1, tail, zt.rb_mut().transpose_mut());
                 zt.into_const().transpose()
             };
             lower_gram_add(acc.as_mut(), z);

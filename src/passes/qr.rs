@@ -3,7 +3,6 @@
 //! QR of [`crate::linalg::qr`], and the groups' triangles are folded in a
 //! fixed tree (the same for any thread count).
 
-use faer::reborrow::ReborrowMut;
 use faer::{Mat, MatMut};
 
 use crate::error::Result;
@@ -13,7 +12,7 @@ use crate::linalg::qr::{
 };
 use crate::linalg::{accumulator_groups, block_groups, tree_reduce};
 use crate::observe::Watch;
-use crate::prep::{fill_block, Scaling};
+use crate::prep::{fill_tail, Scaling, Tail};
 use crate::problem::Problem;
 
 /// Returns the upper-triangular `k x k` factor `R` with `Z = Q R`, where `Z`
@@ -31,74 +30,37 @@ pub(crate) fn tall_skinny_r(
     with_target: bool,
     watch: &Watch<'_>,
 ) -> Result<Mat<f64>> {
-    let last = if with_target {
-        LastColumn::Target
+    let tail = if with_target {
+        Tail::Target
     } else {
-        LastColumn::None
+        Tail::None
     };
-    factor_r(problem, scaling, last, watch)
+    factor_r(problem, scaling, tail, watch)
 }
 
-/// As [`tall_skinny_r`], with the last column `sqrt(w_i) v_i * inv_scale`
-/// built from a caller-supplied vector `v` (one entry per row) instead of
-/// the target: `R[..p, p]` is then `Q^T (W^(1/2) v) * inv_scale` for the
-/// same `Q` as the design's (the design columns are factored exactly as
-/// with the target, whatever the last column holds). Iterative refinement
-/// uses it to apply `Q^T` to a residual without storing `Q`.
+/// As [`tall_skinny_r`], with the columns after the design given by `tail`
+/// (see [`Tail`]): with [`Tail::Vector`] `R[..p, p]` is
+/// `Q^T (W^(1/2) v) * inv_scale` for the same `Q` as the design's (the
+/// design columns are factored exactly as with the target, whatever the
+/// tail holds), which iterative refinement uses to apply `Q^T` to a
+/// residual without storing `Q`; with [`Tail::Targets`] the trailing block
+/// of `R` serves every target (a fit state's triangle).
 pub(crate) fn tall_skinny_r_with(
     problem: &Problem<'_>,
     scaling: &Scaling,
-    v: &[f64],
-    inv_scale: f64,
+    tail: Tail<'_>,
     watch: &Watch<'_>,
 ) -> Result<Mat<f64>> {
-    factor_r(problem, scaling, LastColumn::Vector(v, inv_scale), watch)
-}
-
-/// What the column after the design holds.
-#[derive(Clone, Copy)]
-enum LastColumn<'v> {
-    None,
-    Target,
-    Vector(&'v [f64], f64),
-}
-
-/// Writes rows `r0..r1` of the transformed design and its last column.
-fn fill_with_last(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    r0: usize,
-    r1: usize,
-    last: LastColumn<'_>,
-    mut out: MatMut<'_, f64>,
-) {
-    match last {
-        LastColumn::None => fill_block(problem, scaling, r0, r1, false, out),
-        LastColumn::Target => fill_block(problem, scaling, r0, r1, true, out),
-        LastColumn::Vector(v, inv_scale) => {
-            let p = problem.columns();
-            fill_block(
-                problem,
-                scaling,
-                r0,
-                r1,
-                false,
-                out.rb_mut().subcols_mut(0, p),
-            );
-            for (local, i) in (r0..r1).enumerate() {
-                out[(local, p)] = problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
-            }
-        }
-    }
+    factor_r(problem, scaling, tail, watch)
 }
 
 fn factor_r(
     problem: &Problem<'_>,
     scaling: &Scaling,
-    last: LastColumn<'_>,
+    tail: Tail<'_>,
     watch: &Watch<'_>,
 ) -> Result<Mat<f64>> {
-    let k = problem.columns() + usize::from(!matches!(last, LastColumn::None));
+    let k = problem.columns() + tail.width();
     let ld = row_stride(k);
     let b = qr_block_rows(k);
     // Folding two triangles costs about as much as factoring `k` rows, so
@@ -123,11 +85,11 @@ fn factor_r(
                 let used = (k - 1) * b + len;
                 let out =
                     MatMut::from_column_major_slice_with_stride_mut(&mut buf[..used], len, k, b);
-                fill_with_last(problem, scaling, r0, r1, last, out);
+                fill_tail(problem, scaling, r0, r1, tail, out);
                 stacked_qr_by_columns(r.as_mut(), &mut buf, b, len, &mut work);
             } else {
                 let out = row_major_mut(&mut buf, len, k, ld);
-                fill_with_last(problem, scaling, r0, r1, last, out);
+                fill_tail(problem, scaling, r0, r1, tail, out);
                 stacked_qr(r.as_mut(), &mut buf, ld, len, &mut work);
             }
             watch.rows_done(len);

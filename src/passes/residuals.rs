@@ -143,6 +143,7 @@ fn chunk_rss(problem: &Problem<'_>, beta: &[f64], inv: f64, r0: usize, r1: usize
 
 /// Sum of every element of the design: one streaming read, parallel over
 /// fixed row chunks (the bandwidth floor of a pass over the design).
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 pub(crate) fn design_sum(problem: &Problem<'_>) -> f64 {
     let x = problem.design();
     let n = problem.rows();

@@ -100,11 +100,13 @@ mod folds;
 pub(crate) mod path;
 mod qr;
 pub(crate) mod selection;
+mod state_path;
 
 pub use crate::vocabulary::Criterion;
 pub use folds::{HeldOutError, RowFolds};
 pub use path::RidgePath;
 pub use selection::PenaltyCurve;
+pub use state_path::StateRidgePath;
 
 use crate::error::{Error, Result};
 use crate::observe::{Observer, Watch};

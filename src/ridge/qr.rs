@@ -40,7 +40,7 @@ pub(super) fn solve(
     let r11 = r.as_ref().submatrix(0, 0, p, p);
     // The design's condition from its own triangle (before the penalty).
     let design_condition = crate::linalg::svd::condition(r11, tolerance)?;
-    if !crate::solvers::dependent_columns(problem, scaling, r11, tolerance).is_empty() {
+    if !crate::prep::dependent_columns(problem, scaling, r11, tolerance).is_empty() {
         // Columns dependent to rounding: the triangle's smallest pivots are
         // rounding noise, which a small penalty would treat as information
         // (exactly duplicated columns would get unequal coefficients). Take

@@ -2,19 +2,16 @@ use faer::Mat;
 use ndarray::Array1;
 
 use crate::error::{Error, Result};
-use crate::linalg::triangular;
 use crate::model::LinearModel;
 use crate::observe::{Observer, Stage, Watch};
-use crate::passes::qr::tall_skinny_r;
 use crate::prep::Scaling;
 use crate::problem::Problem;
 use crate::scaled::ldexp;
 use crate::solver::{
-    caller_rss, check_tolerance, finish_closed_form, finish_with_rss, intercept_for, Fit,
-    IterationReport, Solver,
+    assemble, caller_rss, check_tolerance, finish_with_rss, Fit, IterationReport, Origin, Solver,
 };
+use crate::state::TriangleState;
 
-use super::dependent_columns;
 use super::refine::{refine, Refinement};
 
 /// Householder QR of the centered design: the default solver.
@@ -159,48 +156,26 @@ impl Solver for Qr {
         let p = problem.columns();
         let scaling = Scaling::new(problem, tolerance);
         watch.begin(Stage::Factor, problem.rows());
-        let r = tall_skinny_r(problem, &scaling, true, &watch)?;
-        let dependent = dependent_columns(
+        // The one path: the problem's rows reduced into a triangle state
+        // (in parallel), finished as a state finishes.
+        let state = TriangleState::of_problem(problem, &scaling, &watch)?;
+        let (frame, rf, condition) = state.factor(Some(tolerance))?;
+        let solved = state.solve(&frame, &rf, condition, 0);
+        let Some(settings) = &self.refinement else {
+            // The residual sum of squares is the triangle's: no pass over
+            // the rows.
+            return assemble(&Origin::of(problem), "qr", "qr", solved);
+        };
+        let r11: Mat<f64> = rf.as_ref().submatrix(0, 0, p, p).to_owned();
+        let refined = refine(
             problem,
             &scaling,
-            r.as_ref().submatrix(0, 0, p, p),
-            tolerance,
-        );
-        if !dependent.is_empty() {
-            let r11 = r.as_ref().submatrix(0, 0, p, p);
-            return Err(Error::RankDeficient {
-                rank: p - dependent.len(),
-                columns: p,
-                combinations: super::combinations(r11, &dependent, &scaling.constant),
-                dependent,
-                tolerance,
-                names: problem.names().map(<[String]>::to_vec),
-            });
-        }
-        let r11: Mat<f64> = r.as_ref().submatrix(0, 0, p, p).to_owned();
-        let mut gamma: Vec<f64> = (0..p).map(|j| r[(j, p)]).collect();
-        triangular::solve_upper(r11.as_ref(), &mut gamma);
-        let beta: Vec<f64> = gamma
-            .iter()
-            .enumerate()
-            .map(|(j, &g)| scaling.to_caller(j, g))
-            .collect();
-        let condition = crate::linalg::svd::condition(r11.as_ref(), 0.0)?;
-        let Some(settings) = &self.refinement else {
-            return finish_closed_form(
-                problem,
-                self.name(),
-                beta,
-                Some(p),
-                Some(condition),
-                scaling.target_scale,
-                0.0,
-                &watch,
-            );
-        };
-        let start = intercept_for(problem, &beta);
-        let refined = refine(
-            problem, &scaling, &r11, condition, settings, start, beta, &watch,
+            &r11,
+            condition,
+            settings,
+            solved.intercept,
+            solved.beta,
+            &watch,
         )?;
         if !refined.intercept.is_finite() {
             return Err(Error::Overflow { what: "intercept" });

@@ -10,7 +10,7 @@ use crate::passes::{
     extended::{self, Units},
     qr::tall_skinny_r_with,
 };
-use crate::prep::Scaling;
+use crate::prep::{Scaling, Tail};
 use crate::problem::Problem;
 use crate::scaled::{ldexp, pow2_scale};
 
@@ -270,7 +270,7 @@ pub(crate) fn refine(
             // d = R^-1 (Q^T h - R^-T g), Q^T h from a QR with h as last column.
             let fc: Vec<f64> = d.f.iter().map(|&fi| fi - c).collect();
             watch.begin_step(Stage::Refinement, Some(step), n);
-            let rf = tall_skinny_r_with(problem, scaling, &fc, 1.0 / t, watch)?;
+            let rf = tall_skinny_r_with(problem, scaling, Tail::Vector(&fc, 1.0 / t), watch)?;
             out.passes += 1;
             let r = rf.as_ref().submatrix(0, 0, p, p);
             let mut u = gcs;

@@ -1,7 +1,8 @@
 use faer::Mat;
 
 use crate::error::{Error, Result};
-use crate::linalg::{qr, svd::thin_svd};
+use crate::linalg::qr;
+use crate::linalg::svd::{common_units, project_off_null_space, thin_svd, truncated_solve};
 use crate::observe::{Observer, Stage, Watch};
 use crate::passes;
 use crate::prep::{fill_block, Scaling};
@@ -170,59 +171,6 @@ impl Solver for Svd {
             0.0,
             &watch,
         )
-    }
-}
-
-/// Makes `b` the minimum-norm member of `b + null space`, where the null
-/// space of the scaled problem is spanned by columns `rank..` of `v`; in
-/// the units of `b` a null vector `n` becomes `n_c 2^unit_c`.
-/// `gamma = V_r S_r^-1 U_r^T rhs` over the first `rank` singular triplets
-/// of `dec`: the minimum-norm solution in the scaled coordinates.
-pub(crate) fn truncated_solve(dec: &crate::linalg::svd::Svd, rank: usize, rhs: &[f64]) -> Vec<f64> {
-    let mut gamma = vec![0.0; dec.v.nrows()];
-    for i in 0..rank {
-        let coef: f64 = rhs
-            .iter()
-            .enumerate()
-            .map(|(k, r)| dec.u[(k, i)] * r)
-            .sum::<f64>()
-            / dec.s[i];
-        for (c, g) in gamma.iter_mut().enumerate() {
-            *g += dec.v[(c, i)] * coef;
-        }
-    }
-    gamma
-}
-
-/// From the column scale exponents `e_c` of the live columns: `e_max =
-/// max(-e_c)` and `unit_c = -e_c - e_max`, so that `gamma_c 2^unit_c` is a
-/// coefficient in the caller's units divided by the common power of two
-/// `2^(e_y + e_max)` (in range, and the same factor for every column, so a
-/// projection in these units is one in the caller's).
-pub(crate) fn common_units(scale_exps: &[i32]) -> (i32, Vec<i32>) {
-    let e_max = scale_exps.iter().map(|&e| -e).max().unwrap_or(0);
-    (e_max, scale_exps.iter().map(|&e| -e - e_max).collect())
-}
-
-pub(crate) fn project_off_null_space(b: &mut [f64], v: &Mat<f64>, rank: usize, unit: &[i32]) {
-    let q = b.len();
-    let k = v.ncols() - rank;
-    let mut a = Mat::<f64>::from_fn(q, k, |c, i| ldexp(v[(c, rank + i)], unit[c]));
-    // Column scaling does not change the range; it keeps the QR well scaled.
-    for i in 0..k {
-        let norm = (0..q).map(|c| a[(c, i)] * a[(c, i)]).sum::<f64>().sqrt();
-        if norm > 0.0 {
-            for c in 0..q {
-                a[(c, i)] /= norm;
-            }
-        }
-    }
-    let qm = qr::thin_q(a.as_ref());
-    for i in 0..qm.ncols() {
-        let dot: f64 = (0..q).map(|c| qm[(c, i)] * b[c]).sum();
-        for c in 0..q {
-            b[c] -= qm[(c, i)] * dot;
-        }
     }
 }
 

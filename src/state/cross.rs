@@ -1,17 +1,20 @@
 //! The cross-product state: the centered cross-product matrix of
 //! `[x, y]`, merged with the pooled-moment correction.
 
-use super::frame_r_squared;
-use faer::linalg::matmul::matmul;
-use faer::{Accum, Mat, Par};
+use faer::Mat;
 use ndarray::{ArrayView1, ArrayView2};
 
 use super::{check_tolerance, shift_columns, Combined, Core, FitState, StateLayout};
 use crate::error::{Error, Result};
-use crate::linalg::qr::row_major_ref;
 use crate::linalg::{cholesky as chol, triangular};
+use crate::observe::{Stage, Watch};
+use crate::passes::gram::centered_gram_with;
+use crate::prep::{Scaling, Tail};
+use crate::problem::Problem;
 use crate::scaled::{ldexp, Neumaier};
-use crate::solver::Fit;
+use crate::solver::{assemble, Fit, Solved};
+
+use super::rows::{Block, Prepared, TargetSummary};
 
 /// A mergeable fit state holding the centered cross-product matrix
 /// `C = sum_i w_i (z_i - m)(z_i - m)^T` of the rows `z_i = (x_i, y_i)`
@@ -55,6 +58,23 @@ impl CrossProductState {
     pub fn with_names(mut self, names: Vec<String>) -> Result<Self> {
         self.core.set_names(names)?;
         Ok(self)
+    }
+
+    /// The state of a problem's rows and target: the in-memory
+    /// [`crate::Cholesky`] (the Gram pass of the whole problem, in the
+    /// units of `scaling`).
+    pub(crate) fn of_problem(
+        problem: &Problem<'_>,
+        scaling: &Scaling,
+        watch: &Watch<'_>,
+    ) -> Result<Self> {
+        let c = centered_gram_with(problem, scaling, Tail::Target, watch)?;
+        let targets = TargetSummary::of(problem, scaling);
+        let names = problem.names().map(<[String]>::to_vec);
+        Ok(CrossProductState {
+            core: Core::of_problem(problem, scaling, targets, names, false),
+            c,
+        })
     }
 
     fn fold(&mut self, other_core: &Core, other: &Mat<f64>) {
@@ -172,68 +192,88 @@ impl CrossProductState {
     /// [`Error::NotPositiveDefinite`] at a failed pivot;
     /// [`Error::InvalidParameter`] for bad settings; [`Error::Overflow`].
     pub fn finish_with(&self, tolerance: Option<f64>, min_digits: Option<f64>) -> Result<Vec<Fit>> {
-        let core = &self.core;
         let (frame, cf, l, condition) = self.factor(tolerance, min_digits)?;
-        let p = core.p;
-        (0..core.k)
+        (0..self.core.k)
             .map(|t| {
-                let c = p + t;
-                let mut q: Vec<f64> = (0..p).map(|i| cf[(i, c)]).collect();
-                triangular::solve_lower(l.as_ref(), &mut q);
-                // RSS = C_yy - |L^-1 C_xy|^2, never below zero.
-                let mut acc = Neumaier::default();
-                acc.add(cf[(c, c)]);
-                for v in &q {
-                    acc.add(-v * v);
-                }
-                let rss = acc.value().max(0.0);
-                let mut gamma = q;
-                triangular::solve_upper(l.as_ref().transpose(), &mut gamma);
-                let beta: Vec<f64> = gamma
-                    .iter()
-                    .enumerate()
-                    .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
-                    .collect();
-                let r_squared = frame_r_squared(rss, cf[(c, c)]);
-                let rss = core.caller_rss(&frame, t, rss, 0)?;
-                let intercept = core.intercept_for(&frame, t, &beta);
-                core.fit(
-                    "cholesky-state",
-                    "cholesky",
-                    beta,
-                    intercept,
-                    Some(p),
-                    Some(condition),
-                    rss,
-                    r_squared,
-                    0.0,
-                )
+                let solved = self.solve(&frame, &cf, &l, condition, t);
+                assemble(&self.core.origin(), "cholesky-state", "cholesky", solved)
             })
             .collect()
+    }
+
+    /// The normal-equations solution of target `t` from the cross products
+    /// `cf` and the factor `l` of [`CrossProductState::factor`], with the
+    /// residual sum of squares `C_yy - |L^-1 C_xy|^2` (never below zero).
+    pub(crate) fn solve(
+        &self,
+        frame: &super::Frame,
+        cf: &Mat<f64>,
+        l: &Mat<f64>,
+        condition: f64,
+        t: usize,
+    ) -> Solved {
+        let core = &self.core;
+        let p = core.p;
+        let c = p + t;
+        let mut q: Vec<f64> = (0..p).map(|i| cf[(i, c)]).collect();
+        triangular::solve_lower(l.as_ref(), &mut q);
+        let mut acc = Neumaier::default();
+        acc.add(cf[(c, c)]);
+        for v in &q {
+            acc.add(-v * v);
+        }
+        let rss = acc.value().max(0.0);
+        let mut gamma = q;
+        triangular::solve_upper(l.as_ref().transpose(), &mut gamma);
+        let beta: Vec<f64> = gamma
+            .iter()
+            .enumerate()
+            .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
+            .collect();
+        core.solved(
+            frame,
+            t,
+            beta,
+            Some(p),
+            Some(condition),
+            (rss, 0),
+            (cf[(c, c)], 0),
+            0.0,
+        )
     }
 }
 
 impl FitState for CrossProductState {
+    /// Forms the block's centered cross products in parallel (the row
+    /// pass of [`crate::Cholesky`]: fixed partition and summation tree, the
+    /// same bits for any thread count) and folds them in.
     fn absorb(
         &mut self,
         x: ArrayView2<'_, f64>,
         y: ArrayView2<'_, f64>,
         w: Option<ArrayView1<'_, f64>>,
     ) -> Result<()> {
-        let width = self.core.width();
-        let mut c = Mat::<f64>::zeros(width, width);
-        let block = self.core.reduce_block(x, y, w, |buf, ld, len| {
-            let z = row_major_ref(buf, len, width, ld);
-            matmul(c.as_mut(), Accum::Add, z.transpose(), z, 1.0, Par::Seq);
-        });
-        let block = block.map_err(|e| e.name_columns(self.core.names.as_deref()))?;
-        // The product's two halves may differ by rounding: keep one.
-        for j in 0..width {
-            for i in 0..j {
-                c[(j, i)] = c[(i, j)];
+        self.absorb_observed(x, y, w, &crate::Unobserved)
+    }
+
+    fn absorb_observed(
+        &mut self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView2<'_, f64>,
+        w: Option<ArrayView1<'_, f64>>,
+        observer: &dyn crate::Observer,
+    ) -> Result<()> {
+        let names = self.core.names.clone();
+        let named = |e: Error| e.name_columns(names.as_deref());
+        match Block::prepare(&self.core, x, y, w).map_err(named)? {
+            Prepared::Empty(core) => self.fold(&core, &Mat::zeros(0, 0)),
+            Prepared::Rows(block) => {
+                let watch = Watch::new(observer);
+                watch.begin(Stage::Factor, block.problem.rows());
+                let c = centered_gram_with(&block.problem, &block.scaling, block.tail(), &watch)?;
+                self.fold(&block.core, &c);
             }
         }
-        self.fold(&block, &c);
         Ok(())
     }
 

@@ -89,29 +89,25 @@
 
 mod cross;
 mod inference;
-mod many;
-mod ridge;
+mod rows;
 mod second_pass;
-mod triangle;
+pub(crate) mod triangle;
 #[cfg(feature = "serde")]
 mod wire;
 
 pub use cross::CrossProductState;
-pub use many::{absorb_rows, ManyTargets, ManyTargetsBuilder, SharedSolver, ABSORB_BLOCK_ROWS};
-pub use ridge::StateRidgePath;
 pub use second_pass::{BlockDiagnostics, SecondPass};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
 
 use faer::MatMut;
-use ndarray::{Array1, ArrayView1, ArrayView2, Axis};
+use ndarray::{ArrayView1, ArrayView2, Axis};
 
 use crate::error::{Error, Input, Result};
-use crate::linalg::qr::{qr_block_rows, row_stride};
-use crate::model::LinearModel;
-use crate::scaled::{exponent, ldexp, pow2_scale, weighted_mean, Neumaier};
-use crate::solver::{Fit, FitReport};
+use crate::observe::Observer;
+use crate::scaled::{exponent, ldexp, pow2_scale};
+use crate::solver::{assemble, Fit, Origin, Solved};
 
 /// What every fit state can do: absorb blocks of rows, merge with a state
 /// of the same shape, and finish into one [`Fit`] per target.
@@ -144,6 +140,30 @@ pub trait FitState: Sized {
         w: Option<ArrayView1<'_, f64>>,
     ) -> Result<()> {
         self.absorb(x, y.insert_axis(Axis(1)), w)
+    }
+
+    /// [`FitState::absorb`], reporting the rows reduced to `observer` as it
+    /// goes (stage [`crate::Stage::Factor`]; the states of this crate
+    /// report every row block of their parallel pass) and stopping with
+    /// [`Error::Stopped`] when it says so. The result is that of
+    /// [`FitState::absorb`], bit for bit.
+    ///
+    /// # Errors
+    /// As [`FitState::absorb`]; [`Error::Stopped`]. On error the state is
+    /// unchanged.
+    fn absorb_observed(
+        &mut self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView2<'_, f64>,
+        w: Option<ArrayView1<'_, f64>>,
+        observer: &dyn crate::Observer,
+    ) -> Result<()> {
+        let watch = crate::observe::Watch::new(observer);
+        watch.begin(crate::Stage::Factor, x.nrows());
+        let before = self.layout().rows;
+        self.absorb(x, y, w)?;
+        watch.rows_done(self.layout().rows - before);
+        Ok(())
     }
 
     /// Folds `other` (built from other rows) into this state.
@@ -369,8 +389,20 @@ impl Core {
         }
     }
 
-    /// Validates a block; rows are numbered from `self.rows`.
-    fn check_block(
+    /// Checks a block's shapes and values; rows are numbered from
+    /// `self.rows`.
+    pub(crate) fn check_block(
+        &self,
+        x: &ArrayView2<'_, f64>,
+        y: &ArrayView2<'_, f64>,
+        w: Option<&ArrayView1<'_, f64>>,
+    ) -> Result<()> {
+        self.check_shapes(x, y, w)?;
+        self.check_values(x, y, w)
+    }
+
+    /// Checks a block's shapes against the state's.
+    pub(crate) fn check_shapes(
         &self,
         x: &ArrayView2<'_, f64>,
         y: &ArrayView2<'_, f64>,
@@ -396,7 +428,6 @@ impl Core {
                 found: y.ncols(),
             });
         }
-        let base = self.rows;
         if let Some(w) = w {
             if w.len() != n {
                 return Err(Error::LengthMismatch {
@@ -405,6 +436,20 @@ impl Core {
                     len: w.len(),
                 });
             }
+        }
+        Ok(())
+    }
+
+    /// Checks a block's values (finite, weights `>= 0`); rows are numbered
+    /// from `self.rows`.
+    pub(crate) fn check_values(
+        &self,
+        x: &ArrayView2<'_, f64>,
+        y: &ArrayView2<'_, f64>,
+        w: Option<&ArrayView1<'_, f64>>,
+    ) -> Result<()> {
+        let base = self.rows;
+        if let Some(w) = w {
             for (i, &value) in w.iter().enumerate() {
                 if !crate::error::finite_nonnegative(value) {
                     return Err(Error::InvalidWeight {
@@ -437,113 +482,6 @@ impl Core {
             }
         }
         Ok(())
-    }
-
-    /// Validates a block and summarises it: a core of the block's rows
-    /// alone, whose weight units and column scales are already those of
-    /// the union with `self` (so that its matrix, built in those units,
-    /// merges without shifts). Then calls `sink` with chunks of the
-    /// block's usable rows, centered by the block's means, weighted and
-    /// scaled, stored row by row with row stride `row_stride(p + k)` (zero
-    /// padding).
-    pub fn reduce_block(
-        &self,
-        x: ArrayView2<'_, f64>,
-        y: ArrayView2<'_, f64>,
-        w: Option<ArrayView1<'_, f64>>,
-        mut sink: impl FnMut(&mut [f64], usize, usize),
-    ) -> Result<Core> {
-        self.check_block(&x, &y, w.as_ref())?;
-        let (n, p, k) = (x.nrows(), self.p, self.k);
-        let width = self.width();
-        let wt = |i: usize| w.as_ref().map_or(1.0, |w| w[i]);
-        let wmax = (0..n).fold(0.0f64, |m, i| m.max(wt(i)));
-        let block_wexp = if wmax > 0.0 {
-            exponent(wmax).div_euclid(2)
-        } else {
-            0
-        };
-        let wexp = if self.usable > 0 {
-            self.wexp.max(block_wexp)
-        } else {
-            block_wexp
-        };
-        let largest = self.largest_weight.max(wmax);
-        let mut total = Neumaier::default();
-        let mut log_weights = Neumaier::default();
-        let mut usable = 0usize;
-        for i in 0..n {
-            let v = wt(i);
-            if v > 0.0 {
-                log_weights.add(v.ln());
-                let s = ldexp(v, -2 * wexp);
-                if s < f64::MIN_POSITIVE {
-                    return Err(Error::WeightRange {
-                        row: self.rows.saturating_add(i),
-                        value: v,
-                        largest,
-                    });
-                }
-                total.add(s);
-                usable += 1;
-            }
-        }
-        let value = |i: usize, j: usize| if j < p { x[(i, j)] } else { y[(i, j - p)] };
-        let mut lo = vec![f64::INFINITY; width];
-        let mut hi = vec![f64::NEG_INFINITY; width];
-        let mut means = vec![0.0; width];
-        for j in 0..width {
-            for i in (0..n).filter(|&i| wt(i) > 0.0) {
-                let v = value(i, j);
-                lo[j] = lo[j].min(v);
-                hi[j] = hi[j].max(v);
-            }
-            if self.intercept && usable > 0 {
-                means[j] = weighted_mean((0..n).map(|i| (wt(i), value(i, j))));
-            }
-        }
-        let exps: Vec<i32> = (0..width)
-            .map(|j| column_exp(lo[j].min(self.lo[j]), hi[j].max(self.hi[j]), self.intercept))
-            .collect();
-        let block = Core {
-            p,
-            k,
-            intercept: self.intercept,
-            names: self.names.clone(),
-            rows: n,
-            usable,
-            weight: total.value(),
-            wexp,
-            largest_weight: wmax,
-            log_weights: log_weights.value(),
-            means,
-            lo,
-            hi,
-            exps,
-        };
-        if usable == 0 {
-            return Ok(block);
-        }
-        let ld = row_stride(width);
-        let chunk = qr_block_rows(width).min(usable);
-        let mut buf = crate::alloc::vec("fit state block", chunk.saturating_mul(ld), 0.0)?;
-        let mut len = 0;
-        for i in (0..n).filter(|&i| wt(i) > 0.0) {
-            let sw = ldexp(wt(i), -2 * wexp).sqrt();
-            let row = &mut buf[len * ld..(len + 1) * ld];
-            for (j, o) in row.iter_mut().enumerate().take(width) {
-                *o = sw * scaled_diff(value(i, j), block.means[j], block.exps[j]);
-            }
-            len += 1;
-            if len == chunk {
-                sink(&mut buf, ld, len);
-                len = 0;
-            }
-        }
-        if len > 0 {
-            sink(&mut buf, ld, len);
-        }
-        Ok(block)
     }
 
     /// Makes `self` the core of the union of both states' rows and says
@@ -700,88 +638,65 @@ impl Core {
         my - ldexp(sum, ey)
     }
 
-    /// A [`Fit`] from the numbers of a finished state; refuses non-finite
-    /// results.
+    /// The origin a state's fits record: its names and counts, and
+    /// fingerprint 0 (a state fit is not tied to one [`crate::Problem`]).
+    pub fn origin(&self) -> Origin<'_> {
+        Origin {
+            names: self.names.as_deref(),
+            columns: self.p,
+            usable_rows: self.usable,
+            intercept: self.intercept,
+            fingerprint: 0,
+        }
+    }
+
+    /// The numbers of the fit of target `t` with slopes `beta` (caller's
+    /// units), from sums of squares given in the frame's units as
+    /// `(m, e)` (value `m 2^e`): the intercept is formed here, the sums
+    /// are carried to the caller's units in scaled form.
+    #[allow(clippy::too_many_arguments)]
+    pub fn solved(
+        &self,
+        frame: &Frame,
+        t: usize,
+        beta: Vec<f64>,
+        rank: Option<usize>,
+        condition: Option<f64>,
+        rss: (f64, i32),
+        tss: (f64, i32),
+        penalty: f64,
+    ) -> Solved {
+        let units = 2 * frame.exps[self.p + t] + 2 * self.wexp;
+        let intercept = self.intercept_for(frame, t, &beta);
+        Solved {
+            beta,
+            intercept,
+            rank,
+            condition,
+            rss: (rss.0, rss.1 + units),
+            tss: (tss.0, tss.1 + units),
+            penalty,
+        }
+    }
+
+    /// A state's [`Fit`] of target `t` (see [`Core::solved`]), reported
+    /// under `solver` with its `factorization`.
     #[allow(clippy::too_many_arguments)]
     pub fn fit(
         &self,
-        solver: &str,
-        factorization: &str,
+        frame: &Frame,
+        t: usize,
+        (solver, factorization): (&str, &str),
         beta: Vec<f64>,
-        intercept: f64,
         rank: Option<usize>,
         condition: Option<f64>,
-        rss: f64,
-        r_squared: Option<f64>,
+        rss: (f64, i32),
+        tss: (f64, i32),
         penalty: f64,
     ) -> Result<Fit> {
-        if beta.iter().any(|b| !b.is_finite()) {
-            return Err(Error::Overflow {
-                what: "coefficient vector",
-            });
-        }
-        if !intercept.is_finite() {
-            return Err(Error::Overflow { what: "intercept" });
-        }
-        if !rss.is_finite() {
-            return Err(Error::Overflow {
-                what: "residual sum of squares",
-            });
-        }
-        if condition.is_some_and(|c| !c.is_finite()) {
-            return Err(Error::Overflow {
-                what: "condition estimate",
-            });
-        }
-        let residual_df = rank.map(|r| self.usable.saturating_sub(r + usize::from(self.intercept)));
-        let sigma = residual_df
-            .filter(|&df| df > 0)
-            .map(|df| (rss / df as f64).sqrt())
-            .filter(|s| s.is_finite());
-        Ok(Fit {
-            model: LinearModel::from_parts(Array1::from(beta), intercept),
-            report: FitReport {
-                solver: solver.to_string(),
-                rank,
-                columns: self.p,
-                condition,
-                residual_sum_of_squares: rss,
-                residual_df,
-                sigma,
-                r_squared,
-                usable_rows: self.usable,
-                penalty,
-                factorization: Some(factorization.to_string()),
-                iterations: None,
-                fingerprint: 0,
-            },
-        })
+        let solved = self.solved(frame, t, beta, rank, condition, rss, tss, penalty);
+        assemble(&self.origin(), solver, factorization, solved)
     }
-
-    /// A residual sum of squares in caller units from its value
-    /// `scaled * 2^extra` in the frame's units of target `t`.
-    pub fn caller_rss(&self, frame: &Frame, t: usize, scaled: f64, extra: i32) -> Result<f64> {
-        let rss = ldexp(scaled, extra + 2 * frame.exps[self.p + t] + 2 * self.wexp);
-        if !rss.is_finite() {
-            return Err(Error::Overflow {
-                what: "residual sum of squares",
-            });
-        }
-        Ok(rss)
-    }
-}
-
-/// R² `1 - rss / tss` from the residual and total sums of squares of one
-/// target in the same (frame) units; `None` when the total is zero or not
-/// finite, as [`crate::FitReport::r_squared`].
-pub(crate) fn frame_r_squared(rss: f64, tss: f64) -> Option<f64> {
-    if !(tss > 0.0 && tss.is_finite()) {
-        return None;
-    }
-    if rss == 0.0 {
-        return Some(1.0);
-    }
-    Some(1.0 - rss / tss).filter(|r| r.is_finite())
 }
 
 /// The units a finish works in: column `j` divided by `2^exps[j]`, the
@@ -828,4 +743,78 @@ pub(crate) fn shift_columns(mut m: MatMut<'_, f64>, shift: &[i32], wshift: i32, 
 /// Checks a caller's rank tolerance (finite, `>= 0`).
 pub(crate) fn check_tolerance(value: f64) -> Result<f64> {
     crate::solver::check_tolerance("rank_tolerance", value)
+}
+
+/// Absorbs the rows of `x` (`n x p`), `ys` (`n x k`) and the optional
+/// weights `w` into `state` as one block, reduced in parallel by the row
+/// pass of the in-memory solvers (fixed partition and fold tree: the same
+/// bits for any thread count), calling `observer` after each row block of
+/// that pass (stage [`crate::Stage::Factor`], the rows done so far out of `n`).
+///
+/// The result is that of [`FitState::absorb`] with the same arrays, bit for
+/// bit. Rows in errors are numbered in the whole stream (the rows the state
+/// held before, plus the row in `x`).
+///
+/// # Errors
+/// As [`FitState::absorb`] (shapes are checked before any row is read);
+/// [`Error::Stopped`] when the observer stops. On any error the state is
+/// left as it was before the call.
+///
+/// ```
+/// use leastline::state::absorb_rows;
+/// use leastline::{FitState, TriangleState, Unobserved};
+/// use ndarray::Array2;
+///
+/// // Three sensors on a bridge deck, each read against the load and the
+/// // air temperature, 20,000 readings.
+/// let n = 20_000;
+/// let x = Array2::from_shape_fn((n, 2), |(i, j)| ((i * (j + 2)) % 31) as f64);
+/// let ys = Array2::from_shape_fn((n, 3), |(i, t)| {
+///     (t + 1) as f64 * x[(i, 0)] - 0.5 * x[(i, 1)] + ((i * 7 + t) % 5) as f64 * 0.01
+/// });
+/// let mut state = TriangleState::new(2, 3, true)?;
+/// absorb_rows(&mut state, x.view(), ys.view(), None, &Unobserved)?;
+/// assert_eq!(state.layout().rows, n);
+/// let fits = state.finish()?;
+/// assert!((fits[2].model.coefficients()[0] - 3.0).abs() < 1e-3);
+/// # Ok::<(), leastline::Error>(())
+/// ```
+pub fn absorb_rows<S: FitState>(
+    state: &mut S,
+    x: ArrayView2<'_, f64>,
+    ys: ArrayView2<'_, f64>,
+    w: Option<ArrayView1<'_, f64>>,
+    observer: &dyn Observer,
+) -> Result<()> {
+    let layout = state.layout();
+    let n = x.nrows();
+    if x.ncols() != layout.columns {
+        return Err(Error::ColumnCountMismatch {
+            expected: layout.columns,
+            found: x.ncols(),
+        });
+    }
+    if ys.nrows() != n {
+        return Err(Error::LengthMismatch {
+            input: Input::Target,
+            design_rows: n,
+            len: ys.nrows(),
+        });
+    }
+    if ys.ncols() != layout.targets {
+        return Err(Error::TargetCountMismatch {
+            expected: layout.targets,
+            found: ys.ncols(),
+        });
+    }
+    if let Some(w) = &w {
+        if w.len() != n {
+            return Err(Error::LengthMismatch {
+                input: Input::Weights,
+                design_rows: n,
+                len: w.len(),
+            });
+        }
+    }
+    state.absorb_observed(x, ys, w, observer)
 }

@@ -1,7 +1,6 @@
 //! The triangular-factor state: the `R` of a QR of the centered, weighted
 //! rows, merged by stacking two triangles and re-triangularising.
 
-use super::frame_r_squared;
 use faer::Mat;
 use ndarray::{ArrayView1, ArrayView2};
 
@@ -9,8 +8,14 @@ use super::{check_tolerance, shift_columns, Combined, Core, FitState, Frame, Sta
 use crate::error::{Error, Result};
 use crate::linalg::qr::{row_stride, stacked_qr, StackedQrWork};
 use crate::linalg::triangular;
+use crate::observe::{Stage, Watch};
+use crate::passes::qr::tall_skinny_r_with;
+use crate::prep::{Scaling, Tail};
+use crate::problem::Problem;
 use crate::scaled::ldexp;
-use crate::solver::Fit;
+use crate::solver::{assemble, Fit, Solved};
+
+use super::rows::{Block, Prepared, TargetSummary};
 
 /// A mergeable fit state holding the triangular factor `R` (`(p + k)`
 /// square, upper triangular) of a QR of the rows
@@ -63,6 +68,22 @@ impl TriangleState {
         Ok(self)
     }
 
+    /// The state of a problem's rows and target: the in-memory [`crate::Qr`]
+    /// (the TSQR pass of the whole problem, in the units of `scaling`).
+    pub(crate) fn of_problem(
+        problem: &Problem<'_>,
+        scaling: &Scaling,
+        watch: &Watch<'_>,
+    ) -> Result<Self> {
+        let r = tall_skinny_r_with(problem, scaling, Tail::Target, watch)?;
+        let targets = TargetSummary::of(problem, scaling);
+        let names = problem.names().map(<[String]>::to_vec);
+        Ok(TriangleState {
+            core: Core::of_problem(problem, scaling, targets, names, false),
+            r,
+        })
+    }
+
     /// Folds a triangle `other` (in the units `other_core` describes) into
     /// this state.
     fn fold(&mut self, other_core: &Core, other: &Mat<f64>) {
@@ -104,7 +125,7 @@ impl TriangleState {
     }
 
     /// The triangle in the frame's units, constant columns zeroed.
-    pub(super) fn framed(&self, frame: &Frame) -> Mat<f64> {
+    pub(crate) fn framed(&self, frame: &Frame) -> Mat<f64> {
         let (p, width) = (self.core.p, self.core.width());
         Mat::from_fn(width, width, |i, j| {
             if i > j || (j < p && frame.constant[j]) {
@@ -138,7 +159,11 @@ impl TriangleState {
             return Err(Error::RankDeficient {
                 rank: p - dependent.len(),
                 columns: p,
-                combinations: crate::solvers::combinations(r11, &dependent, &frame.constant),
+                combinations: crate::linalg::householder::combinations(
+                    r11,
+                    &dependent,
+                    &frame.constant,
+                ),
                 dependent,
                 tolerance,
                 names: core.names.clone(),
@@ -164,37 +189,41 @@ impl TriangleState {
     /// [`Error::SpreadOverflow`], [`Error::Overflow`] for results beyond the
     /// range of `f64`.
     pub fn finish_with(&self, tolerance: Option<f64>) -> Result<Vec<Fit>> {
-        let core = &self.core;
-        let p = core.p;
         let (frame, rf, condition) = self.factor(tolerance)?;
-        let r11 = rf.as_ref().submatrix(0, 0, p, p);
-        (0..core.k)
+        (0..self.core.k)
             .map(|t| {
-                let c = p + t;
-                let mut gamma: Vec<f64> = (0..p).map(|i| rf[(i, c)]).collect();
-                triangular::solve_upper(r11, &mut gamma);
-                let beta: Vec<f64> = gamma
-                    .iter()
-                    .enumerate()
-                    .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
-                    .collect();
-                let (rss, e) = residual_squares(&rf, p, c);
-                let r_squared = frame_r_squared(ldexp(rss, e), total_squares(&rf, c));
-                let rss = core.caller_rss(&frame, t, rss, e)?;
-                let intercept = core.intercept_for(&frame, t, &beta);
-                core.fit(
-                    "qr-state",
-                    "qr",
-                    beta,
-                    intercept,
-                    Some(p),
-                    Some(condition),
-                    rss,
-                    r_squared,
-                    0.0,
-                )
+                let solved = self.solve(&frame, &rf, condition, t);
+                assemble(&self.core.origin(), "qr-state", "qr", solved)
             })
             .collect()
+    }
+
+    /// The QR solution of target `t` from the triangle `rf` of
+    /// [`TriangleState::factor`]: back substitution with `R11`, the
+    /// residual sum of squares from the trailing block (no pass over the
+    /// rows), R² from the target's column.
+    pub(crate) fn solve(&self, frame: &Frame, rf: &Mat<f64>, condition: f64, t: usize) -> Solved {
+        let core = &self.core;
+        let p = core.p;
+        let c = p + t;
+        let r11 = rf.as_ref().submatrix(0, 0, p, p);
+        let mut gamma: Vec<f64> = (0..p).map(|i| rf[(i, c)]).collect();
+        triangular::solve_upper(r11, &mut gamma);
+        let beta: Vec<f64> = gamma
+            .iter()
+            .enumerate()
+            .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
+            .collect();
+        core.solved(
+            frame,
+            t,
+            beta,
+            Some(p),
+            Some(condition),
+            residual_squares(rf, p, c),
+            total_squares(rf, c),
+            0.0,
+        )
     }
 }
 
@@ -252,37 +281,31 @@ impl TriangleState {
                 let mut beta = vec![0.0; p];
                 let mut resid = rhs.clone();
                 if let Some(dec) = &dec {
-                    let gamma = crate::solvers::svd::truncated_solve(dec, rank, &rhs);
+                    let gamma = crate::linalg::svd::truncated_solve(dec, rank, &rhs);
                     for (i, r) in resid.iter_mut().enumerate() {
                         *r -= (0..q).map(|cc| r11[(i, cc)] * gamma[cc]).sum::<f64>();
                     }
                     // Minimum norm in caller units (see `Svd`): work in a
                     // common power of two so that the projection is exact.
                     let exps: Vec<i32> = live.iter().map(|&j| frame.exps[j]).collect();
-                    let (e_max, unit) = crate::solvers::svd::common_units(&exps);
+                    let (e_max, unit) = crate::linalg::svd::common_units(&exps);
                     let mut b: Vec<f64> = (0..q).map(|cc| ldexp(gamma[cc], unit[cc])).collect();
                     if rank < q {
-                        crate::solvers::svd::project_off_null_space(&mut b, &dec.v, rank, &unit);
+                        crate::linalg::svd::project_off_null_space(&mut b, &dec.v, rank, &unit);
                     }
                     for (cc, &j) in live.iter().enumerate() {
                         beta[j] = ldexp(b[cc], frame.exps[c] + e_max);
                     }
                 }
-                let (tail, e) = residual_squares(&rf, p, c);
-                let head: f64 = resid.iter().map(|r| r * r).sum();
-                let rss_frame = ldexp(tail, e) + head;
-                let r_squared = frame_r_squared(rss_frame, total_squares(&rf, c));
-                let rss = core.caller_rss(&frame, t, rss_frame, 0)?;
-                let intercept = core.intercept_for(&frame, t, &beta);
                 core.fit(
-                    "svd-state",
-                    "svd",
+                    &frame,
+                    t,
+                    ("svd-state", "svd"),
                     beta,
-                    intercept,
                     Some(rank),
                     Some(condition),
-                    rss,
-                    r_squared,
+                    with_head(residual_squares(&rf, p, c), &resid),
+                    total_squares(&rf, c),
                     0.0,
                 )
             })
@@ -346,21 +369,15 @@ impl TriangleState {
                     .enumerate()
                     .map(|(j, &g)| ldexp(g, frame.exps[c] - frame.exps[j]))
                     .collect();
-                let (tail, e) = residual_squares(&rf, p, c);
-                let head: f64 = resid.iter().map(|r| r * r).sum();
-                let rss_frame = ldexp(tail, e) + head;
-                let r_squared = frame_r_squared(rss_frame, total_squares(&rf, c));
-                let rss = core.caller_rss(&frame, t, rss_frame, 0)?;
-                let intercept = core.intercept_for(&frame, t, &beta);
                 core.fit(
-                    "ridge-state",
-                    "qr",
+                    &frame,
+                    t,
+                    ("ridge-state", "qr"),
                     beta,
-                    intercept,
                     None,
                     Some(condition),
-                    rss,
-                    r_squared,
+                    with_head(residual_squares(&rf, p, c), &resid),
+                    total_squares(&rf, c),
                     lambda,
                 )
             })
@@ -368,18 +385,18 @@ impl TriangleState {
     }
 }
 
+/// The centered total sum of squares of column `c` of the stacked problem
+/// (the target's, in frame units) as `(mantissa, exponent)`: the squared
+/// norm of the triangle's column, which keeps the norm of the centered,
+/// weighted column.
+pub(crate) fn total_squares(r: &Mat<f64>, c: usize) -> (f64, i32) {
+    residual_squares(r, 0, c)
+}
+
 /// `sum_{i = p}^{c} R_ic^2`: the squared norm of column `c` of the
 /// trailing block (the residuals of that target against the design), as
 /// `(mantissa, exponent)`.
-/// The centered total sum of squares of column `c` of the stacked problem
-/// (the target's, in frame units): the squared norm of the triangle's
-/// column, which keeps the norm of the centered, weighted column.
-pub(super) fn total_squares(r: &Mat<f64>, c: usize) -> f64 {
-    let (s, e) = residual_squares(r, 0, c);
-    ldexp(s, e)
-}
-
-pub(super) fn residual_squares(r: &Mat<f64>, p: usize, c: usize) -> (f64, i32) {
+pub(crate) fn residual_squares(r: &Mat<f64>, p: usize, c: usize) -> (f64, i32) {
     let big = (p..=c).fold(0.0f64, |m, i| m.max(r[(i, c)].abs()));
     if big == 0.0 {
         return (0.0, 0);
@@ -389,21 +406,53 @@ pub(super) fn residual_squares(r: &Mat<f64>, p: usize, c: usize) -> (f64, i32) {
     (s, 2 * e)
 }
 
+/// A residual sum of squares `(m, e)` of the trailing block plus the
+/// squares of `head` (residuals in the design's rows of the triangle, in
+/// the same frame units), in the same form.
+pub(crate) fn with_head((m, e): (f64, i32), head: &[f64]) -> (f64, i32) {
+    let h: f64 = head.iter().map(|r| r * r).sum();
+    if h == 0.0 {
+        return (m, e);
+    }
+    let top = if m == 0.0 {
+        crate::scaled::exponent(h)
+    } else {
+        e.max(crate::scaled::exponent(h))
+    };
+    (ldexp(m, e - top) + ldexp(h, -top), top)
+}
+
 impl FitState for TriangleState {
+    /// Reduces the block in parallel (the row pass of [`crate::Qr`]: fixed
+    /// partition and fold tree, the same bits for any thread count) and
+    /// folds its triangle in.
     fn absorb(
         &mut self,
         x: ArrayView2<'_, f64>,
         y: ArrayView2<'_, f64>,
         w: Option<ArrayView1<'_, f64>>,
     ) -> Result<()> {
-        let width = self.core.width();
-        let mut r = Mat::<f64>::zeros(width, width);
-        let mut work = StackedQrWork::new(width);
-        let block = self.core.reduce_block(x, y, w, |buf, ld, len| {
-            stacked_qr(r.as_mut(), buf, ld, len, &mut work);
-        });
-        let block = block.map_err(|e| e.name_columns(self.core.names.as_deref()))?;
-        self.fold(&block, &r);
+        self.absorb_observed(x, y, w, &crate::Unobserved)
+    }
+
+    fn absorb_observed(
+        &mut self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView2<'_, f64>,
+        w: Option<ArrayView1<'_, f64>>,
+        observer: &dyn crate::Observer,
+    ) -> Result<()> {
+        let names = self.core.names.clone();
+        let named = |e: Error| e.name_columns(names.as_deref());
+        match Block::prepare(&self.core, x, y, w).map_err(named)? {
+            Prepared::Empty(core) => self.fold(&core, &Mat::zeros(0, 0)),
+            Prepared::Rows(block) => {
+                let watch = Watch::new(observer);
+                watch.begin(Stage::Factor, block.problem.rows());
+                let r = tall_skinny_r_with(&block.problem, &block.scaling, block.tail(), &watch)?;
+                self.fold(&block.core, &r);
+            }
+        }
         Ok(())
     }
 

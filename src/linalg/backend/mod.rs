@@ -168,6 +168,7 @@ static EVERY_ROUTINE: AtomicBool = AtomicBool::new(false);
 
 /// Sends every routine to LAPACK under [`Backend::Lapack`] (`true`), or
 /// only those measured faster (`false`, the default).
+#[cfg_attr(not(feature = "bench-support"), allow(dead_code))]
 pub(crate) fn route_every_routine(on: bool) {
     EVERY_ROUTINE.store(on, Ordering::SeqCst);
 }

@@ -3,15 +3,15 @@
 
 use faer::Mat;
 
-use super::triangle::{residual_squares, total_squares};
-use super::{frame_r_squared, Core, Frame, TriangleState};
+use super::path::{column_spectrum, default_grid, Spectrum};
+use super::selection::{penalty_curve, CurveUnits};
+use super::{Criterion, PenaltyCurve};
 use crate::error::{Error, Result};
 use crate::penalty::{check_penalty, PenaltyMap};
-use crate::ridge::path::{column_spectrum, default_grid, Spectrum};
-use crate::ridge::selection::{penalty_curve, CurveUnits};
-use crate::ridge::{Criterion, PenaltyCurve};
 use crate::scaled::ldexp;
 use crate::solver::Fit;
+use crate::state::triangle::{residual_squares, total_squares};
+use crate::state::{Core, Frame, TriangleState};
 
 /// Ridge fits and penalty scores for one target of a [`TriangleState`],
 /// for any number of penalties, from one SVD of the state's triangle.
@@ -72,7 +72,7 @@ pub struct StateRidgePath {
     /// 2-norm condition number of the design's triangle (frame units).
     condition: f64,
     /// The target's centered total sum of squares (frame units).
-    total: f64,
+    total: (f64, i32),
 }
 
 impl TriangleState {
@@ -180,19 +180,15 @@ impl StateRidgePath {
         let beta = self
             .map
             .to_caller_parts(&frame.exps[..p], frame.exps[p + t], &gamma);
-        let rss_frame = self.spectrum.rss(mu);
-        let r_squared = frame_r_squared(rss_frame, self.total);
-        let rss = core.caller_rss(frame, t, rss_frame, 0)?;
-        let intercept = core.intercept_for(frame, t, &beta);
         core.fit(
-            "ridge-state",
-            "svd",
+            frame,
+            t,
+            ("ridge-state", "svd"),
             beta,
-            intercept,
             Some(self.spectrum.kept),
             Some(self.condition),
-            rss,
-            r_squared,
+            (self.spectrum.rss(mu), 0),
+            self.total,
             lambda,
         )
     }

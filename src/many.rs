@@ -1,117 +1,16 @@
 //! Many targets over one design, in memory: one factorisation for all of
-//! them through a fit state with `k` targets, and [`absorb_rows`], which
-//! feeds a state from arrays in memory in fixed-size row blocks.
+//! them through a fit state with `k` targets (fed by
+//! [`crate::state::absorb_rows`]).
 
 use ndarray::{ArrayView1, ArrayView2, Axis};
 
-use super::{CrossProductState, FitState, TriangleState};
 use crate::error::{Error, Input, Result};
-use crate::observe::{Observer, Stage, Unobserved, Watch};
+use crate::observe::{Observer, Unobserved};
 use crate::problem::Problem;
 use crate::ridge::{Ridge, RidgeFactorization};
 use crate::solver::{Fit, Solver};
 use crate::solvers::{Cholesky, Qr, Svd};
-
-/// Rows per block in [`absorb_rows`]: fixed, so that the result does not
-/// depend on the machine or the number of threads.
-pub const ABSORB_BLOCK_ROWS: usize = 8192;
-
-/// Absorbs the rows of `x` (`n x p`), `ys` (`n x k`) and the optional
-/// weights `w` into `state`, in blocks of [`ABSORB_BLOCK_ROWS`] rows, in
-/// order, calling `observer` after each block (stage [`Stage::Factor`],
-/// the rows done so far out of `n`).
-///
-/// The blocks are those of a caller who absorbed the same slices one by
-/// one with [`FitState::absorb`]: the result is the same, bit for bit.
-/// Rows in errors are numbered in the whole stream (the rows the state
-/// held before, plus the row in `x`).
-///
-/// # Errors
-/// As [`FitState::absorb`] (shapes are checked before any row is read);
-/// [`Error::Stopped`] when the observer stops. On any error the state is
-/// left as it was before the call.
-///
-/// ```
-/// use leastline::state::absorb_rows;
-/// use leastline::{FitState, TriangleState, Unobserved};
-/// use ndarray::Array2;
-///
-/// // Three sensors on a bridge deck, each read against the load and the
-/// // air temperature, 20,000 readings.
-/// let n = 20_000;
-/// let x = Array2::from_shape_fn((n, 2), |(i, j)| ((i * (j + 2)) % 31) as f64);
-/// let ys = Array2::from_shape_fn((n, 3), |(i, t)| {
-///     (t + 1) as f64 * x[(i, 0)] - 0.5 * x[(i, 1)] + ((i * 7 + t) % 5) as f64 * 0.01
-/// });
-/// let mut state = TriangleState::new(2, 3, true)?;
-/// absorb_rows(&mut state, x.view(), ys.view(), None, &Unobserved)?;
-/// assert_eq!(state.layout().rows, n);
-/// let fits = state.finish()?;
-/// assert!((fits[2].model.coefficients()[0] - 3.0).abs() < 1e-3);
-/// # Ok::<(), leastline::Error>(())
-/// ```
-pub fn absorb_rows<S: FitState + Clone>(
-    state: &mut S,
-    x: ArrayView2<'_, f64>,
-    ys: ArrayView2<'_, f64>,
-    w: Option<ArrayView1<'_, f64>>,
-    observer: &dyn Observer,
-) -> Result<()> {
-    let layout = state.layout();
-    let n = x.nrows();
-    if x.ncols() != layout.columns {
-        return Err(Error::ColumnCountMismatch {
-            expected: layout.columns,
-            found: x.ncols(),
-        });
-    }
-    if ys.nrows() != n {
-        return Err(Error::LengthMismatch {
-            input: Input::Target,
-            design_rows: n,
-            len: ys.nrows(),
-        });
-    }
-    if ys.ncols() != layout.targets {
-        return Err(Error::TargetCountMismatch {
-            expected: layout.targets,
-            found: ys.ncols(),
-        });
-    }
-    if let Some(w) = &w {
-        if w.len() != n {
-            return Err(Error::LengthMismatch {
-                input: Input::Weights,
-                design_rows: n,
-                len: w.len(),
-            });
-        }
-    }
-    let saved = state.clone();
-    let watch = Watch::new(observer);
-    watch.begin(Stage::Factor, n);
-    let mut start = 0;
-    while start < n {
-        let end = start.saturating_add(ABSORB_BLOCK_ROWS).min(n);
-        let rows = start..end;
-        let block = state.absorb(
-            x.slice_axis(Axis(0), rows.clone().into()),
-            ys.slice_axis(Axis(0), rows.clone().into()),
-            w.as_ref().map(|w| w.slice_axis(Axis(0), rows.into())),
-        );
-        if let Err(e) = block {
-            *state = saved;
-            return Err(e);
-        }
-        watch.rows_done(end - start);
-        if let Err(e) = watch.check() {
-            *state = saved;
-            return Err(e);
-        }
-        start = end;
-    }
-    Ok(())
-}
+use crate::state::{absorb_rows, CrossProductState, FitState, TriangleState};
 
 /// Many targets over one design: the rows of `x` (`n x p`) against each
 /// column of `ys` (`n x k`), with the same optional weights and intercept.
@@ -342,8 +241,8 @@ impl<'a> ManyTargets<'a> {
         self.fit_observed(solver, &Unobserved)
     }
 
-    /// [`ManyTargets::fit`], calling `observer` after every block of
-    /// [`ABSORB_BLOCK_ROWS`] rows read into the factorisation.
+    /// [`ManyTargets::fit`], calling `observer` after every row block of
+    /// the pass that reads the rows into the factorisation.
     ///
     /// # Errors
     /// [`Error::NonFinite`] naming the row and, for a target, the target
