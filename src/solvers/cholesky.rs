@@ -4,7 +4,7 @@ use crate::observe::{Observer, Stage, Watch};
 use crate::passes::qr::tall_skinny_r;
 use crate::prep::Scaling;
 use crate::problem::Problem;
-use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
+use crate::solver::{assemble, check_tolerance, finish_closed_form, Fit, Origin, Solver};
 use crate::state::CrossProductState;
 
 use super::dependent_columns;
@@ -30,6 +30,13 @@ use super::dependent_columns;
 /// digits. On the NIST StRD linear problems the worst coefficient kept up
 /// to 2.4 digits fewer than estimated (and up to 1.4 more on others), so
 /// ask for `min_digits` a few digits above what you need.
+///
+/// It is the in-memory face of [`crate::CrossProductState`]: the rows are
+/// reduced into that state (one pass) and solved as the state solves. The
+/// residual sum of squares comes from the cross products,
+/// `y^T y - |L^-1 Z^T y|^2`, unless that difference would cancel more than
+/// three digits (R² above 0.999): then a second pass over the rows forms
+/// it from the residuals, keeping every digit.
 ///
 /// When the factorisation meets a pivot at rounding level, the solver names
 /// the cause: it runs a QR of the design (this error path only) and reports
@@ -166,9 +173,13 @@ impl Solver for Cholesky {
             Err(e) => return Err(e),
         };
         let solved = state.solve(&frame, &cf, &l, condition, 0);
-        // The residual sum of squares from a pass over the rows, not from
-        // the cross products: `C_yy - |L^-1 C_xy|^2` cancels, losing about
-        // `log10(1 / (1 - R^2))` digits, where the pass keeps them all.
+        // The residual sum of squares `C_yy - |L^-1 C_xy|^2` from the cross
+        // products loses about `log10(tss / rss)` digits to cancellation:
+        // kept when that is at most three (R² up to 0.999), else formed
+        // again by a pass over the rows, which keeps every digit.
+        if cancellation_digits(solved.rss, solved.tss) <= CROSS_PRODUCT_RSS_DIGITS {
+            return assemble(&Origin::of(problem), "cholesky", "cholesky", solved);
+        }
         finish_closed_form(
             problem,
             self.name(),
@@ -180,6 +191,23 @@ impl Solver for Cholesky {
             &watch,
         )
     }
+}
+
+/// Digits the residual sum of squares from the cross products may lose to
+/// cancellation before the solver forms it again from the rows.
+const CROSS_PRODUCT_RSS_DIGITS: f64 = 3.0;
+
+/// `log10(tss / rss)` for sums given as `(m, e)` (value `m 2^e`): the
+/// digits lost when `rss` is formed as `tss` minus the explained part
+/// (infinite for a zero `rss` beside a positive `tss`, 0 for a zero `tss`).
+fn cancellation_digits((rm, re): (f64, i32), (tm, te): (f64, i32)) -> f64 {
+    if !(tm > 0.0) {
+        return 0.0;
+    }
+    if !(rm > 0.0) {
+        return f64::INFINITY;
+    }
+    (tm / rm).log10() + f64::from(te - re) * std::f64::consts::LOG10_2
 }
 
 impl Cholesky {

@@ -26,6 +26,12 @@ use super::refine::{refine, Refinement};
 /// Keeps the condition number of the design (the normal equations square
 /// it): the accurate choice for general use.
 ///
+/// It is the in-memory face of [`crate::TriangleState`]: the rows are
+/// reduced into that state in one parallel pass and finished as the state
+/// finishes. The residual sum of squares is the squared norm of the
+/// triangle's last column below the design's rows (the target's distance
+/// to the column space), so the design is read once.
+///
 /// **Rank:** column `j` is reported dependent when `|R_jj|` is at most
 /// `rank_tolerance` times an upper bound of the raw column's weighted norm
 /// (`sqrt(sum w) * max|x_j|`), or when its centered values are at most
