@@ -309,8 +309,8 @@ pub use ridge::{
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
 pub use state::{
-    BlockDiagnostics, CrossProductState, FitState, ManyTargets, ManyTargetsBuilder, SecondPass,
-    SharedSolver, StateLayout, StateRidgePath, TriangleState,
+    BlockDiagnostics, CrossProductState, FitState, ManyTargets, ManyTargetsBuilder,
+    ManyTargetsPass, SecondPass, SharedSolver, StateLayout, StateRidgePath, TriangleState,
 };
 #[cfg(feature = "serde")]
 pub use state::{StateData, STATE_FORMAT, STATE_VERSION};

@@ -99,7 +99,7 @@ mod wire;
 pub use cross::CrossProductState;
 pub use many::{absorb_rows, ManyTargets, ManyTargetsBuilder, SharedSolver, ABSORB_BLOCK_ROWS};
 pub use ridge::StateRidgePath;
-pub use second_pass::{BlockDiagnostics, SecondPass};
+pub use second_pass::{BlockDiagnostics, ManyTargetsPass, SecondPass};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
