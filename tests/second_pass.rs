@@ -280,32 +280,32 @@ fn check_blocks(
     let memory = Inference::new(&problem, &fit).expect("inference");
     let reference = memory.diagnostics(&problem).expect("diagnostics");
 
-    let lev: Vec<Option<f64>> = joined(&got, |d| d.leverage.iter().map(|&v| Some(v)).collect());
+    let lev: Vec<Option<f64>> = joined(got, |d| d.leverage.iter().map(|&v| Some(v)).collect());
     let ref_lev: Vec<Option<f64>> = reference.leverage.iter().map(|&v| Some(v)).collect();
     // Leverages lie in [0, 1]: digits on the scale 1; studentized values
     // on the scale of one standard deviation, Cook's distances on 1e-3
     // (their mean is k / n).
     close_opt("leverage", &lev, &ref_lev, 1.0);
-    let res = joined(&got, |d| d.residuals.iter().map(|&v| Some(v)).collect());
+    let res = joined(got, |d| d.residuals.iter().map(|&v| Some(v)).collect());
     let ref_res: Vec<Option<f64>> = reference.residuals.iter().map(|&v| Some(v)).collect();
     // A residual is a difference of targets: digits on the targets' scale.
     let y_scale = y.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     close_opt("residual", &res, &ref_res, y_scale);
     close_opt(
         "studentized",
-        &joined(&got, |d| d.studentized.clone()),
+        &joined(got, |d| d.studentized.clone()),
         &reference.studentized,
         1.0,
     );
     close_opt(
         "deleted studentized",
-        &joined(&got, |d| d.deleted_studentized.clone()),
+        &joined(got, |d| d.deleted_studentized.clone()),
         &reference.deleted_studentized,
         1.0,
     );
     close_opt(
         "Cook's distance",
-        &joined(&got, |d| d.cooks_distance.clone()),
+        &joined(got, |d| d.cooks_distance.clone()),
         &reference.cooks_distance,
         1e-3,
     );
