@@ -312,7 +312,8 @@ pub use ridge::{
 pub use solver::{Fit, FitReport, IterationReport, Solver};
 pub use solvers::{Cholesky, Qr, Refinement, Svd};
 pub use state::{
-    BlockDiagnostics, CrossProductState, FitState, SecondPass, StateLayout, TriangleState,
+    BlockDiagnostics, CrossProductState, FitState, ManyTargetsPass, SecondPass, StateLayout,
+    TriangleState,
 };
 #[cfg(feature = "serde")]
 pub use state::{StateData, STATE_FORMAT, STATE_VERSION};

@@ -135,26 +135,36 @@ impl TriangleState {
         options: InferenceOptions,
         meat: Option<MatRef<'_, f64>>,
     ) -> Result<Inference> {
-        let core = &self.core;
         let fits = self.finish_with(None).map_err(as_refusal)?;
+        let factor = self.design_factor(&[target])?;
+        factor.inference(&self.core, &fits, target, options, meat)
+    }
+
+    /// The design's factor `R11` and the slopes and norms of `targets`,
+    /// in the frame's units, after the rank checks of the finish.
+    pub(super) fn design_factor(&self, targets: &[usize]) -> Result<DesignFactor> {
         let (frame, rf, _) = self.factor(None).map_err(as_refusal)?;
-        let p = core.p;
-        let c = p + target;
-        let r11 = rf.as_ref().submatrix(0, 0, p, p);
-        let mut gamma: Vec<f64> = (0..p).map(|i| rf[(i, c)]).collect();
-        triangular::solve_upper(r11, &mut gamma);
-        let rnorm = norm((p..=c).map(|i| rf[(i, c)]));
-        let tnorm = norm((0..=c).map(|i| rf[(i, c)]));
-        core.inference_from(
-            &frame,
-            r11,
-            &gamma,
-            [rnorm, tnorm],
-            &fits,
-            target,
-            options,
-            meat,
-        )
+        let p = self.core.p;
+        let r = Mat::<f64>::from_fn(p, p, |i, j| rf[(i, j)]);
+        let solves = targets
+            .iter()
+            .map(|&t| {
+                let c = p + t;
+                let mut gamma: Vec<f64> = (0..p).map(|i| rf[(i, c)]).collect();
+                triangular::solve_upper(r.as_ref(), &mut gamma);
+                TargetSolve {
+                    target: t,
+                    gamma,
+                    rnorm: norm((p..=c).map(|i| rf[(i, c)])),
+                    tnorm: norm((0..=c).map(|i| rf[(i, c)])),
+                }
+            })
+            .collect();
+        Ok(DesignFactor {
+            frame,
+            r,
+            targets: solves,
+        })
     }
 }
 
@@ -186,33 +196,109 @@ impl CrossProductState {
     /// [`CrossProductState::finish_with`] ([`Error::IllConditioned`] among
     /// them).
     pub fn inference(&self, target: usize, options: InferenceOptions) -> Result<Inference> {
-        let core = &self.core;
-        core.check_inference(target, &options)?;
+        self.core.check_inference(target, &options)?;
+        self.inference_with(target, options, None)
+    }
+
+    /// [`CrossProductState::inference`] with the middle matrix of a
+    /// sandwich covariance that a second pass formed.
+    pub(crate) fn inference_with(
+        &self,
+        target: usize,
+        options: InferenceOptions,
+        meat: Option<MatRef<'_, f64>>,
+    ) -> Result<Inference> {
         let fits = self.finish_with(None, None).map_err(as_refusal)?;
+        let factor = self.design_factor(&[target])?;
+        factor.inference(&self.core, &fits, target, options, meat)
+    }
+
+    /// The factor `R = L^T` of the design's cross products and the slopes
+    /// and norms of `targets`, in the frame's units, after the checks of
+    /// the finish.
+    pub(super) fn design_factor(&self, targets: &[usize]) -> Result<DesignFactor> {
         let (frame, cf, l, _) = self.factor(None, None).map_err(as_refusal)?;
-        let p = core.p;
-        let c = p + target;
+        let p = self.core.p;
         let r = Mat::<f64>::from_fn(p, p, |i, j| l[(j, i)]);
-        let mut qty: Vec<f64> = (0..p).map(|i| cf[(i, c)]).collect();
-        triangular::solve_lower(l.as_ref(), &mut qty);
-        let mut acc = crate::scaled::Neumaier::default();
-        acc.add(cf[(c, c)]);
-        for v in &qty {
-            acc.add(-v * v);
-        }
-        let rnorm = acc.value().max(0.0).sqrt();
-        let tnorm = cf[(c, c)].max(0.0).sqrt();
-        let mut gamma = qty;
-        triangular::solve_upper(r.as_ref(), &mut gamma);
+        let solves = targets
+            .iter()
+            .map(|&t| {
+                let c = p + t;
+                let mut qty: Vec<f64> = (0..p).map(|i| cf[(i, c)]).collect();
+                triangular::solve_lower(l.as_ref(), &mut qty);
+                let mut acc = crate::scaled::Neumaier::default();
+                acc.add(cf[(c, c)]);
+                for v in &qty {
+                    acc.add(-v * v);
+                }
+                let rnorm = acc.value().max(0.0).sqrt();
+                let tnorm = cf[(c, c)].max(0.0).sqrt();
+                let mut gamma = qty;
+                triangular::solve_upper(r.as_ref(), &mut gamma);
+                TargetSolve {
+                    target: t,
+                    gamma,
+                    rnorm,
+                    tnorm,
+                }
+            })
+            .collect();
+        Ok(DesignFactor {
+            frame,
+            r,
+            targets: solves,
+        })
+    }
+}
+
+/// What inference and the second pass take from a finished state: the
+/// frame, the `p x p` upper-triangular factor of the centered, weighted
+/// design (the triangle's `R11`, or `L^T` of the cross products'
+/// Cholesky factor) and, for each target asked for, its solve.
+pub(super) struct DesignFactor {
+    pub frame: Frame,
+    pub r: Mat<f64>,
+    pub targets: Vec<TargetSolve>,
+}
+
+/// One target's slopes (`R gamma = Q^T t`) and residual and total norms,
+/// in the frame's units.
+pub(super) struct TargetSolve {
+    pub target: usize,
+    pub gamma: Vec<f64>,
+    pub rnorm: f64,
+    pub tnorm: f64,
+}
+
+impl DesignFactor {
+    /// The inference of `target` (which must be among the factor's
+    /// targets) from the state's `fits`.
+    fn inference(
+        &self,
+        core: &Core,
+        fits: &[Fit],
+        target: usize,
+        options: InferenceOptions,
+        meat: Option<MatRef<'_, f64>>,
+    ) -> Result<Inference> {
+        let solve =
+            self.targets
+                .iter()
+                .find(|s| s.target == target)
+                .ok_or(Error::InvalidParameter {
+                    name: "target",
+                    value: target as f64,
+                    reason: "beyond the state's targets",
+                })?;
         core.inference_from(
-            &frame,
-            r.as_ref(),
-            &gamma,
-            [rnorm, tnorm],
-            &fits,
+            &self.frame,
+            self.r.as_ref(),
+            &solve.gamma,
+            [solve.rnorm, solve.tnorm],
+            fits,
             target,
             options,
-            None,
+            meat,
         )
     }
 }

@@ -52,7 +52,20 @@
 //! [`CrossProductState::inference`] give the classical [`crate::Inference`]
 //! of one target (standard errors, intervals, R², the F test, the
 //! log-likelihood) without the rows; a sandwich covariance needs them
-//! again and is refused.
+//! again and is refused there.
+//!
+//! **Second pass.** What needs the rows again is a blockwise second pass
+//! over the same rows in the same order (block sizes free): per-row
+//! leverage, residuals, studentized and deleted studentized residuals,
+//! Cook's distances and leave-one-out residuals ([`BlockDiagnostics`]),
+//! then the inference with any covariance, HC0-HC3 included. Both kinds
+//! of state offer it, through one engine that reads the state's triangular
+//! factor (the triangle's `R`, or `L^T` of the cross products' Cholesky
+//! factor): [`TriangleState::second_pass`] and
+//! [`CrossProductState::second_pass`] give a [`SecondPass`] for one
+//! target; `second_pass_many` gives a [`ManyTargetsPass`] serving every
+//! target in one read of the rows (the leverage once, the rest per
+//! target).
 //!
 //! **Penalty path.** [`TriangleState::ridge_path`] gives a
 //! [`StateRidgePath`]: ridge fits, effective degrees of freedom, residual
@@ -96,7 +109,7 @@ pub(crate) mod triangle;
 mod wire;
 
 pub use cross::CrossProductState;
-pub use second_pass::{BlockDiagnostics, SecondPass};
+pub use second_pass::{BlockDiagnostics, ManyTargetsPass, SecondPass};
 pub use triangle::TriangleState;
 #[cfg(feature = "serde")]
 pub use wire::{StateData, STATE_FORMAT, STATE_VERSION};
