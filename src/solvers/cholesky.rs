@@ -201,10 +201,10 @@ const CROSS_PRODUCT_RSS_DIGITS: f64 = 3.0;
 /// digits lost when `rss` is formed as `tss` minus the explained part
 /// (infinite for a zero `rss` beside a positive `tss`, 0 for a zero `tss`).
 fn cancellation_digits((rm, re): (f64, i32), (tm, te): (f64, i32)) -> f64 {
-    if !(tm > 0.0) {
+    if tm.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
         return 0.0;
     }
-    if !(rm > 0.0) {
+    if rm.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
         return f64::INFINITY;
     }
     (tm / rm).log10() + f64::from(te - re) * std::f64::consts::LOG10_2
