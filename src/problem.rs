@@ -14,8 +14,13 @@ use crate::linalg::extended::Accumulator;
 use crate::linalg::kernels::{self, ColumnSummary};
 use crate::scaled::Neumaier;
 
-/// Rows per chunk in the parallel passes over the design.
-pub(crate) const STATS_CHUNK: usize = 4096;
+/// Rows per chunk of the validation pass and of the passes over a
+/// problem's rows that keep one number per row (extended-precision
+/// residuals): the crate's one block size, [`crate::linalg::block_rows`],
+/// for rows of `p + 1` numbers.
+pub(crate) fn row_chunk(p: usize) -> usize {
+    crate::linalg::block_rows(p + 1)
+}
 
 /// A validated weighted least-squares problem.
 ///
@@ -573,14 +578,15 @@ fn compute_stats(
     intercept: bool,
 ) -> Result<Stats> {
     let (n, p) = x.dim();
-    let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();
+    let chunk = row_chunk(p);
+    let chunks: Vec<usize> = (0..n.div_ceil(chunk)).collect();
     // Each chunk scans its rows in order, so the first error of the lowest
     // chunk is the first error in row-major order.
     let partials: Vec<std::result::Result<Partial, Error>> = chunks
         .par_iter()
         .map(|&c| {
-            let r0 = c * STATS_CHUNK;
-            let r1 = (r0 + STATS_CHUNK).min(n);
+            let r0 = c * chunk;
+            let r1 = (r0 + chunk).min(n);
             if let Some(part) = fast_chunk(x, y, w, weight_scale, r0, r1) {
                 return Ok(part);
             }
@@ -806,12 +812,13 @@ fn scaled_sums(
     let n = x.nrows();
     let inv: Vec<f64> = cols.iter().map(|&j| 1.0 / col_scale[j]).collect();
     let inv_y = 1.0 / y_scale;
-    let parts: Vec<(Vec<Neumaier>, Neumaier)> = (0..n.div_ceil(STATS_CHUNK))
+    let chunk = row_chunk(x.ncols());
+    let parts: Vec<(Vec<Neumaier>, Neumaier)> = (0..n.div_ceil(chunk))
         .into_par_iter()
         .map(|c| {
             let mut acc = vec![Neumaier::default(); cols.len()];
             let mut yacc = Neumaier::default();
-            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
+            for i in c * chunk..((c + 1) * chunk).min(n) {
                 let wi = w.map_or(1.0, |w| w[i] / weight_scale);
                 if wi == 0.0 {
                     continue;
@@ -848,11 +855,12 @@ pub(crate) fn centered_target_sum_of_squares(problem: &Problem<'_>, inv_target_s
     let ym = problem.stats.target_mean;
     let a = inv_target_scale;
     let n = problem.rows();
-    let parts: Vec<Accumulator> = (0..n.div_ceil(STATS_CHUNK))
+    let chunk = row_chunk(problem.columns());
+    let parts: Vec<Accumulator> = (0..n.div_ceil(chunk))
         .into_par_iter()
         .map(|c| {
             let mut acc = Accumulator::default();
-            for i in c * STATS_CHUNK..((c + 1) * STATS_CHUNK).min(n) {
+            for i in c * chunk..((c + 1) * chunk).min(n) {
                 let w = problem.scaled_weight(i);
                 if w != 0.0 {
                     let d = (y[i] - ym) * a;

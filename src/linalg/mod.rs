@@ -54,10 +54,11 @@ pub(crate) fn as_faer_mut(x: &mut ndarray::Array2<f64>) -> faer::MatMut<'_, f64>
     unsafe { faer::MatMut::from_raw_parts_mut(x.as_mut_ptr(), n, p, rs, cs) }
 }
 
-/// Bytes of one block of rows: every pass that fills or forms a block of
-/// `k` numbers per row (the Gram, QR, leverage and leave-one-out passes,
-/// the gradient passes' partition, the column blocks of the wide-design
-/// products) sizes it by this many bytes, so that it stays in a core's
+/// Bytes of one block of rows: the crate's one block size. Every pass over
+/// rows (the validation pass, the Gram, QR, residual, leverage and
+/// leave-one-out passes, the gradient passes' partition and mini-batch
+/// chunks, the column blocks of the wide-design products) cuts its rows, of
+/// `k` numbers each, into blocks of [`block_rows`]`(k)` rows, so that it stays in a core's
 /// second-level cache and the memory of a pass does not grow with the
 /// width of the design faster than its own `k x k` results.
 pub(crate) const BLOCK_BYTES: usize = 1 << 19;

@@ -20,8 +20,6 @@ use crate::problem::Problem;
 const GRAM_BUDGET: usize = 1 << 28;
 /// Most groups (accumulators) used by [`row_gram`].
 const MAX_GRAM_GROUPS: usize = 4;
-/// Columns per parallel chunk in [`transpose_times`].
-const COLUMN_CHUNK: usize = 256;
 
 /// The row Gram matrix of the usable rows and the matching target.
 pub(crate) struct RowGram {
@@ -175,12 +173,15 @@ pub(crate) fn transpose_times(
         .zip(v)
         .map(|(&i, vi)| problem.scaled_weight(i).sqrt() * vi)
         .collect();
-    let chunks: Vec<usize> = (0..p.div_ceil(COLUMN_CHUNK)).collect();
+    // Columns per parallel chunk: the crate's one block size, a column of
+    // the design holding one number per listed row.
+    let per = crate::linalg::block_rows(rows.len());
+    let chunks: Vec<usize> = (0..p.div_ceil(per)).collect();
     let parts: Vec<Vec<f64>> = chunks
         .par_iter()
         .map(|&c| {
-            let c0 = c * COLUMN_CHUNK;
-            let c1 = (c0 + COLUMN_CHUNK).min(p);
+            let c0 = c * per;
+            let c1 = (c0 + per).min(p);
             let mut acc = vec![0.0; c1 - c0];
             if watch.is_some_and(|w| !w.go_on()) {
                 return acc;

@@ -12,7 +12,7 @@ use rayon::prelude::*;
 use crate::error::Result;
 use crate::linalg::extended::Accumulator;
 use crate::observe::Watch;
-use crate::problem::{Problem, STATS_CHUNK};
+use crate::problem::{row_chunk, Problem};
 
 /// The exact power-of-two multipliers applied to the data on the way in.
 #[derive(Debug, Clone)]
@@ -58,13 +58,13 @@ pub(crate) fn residuals(
     let x = problem.design();
     let y = problem.target();
     let mut out = vec![0.0; problem.rows()];
-    out.par_chunks_mut(STATS_CHUNK)
+    out.par_chunks_mut(row_chunk(problem.columns()))
         .enumerate()
         .for_each(|(c, chunk)| {
             if !watch.go_on() {
                 return;
             }
-            let r0 = c * STATS_CHUNK;
+            let r0 = c * row_chunk(problem.columns());
             for (k, o) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 *o = row_residual(x.index_axis(Axis(0), i), y[i], units, b0, beta, 0.0);
@@ -78,10 +78,10 @@ pub(crate) fn residuals(
 /// Weighted sum of squares `sum_i w~_i r_i^2` (scaled weights), compensated.
 pub(crate) fn weighted_sum_of_squares(problem: &Problem<'_>, r: &[f64]) -> f64 {
     let parts: Vec<Accumulator> = r
-        .par_chunks(STATS_CHUNK)
+        .par_chunks(row_chunk(problem.columns()))
         .enumerate()
         .map(|(c, chunk)| {
-            let r0 = c * STATS_CHUNK;
+            let r0 = c * row_chunk(problem.columns());
             let mut acc = Accumulator::default();
             for (k, &v) in chunk.iter().enumerate() {
                 let w = problem.scaled_weight(r0 + k);
@@ -155,10 +155,10 @@ pub(crate) fn defects(
     let means = &problem.stats.means;
     let mut f = vec![0.0; problem.rows()];
     let parts: Vec<DefectPart> = f
-        .par_chunks_mut(STATS_CHUNK)
+        .par_chunks_mut(row_chunk(problem.columns()))
         .enumerate()
         .map(|(c, chunk)| {
-            let r0 = c * STATS_CHUNK;
+            let r0 = c * row_chunk(problem.columns());
             let mut part = DefectPart {
                 weighted_f: Accumulator::default(),
                 g0: Accumulator::default(),
@@ -233,13 +233,13 @@ pub(crate) fn update_residuals(
 ) -> Result<()> {
     let x = problem.design();
     let means = &problem.stats.means;
-    e.par_chunks_mut(STATS_CHUNK)
+    e.par_chunks_mut(row_chunk(problem.columns()))
         .enumerate()
         .for_each(|(ci, chunk)| {
             if !watch.go_on() {
                 return;
             }
-            let r0 = ci * STATS_CHUNK;
+            let r0 = ci * row_chunk(problem.columns());
             for (k, ei) in chunk.iter_mut().enumerate() {
                 let i = r0 + k;
                 let row = x.index_axis(Axis(0), i);

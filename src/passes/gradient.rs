@@ -44,9 +44,6 @@ pub(crate) struct Pass {
     pub sq: f64,
 }
 
-/// Rows handled together by one sequential unit of a mini-batch pass.
-const ROW_CHUNK: usize = 1024;
-
 /// Rows per block of the partition (and of a column-major pass's residual
 /// vectors): [`crate::linalg::block_rows`].
 fn block_len(p: usize) -> usize {
@@ -133,7 +130,8 @@ pub(crate) fn residual_pass(
 }
 
 /// Residual pass over the listed rows only (a mini-batch), in the order
-/// given. The rows are cut into fixed chunks of [`ROW_CHUNK`], processed in
+/// given. The rows are cut into fixed chunks of
+/// [`crate::linalg::block_rows`] rows (for rows of `p + 1` numbers), processed in
 /// parallel when there are several, and added in chunk order: the result
 /// depends on the row list only.
 pub(crate) fn residual_rows(
@@ -165,10 +163,11 @@ pub(crate) fn residual_rows(
         }
         out
     };
-    if rows.len() <= ROW_CHUNK {
+    let chunk = crate::linalg::block_rows(p + 1);
+    if rows.len() <= chunk {
         return run(rows);
     }
-    let partials: Vec<Pass> = rows.par_chunks(ROW_CHUNK).map(run).collect();
+    let partials: Vec<Pass> = rows.par_chunks(chunk).map(run).collect();
     combine(partials, p)
 }
 

@@ -6,7 +6,7 @@ use rayon::prelude::*;
 use crate::error::Result;
 use crate::linalg::kernels;
 use crate::observe::Watch;
-use crate::problem::{Problem, STATS_CHUNK};
+use crate::problem::{row_chunk, Problem};
 
 /// Weighted residual sum of squares of the centered problem for slopes
 /// `beta` (caller's units), in scaled units:
@@ -34,12 +34,13 @@ pub(crate) fn centered_rss(
     let p = problem.columns();
     let inv = 1.0 / scale;
     let beta = &beta[..p];
-    let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();
+    let chunk = row_chunk(problem.columns());
+    let chunks: Vec<usize> = (0..n.div_ceil(chunk)).collect();
     let parts: Vec<f64> = chunks
         .par_iter()
         .map(|&c| {
-            let r0 = c * STATS_CHUNK;
-            let r1 = (r0 + STATS_CHUNK).min(n);
+            let r0 = c * chunk;
+            let r1 = (r0 + chunk).min(n);
             if !watch.go_on() {
                 return 0.0;
             }
@@ -147,12 +148,13 @@ fn chunk_rss(problem: &Problem<'_>, beta: &[f64], inv: f64, r0: usize, r1: usize
 pub(crate) fn design_sum(problem: &Problem<'_>) -> f64 {
     let x = problem.design();
     let n = problem.rows();
-    let chunks: Vec<usize> = (0..n.div_ceil(STATS_CHUNK)).collect();
+    let chunk = row_chunk(problem.columns());
+    let chunks: Vec<usize> = (0..n.div_ceil(chunk)).collect();
     chunks
         .par_iter()
         .map(|&c| {
-            let r0 = c * STATS_CHUNK;
-            let r1 = (r0 + STATS_CHUNK).min(n);
+            let r0 = c * chunk;
+            let r1 = (r0 + chunk).min(n);
             let xb = x.slice(s![r0..r1, ..]);
             kernels::dispatch(
                 #[inline(always)]
