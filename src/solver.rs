@@ -394,17 +394,9 @@ pub(crate) fn rss_exponent(problem: &Problem<'_>, target_exp: i32) -> i32 {
 
 /// The residual standard error and R² of a fit whose weighted residual sum
 /// of squares is `m 2^e` (caller's units), with `residual_df` degrees of
-/// freedom: see [`FitReport::sigma`] and [`FitReport::r_squared`].
-pub(crate) fn spread_measures(
-    problem: &Problem<'_>,
-    rss: (f64, i32),
-    residual_df: Option<usize>,
-) -> (Option<f64>, Option<f64>) {
-    spread_from(rss, problem.centered_target_squares(), residual_df)
-}
-
-/// [`spread_measures`] with the centered total sum of squares of the
-/// target given as `(tm, te)` (value `tm 2^te`, caller's units).
+/// freedom, and the centered total sum of squares of the target given as
+/// `(tm, te)` (value `tm 2^te`, same units): see [`FitReport::sigma`] and
+/// [`FitReport::r_squared`].
 fn spread_from(
     (m, e): (f64, i32),
     (tm, te): (f64, i32),
@@ -482,14 +474,14 @@ pub(crate) struct Solved {
     pub penalty: f64,
 }
 
-/// The one way every closed-form fit, in memory or from a fit state,
-/// becomes a [`Fit`]: refuses non-finite numbers with
+/// The one way every fit, in memory or from a fit state, closed-form or
+/// iterative (which adds its iteration report), becomes a [`Fit`]: refuses non-finite numbers with
 /// [`Error::Overflow`], and derives the residual degrees of freedom, the
 /// residual standard error and R² from the scaled sums of squares.
 pub(crate) fn assemble(
     origin: &Origin<'_>,
     solver: &str,
-    factorization: &str,
+    factorization: Option<&str>,
     solved: Solved,
 ) -> Result<Fit> {
     if solved.beta.iter().any(|b| !b.is_finite()) {
@@ -534,7 +526,7 @@ pub(crate) fn assemble(
             r_squared,
             usable_rows: origin.usable_rows,
             penalty: solved.penalty,
-            factorization: Some(factorization.to_string()),
+            factorization: factorization.map(str::to_string),
             iterations: None,
             fingerprint: origin.fingerprint,
         },
@@ -620,7 +612,7 @@ fn finish_parts(
         tss: problem.centered_target_squares(),
         penalty,
     };
-    assemble(&Origin::of(problem), solver, factorization, solved)
+    assemble(&Origin::of(problem), solver, Some(factorization), solved)
 }
 
 /// The intercept `mean(y) - mean(x) . beta` (0 without an intercept).

@@ -117,7 +117,7 @@ use crate::observe::{Control, Stage, Watch};
 use crate::passes::gradient::{column_norms, max_row_norm, residual_pass, residual_rows, Pass};
 use crate::prep::Scaling;
 use crate::problem::Problem;
-use crate::solver::{intercept_for, Fit, FitReport, IterationReport};
+use crate::solver::{intercept_for, Fit, IterationReport};
 
 /// Columns whose power-of-two scale lies beyond `2^±480` are scaled inside
 /// the passes (see [`Objective`]).
@@ -646,49 +646,37 @@ pub(crate) fn finish(
             what: "coefficient vector",
         });
     }
-    let intercept = intercept_for(problem, &beta);
-    if !intercept.is_finite() {
-        return Err(Error::Overflow { what: "intercept" });
-    }
-    let rss = crate::solver::caller_rss(problem, objective.loss_exp / 2, outcome.eval.sq)?;
-    let rss_parts = (
-        outcome.eval.sq,
-        crate::solver::rss_exponent(problem, objective.loss_exp / 2),
-    );
-    // No rank, so no residual degrees of freedom and no sigma.
-    let (_, r_squared) = crate::solver::spread_measures(problem, rss_parts, None);
     if !final_loss.is_finite() || history.iter().any(|l| !l.is_finite()) {
         return Err(Error::Overflow { what: "loss" });
     }
-    Ok(Fit {
-        model: LinearModel::fitted(problem.names(), ndarray::Array1::from(beta), intercept),
-        report: FitReport {
-            solver: name.to_string(),
-            // Nothing is factored: the rank and condition are not measured.
-            rank: None,
-            columns: problem.columns(),
-            condition: None,
-            residual_sum_of_squares: rss,
-            residual_df: None,
-            sigma: None,
-            r_squared,
-            usable_rows: problem.usable_rows(),
-            fingerprint: problem.fingerprint(),
-            penalty: common.penalty,
-            factorization: None,
-            iterations: Some(IterationReport {
-                iterations,
-                converged: outcome.converged,
-                stopped_by_observer: stopped,
-                final_loss,
-                gradient_norm,
-                step: outcome.step,
-                loss_history: history,
-                passes: objective.passes,
-                restarts: outcome.restarts,
-            }),
-        },
-    })
+    let solved = crate::solver::Solved {
+        intercept: intercept_for(problem, &beta),
+        beta,
+        // Nothing is factored: the rank and condition are not measured (so
+        // no residual degrees of freedom and no sigma).
+        rank: None,
+        condition: None,
+        rss: (
+            outcome.eval.sq,
+            crate::solver::rss_exponent(problem, objective.loss_exp / 2),
+        ),
+        tss: problem.centered_target_squares(),
+        penalty: common.penalty,
+    };
+    let origin = crate::solver::Origin::of(problem);
+    let mut fit = crate::solver::assemble(&origin, name, None, solved)?;
+    fit.report.iterations = Some(IterationReport {
+        iterations,
+        converged: outcome.converged,
+        stopped_by_observer: stopped,
+        final_loss,
+        gradient_norm,
+        step: outcome.step,
+        loss_history: history,
+        passes: objective.passes,
+        restarts: outcome.restarts,
+    });
+    Ok(fit)
 }
 
 /// Shared start of every fit: the objective, the starting point, its

@@ -178,7 +178,7 @@ impl Solver for Cholesky {
         // kept when that is at most three (R² up to 0.999), else formed
         // again by a pass over the rows, which keeps every digit.
         if cancellation_digits(solved.rss, solved.tss) <= CROSS_PRODUCT_RSS_DIGITS {
-            return assemble(&Origin::of(problem), "cholesky", "cholesky", solved);
+            return assemble(&Origin::of(problem), "cholesky", Some("cholesky"), solved);
         }
         finish_closed_form(
             problem,

@@ -170,7 +170,7 @@ impl Solver for Qr {
         let Some(settings) = &self.refinement else {
             // The residual sum of squares is the triangle's: no pass over
             // the rows.
-            return assemble(&Origin::of(problem), "qr", "qr", solved);
+            return assemble(&Origin::of(problem), "qr", Some("qr"), solved);
         };
         let r11: Mat<f64> = rf.as_ref().submatrix(0, 0, p, p).to_owned();
         let refined = refine(

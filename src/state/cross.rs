@@ -196,7 +196,12 @@ impl CrossProductState {
         (0..self.core.k)
             .map(|t| {
                 let solved = self.solve(&frame, &cf, &l, condition, t);
-                assemble(&self.core.origin(), "cholesky-state", "cholesky", solved)
+                assemble(
+                    &self.core.origin(),
+                    "cholesky-state",
+                    Some("cholesky"),
+                    solved,
+                )
             })
             .collect()
     }

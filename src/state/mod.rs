@@ -20,6 +20,14 @@
 //!   equations ([`crate::Cholesky`]); it refuses to finish when too few
 //!   digits would survive.
 //!
+//! **One path.** A block given to [`FitState::absorb`] is validated and
+//! summarised by the parallel pass of a [`crate::Problem`], reduced by the
+//! in-memory solvers' own parallel row pass (a fixed partition and fold
+//! tree: the same bits for any thread count) and folded in; the in-memory
+//! [`crate::Qr`] and [`crate::Cholesky`] are this path with the whole
+//! problem as one block, finished as the states finish. Absorbing a large
+//! block costs about what the in-memory fit of the same rows costs.
+//!
 //! Both keep the total weight, the weighted means of the columns and
 //! targets, and each column's extremes; their size is `O((p + k)^2)`,
 //! whatever the number of rows. Two states with different means merge
@@ -708,7 +716,7 @@ impl Core {
         penalty: f64,
     ) -> Result<Fit> {
         let solved = self.solved(frame, t, beta, rank, condition, rss, tss, penalty);
-        assemble(&self.origin(), solver, factorization, solved)
+        assemble(&self.origin(), solver, Some(factorization), solved)
     }
 }
 

@@ -193,7 +193,7 @@ impl TriangleState {
         (0..self.core.k)
             .map(|t| {
                 let solved = self.solve(&frame, &rf, condition, t);
-                assemble(&self.core.origin(), "qr-state", "qr", solved)
+                assemble(&self.core.origin(), "qr-state", Some("qr"), solved)
             })
             .collect()
     }
