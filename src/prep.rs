@@ -340,41 +340,32 @@ pub(crate) fn fill_tail(
     mut out: MatMut<'_, f64>,
 ) {
     let p = problem.columns();
-    match tail {
-        Tail::None => fill_block(problem, scaling, r0, r1, false, out),
-        Tail::Target => fill_block(problem, scaling, r0, r1, true, out),
-        Tail::Vector(v, inv_scale) => {
-            fill_block(
-                problem,
-                scaling,
-                r0,
-                r1,
-                false,
-                out.rb_mut().subcols_mut(0, p),
-            );
-            for (local, i) in (r0..r1).enumerate() {
-                out[(local, p)] = problem.scaled_weight(i).sqrt() * (v[i] * inv_scale);
-            }
-        }
-        Tail::Targets(t) => {
-            fill_block(
-                problem,
-                scaling,
-                r0,
-                r1,
-                false,
-                out.rb_mut().subcols_mut(0, p),
-            );
-            for (c, ((y, &m), &inv)) in
-                t.ys.columns()
-                    .into_iter()
-                    .zip(t.means)
-                    .zip(t.inv)
-                    .enumerate()
-            {
-                for (local, i) in (r0..r1).enumerate() {
+    let after = match tail {
+        Tail::None => return fill_block(problem, scaling, r0, r1, false, out),
+        Tail::Target => return fill_block(problem, scaling, r0, r1, true, out),
+        Tail::Vector(..) | Tail::Targets(_) => tail,
+    };
+    fill_block(
+        problem,
+        scaling,
+        r0,
+        r1,
+        false,
+        out.rb_mut().subcols_mut(0, p),
+    );
+    for (local, i) in (r0..r1).enumerate() {
+        let sw = problem.scaled_weight(i).sqrt();
+        match after {
+            Tail::Vector(v, inv_scale) => out[(local, p)] = sw * (v[i] * inv_scale),
+            Tail::Targets(t) => {
+                for (c, ((y, &m), &inv)) in
+                    t.ys.columns()
+                        .into_iter()
+                        .zip(t.means)
+                        .zip(t.inv)
+                        .enumerate()
+                {
                     // Rows of weight zero stay exact zeros (see `fill_block`).
-                    let sw = problem.scaled_weight(i).sqrt();
                     out[(local, p + c)] = if sw == 0.0 {
                         0.0
                     } else {
@@ -382,6 +373,7 @@ pub(crate) fn fill_tail(
                     };
                 }
             }
+            Tail::None | Tail::Target => {}
         }
     }
 }

@@ -7,14 +7,14 @@ use ndarray::{ArrayView1, ArrayView2};
 use super::{check_tolerance, shift_columns, Combined, Core, FitState, StateLayout};
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky as chol, triangular};
-use crate::observe::{Stage, Watch};
+use crate::observe::Watch;
 use crate::passes::gram::centered_gram_with;
 use crate::prep::{Scaling, Tail};
 use crate::problem::Problem;
 use crate::scaled::{ldexp, Neumaier};
 use crate::solver::{assemble, Fit, Solved};
 
-use super::rows::{Block, Prepared, TargetSummary};
+use super::rows::{reduce_block, TargetSummary};
 
 /// A mergeable fit state holding the centered cross-product matrix
 /// `C = sum_i w_i (z_i - m)(z_i - m)^T` of the rows `z_i = (x_i, y_i)`
@@ -268,17 +268,8 @@ impl FitState for CrossProductState {
         w: Option<ArrayView1<'_, f64>>,
         observer: &dyn crate::Observer,
     ) -> Result<()> {
-        let names = self.core.names.clone();
-        let named = |e: Error| e.name_columns(names.as_deref());
-        match Block::prepare(&self.core, x, y, w).map_err(named)? {
-            Prepared::Empty(core) => self.fold(&core, &Mat::zeros(0, 0)),
-            Prepared::Rows(block) => {
-                let watch = Watch::new(observer);
-                watch.begin(Stage::Factor, block.problem.rows());
-                let c = centered_gram_with(&block.problem, &block.scaling, block.tail(), &watch)?;
-                self.fold(&block.core, &c);
-            }
-        }
+        let (core, m) = reduce_block(&self.core, x, y, w, observer, centered_gram_with)?;
+        self.fold(&core, &m);
         Ok(())
     }
 

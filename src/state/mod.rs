@@ -807,35 +807,5 @@ pub fn absorb_rows<S: FitState>(
     w: Option<ArrayView1<'_, f64>>,
     observer: &dyn Observer,
 ) -> Result<()> {
-    let layout = state.layout();
-    let n = x.nrows();
-    if x.ncols() != layout.columns {
-        return Err(Error::ColumnCountMismatch {
-            expected: layout.columns,
-            found: x.ncols(),
-        });
-    }
-    if ys.nrows() != n {
-        return Err(Error::LengthMismatch {
-            input: Input::Target,
-            design_rows: n,
-            len: ys.nrows(),
-        });
-    }
-    if ys.ncols() != layout.targets {
-        return Err(Error::TargetCountMismatch {
-            expected: layout.targets,
-            found: ys.ncols(),
-        });
-    }
-    if let Some(w) = &w {
-        if w.len() != n {
-            return Err(Error::LengthMismatch {
-                input: Input::Weights,
-                design_rows: n,
-                len: w.len(),
-            });
-        }
-    }
     state.absorb_observed(x, ys, w, observer)
 }

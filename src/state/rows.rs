@@ -9,8 +9,11 @@
 
 use ndarray::{ArrayView1, ArrayView2, Axis};
 
+use faer::Mat;
+
 use super::Core;
 use crate::error::{Error, Input, Result};
+use crate::observe::{Stage, Watch};
 use crate::prep::{Scaling, Tail, TargetColumns};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp, pow2_scale, Neumaier};
@@ -268,5 +271,33 @@ impl<'a> Block<'a> {
             targets,
             core,
         })))
+    }
+}
+
+/// Validates and summarises a block for a state whose core is `state`,
+/// then reduces its rows with `pass` (the state kind's row pass, reporting
+/// each row block to `observer`): the block's core and matrix, for the
+/// state to fold in (an empty matrix when no row is usable, which the fold
+/// never reads).
+///
+/// # Errors
+/// As [`crate::FitState::absorb`], with column names; [`Error::Stopped`].
+pub(crate) fn reduce_block<'a>(
+    state: &Core,
+    x: ArrayView2<'a, f64>,
+    ys: ArrayView2<'a, f64>,
+    w: Option<ArrayView1<'a, f64>>,
+    observer: &dyn crate::Observer,
+    pass: impl FnOnce(&Problem<'_>, &Scaling, Tail<'_>, &Watch<'_>) -> Result<Mat<f64>>,
+) -> Result<(Core, Mat<f64>)> {
+    let named = |e: Error| e.name_columns(state.names.as_deref());
+    match Block::prepare(state, x, ys, w).map_err(named)? {
+        Prepared::Empty(core) => Ok((core, Mat::zeros(0, 0))),
+        Prepared::Rows(block) => {
+            let watch = Watch::new(observer);
+            watch.begin(Stage::Factor, block.problem.rows());
+            let m = pass(&block.problem, &block.scaling, block.tail(), &watch)?;
+            Ok((block.core, m))
+        }
     }
 }

@@ -8,14 +8,14 @@ use super::{check_tolerance, shift_columns, Combined, Core, FitState, Frame, Sta
 use crate::error::{Error, Result};
 use crate::linalg::qr::{row_stride, stacked_qr, StackedQrWork};
 use crate::linalg::triangular;
-use crate::observe::{Stage, Watch};
+use crate::observe::Watch;
 use crate::passes::qr::tall_skinny_r_with;
 use crate::prep::{Scaling, Tail};
 use crate::problem::Problem;
 use crate::scaled::ldexp;
 use crate::solver::{assemble, Fit, Solved};
 
-use super::rows::{Block, Prepared, TargetSummary};
+use super::rows::{reduce_block, TargetSummary};
 
 /// A mergeable fit state holding the triangular factor `R` (`(p + k)`
 /// square, upper triangular) of a QR of the rows
@@ -442,17 +442,8 @@ impl FitState for TriangleState {
         w: Option<ArrayView1<'_, f64>>,
         observer: &dyn crate::Observer,
     ) -> Result<()> {
-        let names = self.core.names.clone();
-        let named = |e: Error| e.name_columns(names.as_deref());
-        match Block::prepare(&self.core, x, y, w).map_err(named)? {
-            Prepared::Empty(core) => self.fold(&core, &Mat::zeros(0, 0)),
-            Prepared::Rows(block) => {
-                let watch = Watch::new(observer);
-                watch.begin(Stage::Factor, block.problem.rows());
-                let r = tall_skinny_r_with(&block.problem, &block.scaling, block.tail(), &watch)?;
-                self.fold(&block.core, &r);
-            }
-        }
+        let (core, m) = reduce_block(&self.core, x, y, w, observer, tall_skinny_r_with)?;
+        self.fold(&core, &m);
         Ok(())
     }
 
