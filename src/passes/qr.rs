@@ -64,8 +64,10 @@ fn factor_r(
     let ld = row_stride(k);
     let b = qr_block_rows(k);
     // Folding two triangles costs about as much as factoring `k` rows, so
-    // every group gets at least `8 k` rows (a wide design gets one group).
-    let max_groups = accumulator_groups(problem.rows(), k).min(QR_GROUPS);
+    // every group gets at least `64 k` rows (merges then cost under 2% of
+    // the pass; a fit state's block of a few thousand rows, or a wide
+    // design, gets one group).
+    let max_groups = accumulator_groups(problem.rows() / 8, k).min(QR_GROUPS);
     let groups = block_groups(problem.rows(), b, max_groups);
     // A column-major design is read column by column into a column-major
     // block; any other layout row by row into a row-major block.
