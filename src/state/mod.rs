@@ -76,7 +76,7 @@
 //! target).
 //!
 //! **Penalty path.** [`TriangleState::ridge_path`] gives a
-//! [`StateRidgePath`]: ridge fits, effective degrees of freedom, residual
+//! [`crate::StateRidgePath`]: ridge fits, effective degrees of freedom, residual
 //! sums of squares and generalized cross-validation at any penalty, from
 //! one SVD of the state's triangle; the leave-one-out criterion needs the
 //! rows and is refused.
