@@ -582,47 +582,52 @@ fn compute_stats(
     let chunks: Vec<usize> = (0..n.div_ceil(chunk)).collect();
     // Each chunk scans its rows in order, so the first error of the lowest
     // chunk is the first error in row-major order.
-    let partials: Vec<std::result::Result<Partial, Error>> = chunks
-        .par_iter()
-        .map(|&c| {
-            let r0 = c * chunk;
-            let r1 = (r0 + chunk).min(n);
-            if let Some(part) = fast_chunk(x, y, w, weight_scale, r0, r1) {
-                return Ok(part);
+    let scan = |&c: &usize| {
+        let r0 = c * chunk;
+        let r1 = (r0 + chunk).min(n);
+        if let Some(part) = fast_chunk(x, y, w, weight_scale, r0, r1) {
+            return Ok(part);
+        }
+        let mut part = Partial::new(p);
+        for i in r0..r1 {
+            let row = x.index_axis(Axis(0), i);
+            for (j, &v) in row.iter().enumerate() {
+                if !v.is_finite() {
+                    return Err(Error::NonFinite {
+                        input: Input::Design,
+                        row: i,
+                        column: Some(j),
+                        column_name: None,
+                        value: v,
+                    });
+                }
+                part.all_min[j] = part.all_min[j].min(v);
+                part.all_max[j] = part.all_max[j].max(v);
             }
-            let mut part = Partial::new(p);
-            for i in r0..r1 {
-                let row = x.index_axis(Axis(0), i);
-                for (j, &v) in row.iter().enumerate() {
-                    if !v.is_finite() {
-                        return Err(Error::NonFinite {
-                            input: Input::Design,
-                            row: i,
-                            column: Some(j),
-                            column_name: None,
-                            value: v,
-                        });
-                    }
-                    part.all_min[j] = part.all_min[j].min(v);
-                    part.all_max[j] = part.all_max[j].max(v);
-                }
-                let c = row_multiplier(i);
-                for (j, &v) in row.iter().enumerate() {
-                    part.mix[j] += c * v;
-                }
-                let wi = w.map_or(1.0, |w| w[i] / weight_scale);
-                if wi != 0.0 {
-                    for (j, &v) in row.iter().enumerate() {
-                        part.sums[j].add(wi * v);
-                        part.min[j] = part.min[j].min(v);
-                        part.max[j] = part.max[j].max(v);
-                    }
-                }
-                part.add_target(wi, y[i], c);
+            let c = row_multiplier(i);
+            for (j, &v) in row.iter().enumerate() {
+                part.mix[j] += c * v;
             }
-            Ok(part)
-        })
-        .collect();
+            let wi = w.map_or(1.0, |w| w[i] / weight_scale);
+            if wi != 0.0 {
+                for (j, &v) in row.iter().enumerate() {
+                    part.sums[j].add(wi * v);
+                    part.min[j] = part.min[j].min(v);
+                    part.max[j] = part.max[j].max(v);
+                }
+            }
+            part.add_target(wi, y[i], c);
+        }
+        Ok(part)
+    };
+    // A small problem is scanned on the calling thread: handing a few
+    // chunks to the pool costs more than scanning them.
+    let partials: Vec<std::result::Result<Partial, Error>> =
+        if n.saturating_mul(p + 1) < crate::linalg::SERIAL_VALUES {
+            chunks.iter().map(scan).collect()
+        } else {
+            chunks.par_iter().map(scan).collect()
+        };
     let mut total = Partial::new(p);
     for part in partials {
         let part = part?;

@@ -84,10 +84,21 @@ pub(crate) fn block_rows(k: usize) -> usize {
 /// most one group per `8 k` rows (and at most [`GROUPS`]), so that the
 /// accumulators alive at once (about `threads * (1 + log2 groups)` of them,
 /// see [`tree_reduce`]) never outweigh the design, and a design with fewer
-/// than `16 k` rows is reduced by one group.
+/// than `16 k` rows, or fewer than [`SERIAL_VALUES`] values, is reduced by
+/// one group.
 pub(crate) fn accumulator_groups(n: usize, k: usize) -> usize {
+    if n.saturating_mul(k) < SERIAL_VALUES {
+        return 1;
+    }
     (n / (8 * k.max(1))).clamp(1, GROUPS)
 }
+
+/// Values (rows times numbers per row) below which a pass runs on the
+/// calling thread as one group: handing work to the thread pool costs
+/// microseconds per task, as much as reducing tens of thousands of values,
+/// and a caller feeding a fit state many small blocks (a query engine's
+/// batches) would pay it on every block.
+pub(crate) const SERIAL_VALUES: usize = 1 << 18;
 
 /// Splits `0..n` into consecutive ranges of `block` rows, grouped into at
 /// most `max_groups` groups of consecutive blocks. The grouping depends on
