@@ -117,11 +117,14 @@ pub fn stream_sum(buf: &[f64]) -> f64 {
     use rayon::prelude::*;
     buf.par_chunks(1 << 13)
         .map(|chunk| {
-            crate::linalg::kernels::dispatch(|| {
-                let mut acc = [0.0; crate::linalg::kernels::LANES];
-                crate::linalg::kernels::accumulate(chunk, &mut acc);
-                crate::linalg::kernels::reduce(acc)
-            })
+            crate::linalg::kernels::dispatch(
+                #[inline(always)]
+                || {
+                    let mut acc = [0.0; crate::linalg::kernels::LANES];
+                    crate::linalg::kernels::accumulate(chunk, &mut acc);
+                    crate::linalg::kernels::reduce(acc)
+                },
+            )
         })
         .sum()
 }

@@ -155,3 +155,53 @@ fn fma_probe_matches_its_closed_form_at_every_level() {
         );
     }
 }
+
+/// Every closure handed to `kernels::dispatch` carries `#[inline(always)]`.
+/// Without it the closure is compiled once, outside the function that
+/// enables the wider instructions, and each `mul_add` in it becomes a call to
+/// the software fused multiply-add (this made a gradient iteration 9 times
+/// slower than one read of the design). A source scan, as a compiler lint
+/// would do it: every `dispatch(` call in `src/` is followed by the
+/// attribute before its closure.
+#[test]
+fn dispatched_closures_are_inlined() {
+    fn rust_files(dir: &std::path::Path, out: &mut Vec<std::path::PathBuf>) {
+        for entry in std::fs::read_dir(dir).expect("src/ is readable") {
+            let path = entry.expect("directory entry").path();
+            if path.is_dir() {
+                rust_files(&path, out);
+            } else if path.extension().is_some_and(|e| e == "rs") {
+                out.push(path);
+            }
+        }
+    }
+    let mut files = Vec::new();
+    rust_files(
+        &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src"),
+        &mut files,
+    );
+    let mut calls = 0;
+    let mut missing = Vec::new();
+    for path in &files {
+        let text = std::fs::read_to_string(path).expect("source file is readable");
+        for (at, _) in text.match_indices("dispatch(") {
+            let before = &text[..at];
+            // Only calls (`kernels::dispatch(`, `arch().dispatch(` is pulp's
+            // own, with a struct whose method is marked), not definitions.
+            if !before.ends_with("kernels::") {
+                continue;
+            }
+            calls += 1;
+            let after = text[at + "dispatch(".len()..].trim_start();
+            if !after.starts_with("#[inline(always)]") {
+                let line = before.matches('\n').count() + 1;
+                missing.push(format!("{}:{line}", path.display()));
+            }
+        }
+    }
+    assert!(calls >= 10, "the scan found only {calls} dispatch calls");
+    assert!(
+        missing.is_empty(),
+        "closures without #[inline(always)]: {missing:?}"
+    );
+}

@@ -128,6 +128,12 @@ fn arch() -> pulp::Arch {
 
 /// Runs `f` compiled for the best instruction set this processor has (or
 /// the level pinned by [`force_level`]).
+///
+/// `f` must be a closure marked `#[inline(always)]`: only code inlined into
+/// pulp's per-level functions is compiled with their instructions. A closure
+/// left to the inliner is compiled once for the baseline, and each of its
+/// `mul_add`s becomes a call to the software fused multiply-add
+/// (`tests/dispatch.rs` checks every call site).
 #[inline(always)]
 pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
     struct Op<F>(F);

@@ -458,15 +458,24 @@ fn dispatch_contiguous(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut 
     if inputs.means.is_empty() {
         return false;
     }
-    kernels::dispatch(|| contiguous_any(inputs, r0, r1, out))
+    kernels::dispatch(
+        #[inline(always)]
+        || contiguous_any(inputs, r0, r1, out),
+    )
 }
 
 fn dispatch_rows(inputs: &Inputs<'_, '_>, rows: impl Iterator<Item = usize>, out: &mut Pass) {
-    kernels::dispatch(|| rows_impl(inputs, rows, out))
+    kernels::dispatch(
+        #[inline(always)]
+        || rows_impl(inputs, rows, out),
+    )
 }
 
 fn dispatch_block_cols(inputs: &Inputs<'_, '_>, r0: usize, r1: usize, out: &mut Pass) {
-    kernels::dispatch(|| block_cols_impl(inputs, r0, r1, out))
+    kernels::dispatch(
+        #[inline(always)]
+        || block_cols_impl(inputs, r0, r1, out),
+    )
 }
 
 #[cfg(test)]
@@ -505,8 +514,14 @@ mod tests {
                 scale += ((x[k] - m[k]) * c[k]).abs();
                 scale_s += ((x[k] - 0.25) * c[k]).abs();
             }
-            let d = kernels::dispatch(|| kernels::centered_dot(&x, &m, &c));
-            let s = kernels::dispatch(|| kernels::shifted_dot(&x, 0.25, &c));
+            let d = kernels::dispatch(
+                #[inline(always)]
+                || kernels::centered_dot(&x, &m, &c),
+            );
+            let s = kernels::dispatch(
+                #[inline(always)]
+                || kernels::shifted_dot(&x, 0.25, &c),
+            );
             assert_eq!(d.to_bits(), kernels::centered_dot(&x, &m, &c).to_bits());
             assert_eq!(s.to_bits(), kernels::shifted_dot(&x, 0.25, &c).to_bits());
             let bound = |scale: f64| 8.0 * n as f64 * f64::EPSILON * scale;
@@ -516,7 +531,10 @@ mod tests {
             // within one rounding of the double-double value.
             let mut a = values(n, 4);
             let before = a.clone();
-            kernels::dispatch(|| kernels::centered_axpy(&mut a, -1.5, &x, &m));
+            kernels::dispatch(
+                #[inline(always)]
+                || kernels::centered_axpy(&mut a, -1.5, &x, &m),
+            );
             for k in 0..n {
                 let mut e = Accumulator::default();
                 e.add(before[k]);
