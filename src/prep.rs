@@ -140,23 +140,27 @@ fn fill_block_rows(
         let done = kernels::dispatch(
             #[inline(always)]
             || {
-                kernels::for_each_row(xb, |local, xs| {
-                    let i = r0 + local;
-                    let Some(o) = out
-                        .rb_mut()
-                        .row_mut(local)
-                        .try_as_row_major_mut()
-                        .map(|r| r.as_slice_mut())
-                    else {
-                        return false;
-                    };
-                    let sw = problem.scaled_weight(i).sqrt();
-                    kernels::center_scale(xs, means, inv, sw, o);
-                    if with_target {
-                        o[p] = sw * ((y[i] - ym) * inv_sy);
-                    }
-                    true
-                })
+                kernels::for_each_row(
+                    xb,
+                    #[inline(always)]
+                    |local, xs| {
+                        let i = r0 + local;
+                        let Some(o) = out
+                            .rb_mut()
+                            .row_mut(local)
+                            .try_as_row_major_mut()
+                            .map(|r| r.as_slice_mut())
+                        else {
+                            return false;
+                        };
+                        let sw = problem.scaled_weight(i).sqrt();
+                        kernels::center_scale(xs, means, inv, sw, o);
+                        if with_target {
+                            o[p] = sw * ((y[i] - ym) * inv_sy);
+                        }
+                        true
+                    },
+                )
             },
         );
         if done {

@@ -162,7 +162,8 @@ fn fma_probe_matches_its_closed_form_at_every_level() {
 /// the software fused multiply-add (this made a gradient iteration 9 times
 /// slower than one read of the design). A source scan, as a compiler lint
 /// would do it: every `dispatch(` call in `src/` is followed by the
-/// attribute before its closure.
+/// attribute before its closure, and so is the closure of every
+/// `for_each_row(` call.
 #[test]
 fn dispatched_closures_are_inlined() {
     fn rust_files(dir: &std::path::Path, out: &mut Vec<std::path::PathBuf>) {
@@ -195,6 +196,20 @@ fn dispatched_closures_are_inlined() {
             let after = text[at + "dispatch(".len()..].trim_start();
             if !after.starts_with("#[inline(always)]") {
                 let line = before.matches('\n').count() + 1;
+                missing.push(format!("{}:{line}", path.display()));
+            }
+        }
+        // A closure handed on inside a dispatched closure (to the row
+        // iterator, which calls it from two places) is not inlined either.
+        for (at, _) in text.match_indices("for_each_row(") {
+            if text[..at].ends_with("fn ") {
+                continue;
+            }
+            calls += 1;
+            let call = &text[at..];
+            let head = &call[..call.find('|').unwrap_or(call.len())];
+            if !head.contains("#[inline(always)]") {
+                let line = text[..at].matches('\n').count() + 1;
                 missing.push(format!("{}:{line}", path.display()));
             }
         }
