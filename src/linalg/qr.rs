@@ -312,14 +312,23 @@ fn panel_scale_dot(
             Ok(seg) => seg,
             Err(_) => return [0.0; PANEL],
         };
+        // Each line is loaded whole, lane `jj` replaced in registers (a
+        // blend) and stored whole: storing the lane alone and then loading
+        // the line would stall on every row (a wide load cannot be
+        // forwarded from a narrow store).
         let v0 = s0[jj] * scal;
         let v1 = s1[jj] * scal;
-        s0[jj] = v0;
-        s1[jj] = v1;
+        let (a0, a1) = (*s0, *s1);
+        let mut n0 = [0.0f64; PANEL];
+        let mut n1 = [0.0f64; PANEL];
         for l in 0..PANEL {
-            d0[l] = v0.mul_add(s0[l], d0[l]);
-            d1[l] = v1.mul_add(s1[l], d1[l]);
+            n0[l] = if l == jj { v0 } else { a0[l] };
+            n1[l] = if l == jj { v1 } else { a1[l] };
+            d0[l] = v0.mul_add(n0[l], d0[l]);
+            d1[l] = v1.mul_add(n1[l], d1[l]);
         }
+        *s0 = n0;
+        *s1 = n1;
     }
     let rest = pairs.into_remainder();
     if rest.len() >= j0 + PANEL {
@@ -349,7 +358,7 @@ fn panel_update(
     tw: &[f64; PANEL],
 ) -> f64 {
     let next = (jj + 1).min(PANEL - 1);
-    let (mut a0, mut a1) = (0.0f64, 0.0f64);
+    let (mut q0, mut q1) = ([0.0f64; PANEL], [0.0f64; PANEL]);
     let b = &mut b[..len * ld];
     let mut pairs = b.chunks_exact_mut(2 * ld);
     for pair in &mut pairs {
@@ -364,13 +373,19 @@ fn panel_update(
         };
         let v0 = s0[jj];
         let v1 = s1[jj];
+        // The squares of every lane are summed (lane `next` is the chain
+        // wanted; the others cost nothing in a vector), so that the
+        // updated lines are not read back from memory.
         for l in 0..PANEL {
-            s0[l] = (-tw[l]).mul_add(v0, s0[l]);
-            s1[l] = (-tw[l]).mul_add(v1, s1[l]);
+            let u0 = (-tw[l]).mul_add(v0, s0[l]);
+            let u1 = (-tw[l]).mul_add(v1, s1[l]);
+            s0[l] = u0;
+            s1[l] = u1;
+            q0[l] = u0.mul_add(u0, q0[l]);
+            q1[l] = u1.mul_add(u1, q1[l]);
         }
-        a0 = s0[next].mul_add(s0[next], a0);
-        a1 = s1[next].mul_add(s1[next], a1);
     }
+    let (mut a0, a1) = (q0[next], q1[next]);
     let rest = pairs.into_remainder();
     if rest.len() >= j0 + PANEL {
         let seg = &mut rest[j0..j0 + PANEL];
