@@ -482,9 +482,62 @@ fn fast_chunk(
     Some(part)
 }
 
-/// [`fast_chunk`] for a design whose columns are contiguous: four columns
-/// at a time, each column's rows in order (four independent chains), so the
-/// sums are the scalar scan's bit for bit.
+/// Columns of [`fast_chunk_by_columns`] summarised together: one vector of
+/// lanes, each lane one column's chains.
+const COLUMN_LANES: usize = 8;
+
+/// The sums and extremes of one group of up to [`COLUMN_LANES`] columns
+/// (a group with fewer columns repeats its last column in the spare lanes,
+/// whose results are dropped). Each lane runs its column's rows in order,
+/// so every sum is the scalar scan's bit for bit; the lanes are fixed in
+/// number so that the loop body is one vector of each quantity.
+#[inline(always)]
+fn column_group<const WEIGHTED: bool>(
+    cols: [&[f64]; COLUMN_LANES],
+    wts: &[f64],
+    mults: &[f64],
+) -> [[f64; COLUMN_LANES]; 8] {
+    let mut s = [0.0f64; COLUMN_LANES];
+    let mut c = [0.0f64; COLUMN_LANES];
+    let mut lo = [f64::INFINITY; COLUMN_LANES];
+    let mut hi = [f64::NEG_INFINITY; COLUMN_LANES];
+    let mut ck = [0.0f64; COLUMN_LANES];
+    let mut all_lo = [f64::INFINITY; COLUMN_LANES];
+    let mut all_hi = [f64::NEG_INFINITY; COLUMN_LANES];
+    let mut mix = [0.0f64; COLUMN_LANES];
+    let n = mults.len();
+    for local in 0..n {
+        let mult = mults[local];
+        let wi = if WEIGHTED { wts[local] } else { 1.0 };
+        let mut v = [0.0f64; COLUMN_LANES];
+        for l in 0..COLUMN_LANES {
+            v[l] = cols[l][local];
+        }
+        for l in 0..COLUMN_LANES {
+            ck[l] += v[l] * 0.0;
+            mix[l] += mult * v[l];
+            all_lo[l] = if v[l] < all_lo[l] { v[l] } else { all_lo[l] };
+            all_hi[l] = if v[l] > all_hi[l] { v[l] } else { all_hi[l] };
+        }
+        if WEIGHTED && wi == 0.0 {
+            continue;
+        }
+        for l in 0..COLUMN_LANES {
+            let a = if WEIGHTED { wi * v[l] } else { v[l] };
+            let t = s[l] + a;
+            let bp = t - s[l];
+            c[l] += (s[l] - (t - bp)) + (a - bp);
+            s[l] = t;
+            lo[l] = if v[l] < lo[l] { v[l] } else { lo[l] };
+            hi[l] = if v[l] > hi[l] { v[l] } else { hi[l] };
+        }
+    }
+    [s, c, lo, hi, ck, all_lo, all_hi, mix]
+}
+
+/// [`fast_chunk`] for a design whose columns are contiguous: eight columns
+/// at a time, each column's rows in order (eight independent chains), so
+/// the sums are the scalar scan's bit for bit.
 fn fast_chunk_by_columns(
     xb: ArrayView2<'_, f64>,
     y: &ArrayView1<'_, f64>,
@@ -494,12 +547,17 @@ fn fast_chunk_by_columns(
     r1: usize,
 ) -> Option<Partial> {
     let p = xb.ncols();
+    let len = r1 - r0;
     let cols: Vec<&[f64]> = (0..p)
         .map(|j| xb.index_axis_move(Axis(1), j).to_slice())
         .collect::<Option<_>>()?;
-    let wts: Vec<f64> = (r0..r1)
-        .map(|i| w.map_or(1.0, |w| w[i] / weight_scale))
-        .collect();
+    if cols.iter().any(|c| c.len() != len) {
+        return None;
+    }
+    let wts: Vec<f64> = match w {
+        Some(w) => (r0..r1).map(|i| w[i] / weight_scale).collect(),
+        None => Vec::new(),
+    };
     let mults: Vec<f64> = (r0..r1).map(row_multiplier).collect();
     let mut part = Partial::new(p);
     let finite = kernels::dispatch(
@@ -508,34 +566,13 @@ fn fast_chunk_by_columns(
             let mut finite = true;
             let mut j = 0;
             while j < p {
-                let q = (p - j).min(4);
-                let mut s = [0.0f64; 4];
-                let mut c = [0.0f64; 4];
-                let mut lo = [f64::INFINITY; 4];
-                let mut hi = [f64::NEG_INFINITY; 4];
-                let mut ck = [0.0f64; 4];
-                let mut all_lo = [f64::INFINITY; 4];
-                let mut all_hi = [f64::NEG_INFINITY; 4];
-                let mut mix = [0.0f64; 4];
-                for (local, (&wi, &mult)) in wts.iter().zip(&mults).enumerate() {
-                    for l in 0..q {
-                        let v = cols[j + l][local];
-                        ck[l] += v * 0.0;
-                        mix[l] += mult * v;
-                        all_lo[l] = if v < all_lo[l] { v } else { all_lo[l] };
-                        all_hi[l] = if v > all_hi[l] { v } else { all_hi[l] };
-                        if wi == 0.0 {
-                            continue;
-                        }
-                        let a = if w.is_some() { wi * v } else { v };
-                        let t = s[l] + a;
-                        let bp = t - s[l];
-                        c[l] += (s[l] - (t - bp)) + (a - bp);
-                        s[l] = t;
-                        lo[l] = if v < lo[l] { v } else { lo[l] };
-                        hi[l] = if v > hi[l] { v } else { hi[l] };
-                    }
-                }
+                let q = (p - j).min(COLUMN_LANES);
+                let group: [&[f64]; COLUMN_LANES] = std::array::from_fn(|l| cols[j + l.min(q - 1)]);
+                let [s, c, lo, hi, ck, all_lo, all_hi, mix] = if w.is_some() {
+                    column_group::<true>(group, &wts, &mults)
+                } else {
+                    column_group::<false>(group, &wts, &mults)
+                };
                 for l in 0..q {
                     finite &= ck[l] == 0.0;
                     part.sums[j + l] = Neumaier {
@@ -556,7 +593,8 @@ fn fast_chunk_by_columns(
     if !finite {
         return None;
     }
-    for (local, (&wi, &c)) in wts.iter().zip(&mults).enumerate() {
+    for (local, &c) in mults.iter().enumerate() {
+        let wi = if w.is_some() { wts[local] } else { 1.0 };
         part.add_target(wi, y[r0 + local], c);
     }
     Some(part)
