@@ -56,6 +56,9 @@ pub(crate) struct StackedQrWork {
     /// The current panel, one 64-byte-aligned line of [`PANEL`] values per
     /// row (plus room to align the start).
     panel: Vec<f64>,
+    /// A column of zeros for the spare lanes of a column-major block's last
+    /// panel.
+    zeros: Vec<f64>,
 }
 
 impl StackedQrWork {
@@ -63,6 +66,7 @@ impl StackedQrWork {
         StackedQrWork {
             w: Mat::zeros(PANEL, k),
             panel: Vec::new(),
+            zeros: Vec::new(),
         }
     }
 }
@@ -195,18 +199,29 @@ fn stacked_qr_impl(
                 }
             }
             Layout::Cols(ld) => {
-                for l in 0..PANEL {
-                    if l < jn {
-                        let col = &b[(j0 + l) * ld..(j0 + l) * ld + len];
-                        for (line, &v) in pan.chunks_exact_mut(PANEL).zip(col) {
-                            line[l] = v;
-                        }
-                    } else {
-                        for line in pan.chunks_exact_mut(PANEL) {
-                            line[l] = 0.0;
-                        }
-                    }
+                // Row by row, each line written whole (lanes past the last
+                // column read a column of zeros).
+                if work.zeros.len() < len {
+                    work.zeros.resize(len, 0.0);
                 }
+                let zeros = &work.zeros[..len];
+                let cols: [&[f64]; PANEL] = std::array::from_fn(|l| {
+                    if l < jn {
+                        &b[(j0 + l) * ld..(j0 + l) * ld + len]
+                    } else {
+                        zeros
+                    }
+                });
+                kernels::dispatch(
+                    #[inline(always)]
+                    || {
+                        for (i, line) in pan.chunks_exact_mut(PANEL).enumerate() {
+                            for l in 0..PANEL {
+                                line[l] = cols[l][i];
+                            }
+                        }
+                    },
+                );
             }
         }
         let mut tau = [0.0f64; PANEL];
@@ -287,7 +302,8 @@ fn stacked_qr_impl(
 }
 
 /// Pass 1 of a panel column: scales column `j0 + jj` into the reflector `v`
-/// and returns `v . B[:, j0 + l]` for every lane `l` of the panel.
+/// and returns `v . B[:, j0 + l]` for every lane `l` other than `jj` (lane `jj`
+/// holds `v` against the column before scaling; it is not read).
 #[inline(always)]
 fn panel_scale_dot(
     b: &mut [f64],
@@ -312,32 +328,28 @@ fn panel_scale_dot(
             Ok(seg) => seg,
             Err(_) => return [0.0; PANEL],
         };
-        // Each line is loaded whole, lane `jj` replaced in registers (a
-        // blend) and stored whole: storing the lane alone and then loading
-        // the line would stall on every row (a wide load cannot be
-        // forwarded from a narrow store).
+        // Each line is read whole before lane `jj` is stored (loading a line
+        // right after storing one of its lanes would stall on every row: a
+        // wide load cannot be forwarded from a narrow store). Lane `jj` of
+        // `d` then holds `v . x_jj` instead of `v . v`, which no caller reads.
         let v0 = s0[jj] * scal;
         let v1 = s1[jj] * scal;
         let (a0, a1) = (*s0, *s1);
-        let mut n0 = [0.0f64; PANEL];
-        let mut n1 = [0.0f64; PANEL];
         for l in 0..PANEL {
-            n0[l] = if l == jj { v0 } else { a0[l] };
-            n1[l] = if l == jj { v1 } else { a1[l] };
-            d0[l] = v0.mul_add(n0[l], d0[l]);
-            d1[l] = v1.mul_add(n1[l], d1[l]);
+            d0[l] = v0.mul_add(a0[l], d0[l]);
+            d1[l] = v1.mul_add(a1[l], d1[l]);
         }
-        *s0 = n0;
-        *s1 = n1;
+        s0[jj] = v0;
+        s1[jj] = v1;
     }
     let rest = pairs.into_remainder();
     if rest.len() >= j0 + PANEL {
         let seg = &mut rest[j0..j0 + PANEL];
         let v = seg[jj] * scal;
-        seg[jj] = v;
         for l in 0..PANEL {
             d0[l] = v.mul_add(seg[l], d0[l]);
         }
+        seg[jj] = v;
     }
     let mut out = [0.0f64; PANEL];
     for l in 0..PANEL {
