@@ -64,10 +64,14 @@ fn factor_r(
     let ld = row_stride(k);
     let b = qr_block_rows(k);
     // Folding two triangles costs about as much as factoring `k` rows, so
-    // every group gets at least `64 k` rows (merges then cost under 2% of
-    // the pass; a fit state's block of a few thousand rows, or a wide
-    // design, gets one group).
-    let max_groups = accumulator_groups(problem.rows() / 8, k).min(QR_GROUPS);
+    // a group gets at least `64 k` rows (merges then cost under 2% of the
+    // pass; a fit state's block of a few thousand rows gets one group),
+    // except that up to 4 groups of at least `16 k` rows are allowed, so
+    // that a wide design (100,000 x 1,000) still runs on several cores.
+    let few = (problem.rows() / (16 * k.max(1))).min(4);
+    let max_groups = accumulator_groups(problem.rows() / 8, k)
+        .max(accumulator_groups(problem.rows(), k).min(few))
+        .min(QR_GROUPS);
     let groups = block_groups(problem.rows(), b, max_groups);
     // A column-major design is read column by column into a column-major
     // block; any other layout row by row into a row-major block.
