@@ -387,7 +387,7 @@ fn panel_update(
         let v1 = s1[jj];
         // The squares of every lane are summed (lane `next` is the chain
         // wanted; the others cost nothing in a vector), so that the
-        // updated lines are not read back from memory.
+        // updated lines are not loaded a second time.
         for l in 0..PANEL {
             let u0 = (-tw[l]).mul_add(v0, s0[l]);
             let u1 = (-tw[l]).mul_add(v1, s1[l]);

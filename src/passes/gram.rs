@@ -204,21 +204,13 @@ fn narrow_gram(
                     }
                 },
             );
-            for (a, b) in acc.iter_mut().zip(&part) {
-                for (x, y) in a.iter_mut().zip(b) {
-                    *x += y;
-                }
-            }
+            add_tile(&mut acc, &part);
             watch.rows_done(r1 - r0);
         }
         acc
     };
     let merge = |mut a: [[f64; NARROW]; NARROW], b: [[f64; NARROW]; NARROW]| {
-        for (x, y) in a.iter_mut().zip(&b) {
-            for (u, v) in x.iter_mut().zip(y) {
-                *u += v;
-            }
-        }
+        add_tile(&mut a, &b);
         a
     };
     let acc = tree_reduce(groups, &leaf, &merge)?;
@@ -230,6 +222,16 @@ fn narrow_gram(
             acc[j][i]
         }
     }))
+}
+
+/// `acc += part`, entry by entry (a block's sums into its group's, and one
+/// group's into another's in the tree).
+fn add_tile(acc: &mut [[f64; NARROW]; NARROW], part: &[[f64; NARROW]; NARROW]) {
+    for (a, b) in acc.iter_mut().zip(part) {
+        for (x, y) in a.iter_mut().zip(b) {
+            *x += y;
+        }
+    }
 }
 
 /// [`narrow_block`] for `k` columns in all: as many rows as there are
