@@ -3,7 +3,7 @@
 //!
 //! No published ridge values are used; each check below names its
 //! reference: an exact identity (the penalised normal equations, the
-//! `lambda -> 0` limit, the effect of standardising), nalgebra's SVD solve
+//! `lambda -> 0` limit, the effect of standardising), nalgebra's QR solve
 //! of the augmented system (tests/ridge_support), or the NIST StRD
 //! certified least-squares values for `lambda = 0`.
 
@@ -131,7 +131,7 @@ proptest! {
         }
     }
 
-    /// Independent check: nalgebra's SVD solve of the augmented system
+    /// Independent check: nalgebra's Householder QR solve of the augmented system
     /// (with an explicit, unpenalised column of ones for the intercept).
     #[test]
     fn matches_nalgebra_augmented_system(
