@@ -147,6 +147,22 @@ pub(crate) fn dispatch<R>(f: impl FnOnce() -> R) -> R {
     arch().dispatch(Op(f))
 }
 
+/// Runs a kernel written against pulp's vector types (`op.with_simd`) at
+/// the best instruction set this processor has (or the level pinned by
+/// [`force_level`]).
+#[inline(always)]
+pub(crate) fn dispatch_simd<W: WithSimd>(op: W) -> W::Output {
+    arch().dispatch(op)
+}
+
+/// [`dispatch_simd`] at `level` whatever is pinned (for tests that compare
+/// the levels without touching the process-wide setting); `None` when the
+/// processor cannot run it.
+#[cfg(test)]
+pub(crate) fn dispatch_simd_at<W: WithSimd>(level: Level, op: W) -> Option<W::Output> {
+    arch_for(level).map(|a| a.dispatch(op))
+}
+
 /// Independent accumulator chains of [`fma_loop`]: enough to keep two
 /// fused multiply-add pipes of latency up to six busy, few enough to stay
 /// in the sixteen vector registers of AVX2.

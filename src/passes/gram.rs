@@ -1,10 +1,10 @@
 //! The centered Gram matrix `Z^T Z` over row blocks, in parallel.
 
 use faer::reborrow::{IntoConst, ReborrowMut};
-use faer::Mat;
+use faer::{Mat, MatMut};
 
 use crate::error::Result;
-use crate::linalg::gram::lower_gram_add;
+use crate::linalg::gram::{gram_row_stride, lower_gram_add, lower_gram_rows_add};
 use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce};
 use crate::observe::Watch;
 use crate::prep::{fill_tail, Scaling, Tail};
@@ -14,13 +14,16 @@ use crate::problem::Problem;
 /// centered, weighted, scaled design (with the target as a last column when
 /// `with_target`, so that `Z^T y` and `y^T y` come with it).
 ///
-/// Each group of row blocks accumulates its own lower triangle with a
-/// symmetric rank-k update (by panels, see [`crate::linalg::gram::lower_gram_add`]; faer's
-/// sequential kernel); groups run in parallel and are summed in a fixed
-/// binary tree, so the result does not depend on the thread count. A block is
-/// filled in the layout the design can be read in contiguously (transposed,
-/// `k x rows`, for a row-major design) and sized to stay in the core's
-/// second-level cache. Extra memory: one block and one `k x k` matrix per
+/// Each group of row blocks accumulates its own lower triangle; groups run
+/// in parallel and are summed in a fixed binary tree, so the result does
+/// not depend on the thread count. A block is filled in the layout the
+/// design can be read in contiguously and sized to stay in the core's
+/// second-level cache: a row-major design's block row by row (rows on
+/// cache lines, padded to whole vectors) for the crate's own register-tiled
+/// kernel ([`crate::linalg::gram::lower_gram_rows_add`], which forms only
+/// the tiles on and below the diagonal), a column-major design's column by
+/// column for a symmetric rank-k update by panels
+/// ([`crate::linalg::gram::lower_gram_add`], faer's sequential kernel). Extra memory: one block and one `k x k` matrix per
 /// thread and level of the tree (about `threads * (1 + log2 64)` matrices).
 /// A row-major design with at most 16 columns in the block (design and
 /// target) skips the block: each row is transformed and multiplied in
@@ -63,8 +66,33 @@ pub(crate) fn centered_gram_with(
     let design = problem.design();
     let strides = design.strides();
     let by_columns = strides[0] == 1 && strides[1] != 1;
+    let ld = gram_row_stride(k);
     let leaf = |group: &[(usize, usize)]| {
         let mut acc = Mat::<f64>::zeros(k, k);
+        if !by_columns {
+            // Rows at stride `ld`, the lanes past `k` zero (never written),
+            // the first on a cache line (so every row is: `ld` is whole
+            // lines of eight values).
+            let mut buffer = vec![0.0f64; ld * b + 7];
+            let start = buffer.as_ptr().align_offset(64).min(7);
+            let rows = &mut buffer[start..start + ld * b];
+            for &(r0, r1) in group {
+                if !watch.go_on() {
+                    break;
+                }
+                let len = r1 - r0;
+                let zt = MatMut::from_column_major_slice_with_stride_mut(
+                    &mut rows[..ld * len],
+                    k,
+                    len,
+                    ld,
+                );
+                fill_tail(problem, scaling, r0, r1, tail, zt.transpose_mut());
+                lower_gram_rows_add(acc.as_mut(), rows, ld, len, k);
+                watch.rows_done(len);
+            }
+            return acc;
+        }
         let mut block = if by_columns {
             Mat::<f64>::zeros(b, k)
         } else {
