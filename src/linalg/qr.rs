@@ -456,22 +456,27 @@ fn apply_panel(
         1.0,
         Par::Seq,
     );
-    // W = T^T W (rows from the bottom, each uses rows at or above it).
+    // W = T^T W (rows from the bottom, each uses rows at or above it), and
+    // R[panel rows, trail] -= W, a column at a time in registers (each
+    // entry of a matrix view indexed once, not once per term).
     for c in 0..nt {
+        let mut wc = [0.0f64; PANEL];
+        for (i, x) in wc.iter_mut().enumerate().take(jn) {
+            *x = w[(i, c)];
+        }
         for i in (0..jn).rev() {
             let mut acc = 0.0;
             for l in 0..=i {
-                acc += tm[l][i] * w[(l, c)];
+                acc += tm[l][i] * wc[l];
             }
-            w[(i, c)] = acc;
+            wc[i] = acc;
+        }
+        for (i, &x) in wc.iter().enumerate().take(jn) {
+            w[(i, c)] = x;
+            r[(j0 + i, c0 + c)] -= x;
         }
     }
-    // R[panel rows, trail] -= W; B[:, trail] -= V W.
-    for c in 0..nt {
-        for i in 0..jn {
-            r[(j0 + i, c0 + c)] -= w[(i, c)];
-        }
-    }
+    // B[:, trail] -= V W.
     matmul(trail.rb_mut(), Accum::Add, v, w.rb(), -1.0, Par::Seq);
 }
 
