@@ -373,15 +373,39 @@ pub(crate) fn finish_closed_form(
     }
     watch.begin(Stage::Residuals, problem.rows());
     let scaled = crate::passes::residuals::centered_rss(problem, &beta, target_scale, watch)?;
-    let parts = (scaled, rss_exponent(problem, exponent(target_scale)));
-    let rss = caller_rss(problem, exponent(target_scale), scaled)?;
+    finish_with_scaled_rss(
+        problem,
+        solver,
+        beta,
+        (rank, condition),
+        target_scale,
+        (scaled, 0),
+        penalty,
+    )
+}
+
+/// As [`finish_closed_form`], with the weighted residual sum of squares
+/// already known in the scaled problem's units (residuals in units of
+/// `target_scale`, weights of the weight scale) as `(m, e)`, value `m 2^e`:
+/// from a triangle's trailing entries, with no pass over the design.
+pub(crate) fn finish_with_scaled_rss(
+    problem: &Problem<'_>,
+    solver: &str,
+    beta: Vec<f64>,
+    (rank, condition): (Option<usize>, Option<f64>),
+    target_scale: f64,
+    (m, e): (f64, i32),
+    penalty: f64,
+) -> Result<Fit> {
+    let e = e.saturating_add(rss_exponent(problem, exponent(target_scale)));
+    let rss = ldexp(m, e);
     finish_parts(
         problem,
         solver,
         beta,
         rank,
         condition,
-        (rss, parts),
+        (rss, (m, e)),
         penalty,
     )
 }

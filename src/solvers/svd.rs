@@ -8,7 +8,8 @@ use crate::passes;
 use crate::prep::{fill_block, Scaling};
 use crate::problem::Problem;
 use crate::scaled::{exponent, ldexp};
-use crate::solver::{check_tolerance, finish_closed_form, Fit, Solver};
+use crate::solver::{check_tolerance, finish_closed_form, finish_with_scaled_rss, Fit, Solver};
+use crate::state::triangle::{residual_squares, with_head};
 
 /// Minimum-norm least squares through the singular value decomposition: the
 /// choice for rank-deficient designs, including designs with more columns
@@ -122,6 +123,9 @@ impl Solver for Svd {
         let r11 = Mat::<f64>::from_fn(p, q, |i, c| r[(i, live[c])]);
         let rhs: Vec<f64> = (0..p).map(|i| r[(i, p)]).collect();
         let mut beta = vec![0.0; p];
+        // The residuals in the triangle's design rows (the rest of the sum
+        // of squares is its target entry below them).
+        let mut head = rhs.clone();
         let (rank, condition) = if q == 0 {
             (0, 1.0)
         } else {
@@ -134,6 +138,9 @@ impl Solver for Svd {
                 .count();
             // gamma = V_r S_r^-1 U_r^T rhs (scaled coordinates of live columns).
             let gamma = truncated_solve(&dec, rank, &rhs);
+            for (i, h) in head.iter_mut().enumerate() {
+                *h -= (0..q).map(|c| r11[(i, c)] * gamma[c]).sum::<f64>();
+            }
             // Minimum norm in caller units: b_c = gamma_c 2^(e_y - e_c),
             // worked in units of a common power of two (see `common_units`).
             let exps: Vec<i32> = live.iter().map(|&j| scaling.scale_exp[j]).collect();
@@ -161,15 +168,18 @@ impl Solver for Svd {
                 what: "singular value decomposition",
             });
         }
-        finish_closed_form(
+        // The residual sum of squares from the triangle (no pass over the
+        // rows), as the triangle state's minimum-norm fit forms it: the
+        // residuals of `gamma`, whose minimum-norm projection above moves
+        // the coefficients only along directions the cutoff dropped.
+        finish_with_scaled_rss(
             problem,
             self.name(),
             beta,
-            Some(rank),
-            Some(condition),
+            (Some(rank), Some(condition)),
             scaling.target_scale,
+            with_head(residual_squares(&r, p, p), &head),
             0.0,
-            &watch,
         )
     }
 }
