@@ -77,7 +77,12 @@ const MAX_BLOCK_ROWS: usize = 4096;
 /// Rows per block of `k` numbers per row: [`BLOCK_BYTES`] of block, within
 /// `[256, 4096]` rows.
 pub(crate) fn block_rows(k: usize) -> usize {
-    (BLOCK_BYTES / (8 * k.max(1))).clamp(MIN_BLOCK_ROWS, MAX_BLOCK_ROWS)
+    rows_for(BLOCK_BYTES, k)
+}
+
+/// Rows of `k` numbers in `bytes` of block, within `[256, 4096]` rows.
+pub(crate) fn rows_for(bytes: usize, k: usize) -> usize {
+    (bytes / (8 * k.max(1))).clamp(MIN_BLOCK_ROWS, MAX_BLOCK_ROWS)
 }
 
 /// Groups of a pass in which every group holds a `k x k` accumulator: at
