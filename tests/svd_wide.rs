@@ -198,13 +198,21 @@ fn config() -> ProptestConfig {
     }
 }
 
-/// Checks a wide fit against `(beta, b0)`: slopes to `1e-9` of their norm,
-/// intercept to `1e-9` of the target's size; rank and residual df.
+/// Checks a wide fit against `(beta, b0)`: slopes to `1e-9` of their norm
+/// (or `1e-15` times the condition number of the interpolation system `M`
+/// where that is larger: a random case at condition 9e6 differed from the
+/// reference by 1.05e-9, within rounding of the problem), intercept to
+/// the same multiple of the target's size; rank and residual df.
 fn check(case: &Wide, fit: &Fit, beta: &DVector<f64>, b0: f64) -> Result<(), TestCaseError> {
     let got = slopes(fit);
     let scale = beta.norm().max(f64::MIN_POSITIVE);
+    let sv = case.system().0.singular_values();
+    let condition = sv.max() / sv.min();
+    // Capped, so that a (non-generic) singular system cannot widen the
+    // bound past 1e-7.
+    let tol = 1e-9_f64.max(1e-15 * condition.min(1e8));
     prop_assert!(
-        (&got - beta).norm() <= 1e-9 * scale,
+        (&got - beta).norm() <= tol * scale,
         "{} x {}: slopes differ by {:e} (norm {scale:e})",
         case.usable(),
         case.x.ncols(),
@@ -212,7 +220,7 @@ fn check(case: &Wide, fit: &Fit, beta: &DVector<f64>, b0: f64) -> Result<(), Tes
     );
     let size = case.y.iter().fold(0.0_f64, |a, v| a.max(v.abs())) + b0.abs();
     prop_assert!(
-        (fit.model.intercept() - b0).abs() <= 1e-9 * size,
+        (fit.model.intercept() - b0).abs() <= tol * size,
         "intercept {} vs {b0}",
         fit.model.intercept()
     );
@@ -272,12 +280,28 @@ proptest! {
         // value, and nalgebra's SVD then returned inaccurate vectors; the
         // difference system has the same minimum-norm solution at full
         // row rank.
+        // Without one, the usable rows only: a row of weight zero is a row
+        // of zeros, whose exactly zero singular value also made
+        // nalgebra's pseudo-inverse wrong (6 x 45 with one such row: off
+        // by 7% of the norm, interpolation residual 0.48, where the QR
+        // reference and the fit agree to 3e-15).
         let (a, bw) = if intercept {
             case.system()
         } else {
-            case.weighted_centered()
+            let (a, bw) = case.weighted_centered();
+            let rows = case.usable_rows();
+            (a.select_rows(rows.iter()), bw.select_rows(rows.iter()))
         };
-        let beta = pseudo_inverse(&a) * bw;
+        let beta = pseudo_inverse(&a) * &bw;
+        // nalgebra's SVD of a wide matrix is not always accurate: on a
+        // well-conditioned 5 x 22 case (condition 17) its pseudo-inverse
+        // solution missed the normal equations by 0.55 where the fit and
+        // the QR reference meet them to 3e-14. A reference that does not
+        // satisfy its own defining equations is no reference: such a case
+        // is set aside (it depends on nalgebra's result only, never on the
+        // fit's; the QR reference above checks every case).
+        let normal = a.transpose() * (&a * &beta - &bw);
+        prop_assume!(normal.norm() <= 1e-9 * a.norm().powi(2) * beta.norm().max(1.0));
         let (mx, ybar) = case.means();
         let b0 = ybar - mx.iter().zip(beta.iter()).map(|(u, v)| u * v).sum::<f64>();
         check(&case, &fit, &beta, if intercept { b0 } else { 0.0 })?;
@@ -421,4 +445,32 @@ fn a_single_usable_row_with_an_intercept_fits_the_mean() {
     assert_eq!(fit.model.intercept(), 9.0);
     assert_eq!(fit.report.rank, Some(0));
     assert_eq!(fit.report.residual_df, Some(0));
+}
+
+/// A case a random run found (13 rows, 30 columns of scales from 1e-3 to
+/// 1e3, intercept): the projection to the caller-unit minimum norm moved
+/// the fitted values by 1.3e-10 of the target's size (slopes off by 3.6e-9
+/// of their norm, at condition 2e4 of the interpolation system) until a
+/// step of refinement took the change back. Checked against the QR
+/// reference to 1e-12 of the norm, and the interpolation residual to 1e-13
+/// of the target's.
+#[test]
+fn minimum_norm_projection_keeps_the_fitted_values() {
+    let case = Wide::new(13, 30, 771_588, false, true);
+    let fit = Svd::new().fit(&case.problem()).expect("wide svd fit");
+    let (beta, _) = case.reference();
+    let got = slopes(&fit);
+    assert!(
+        (&got - &beta).norm() <= 1e-12 * beta.norm(),
+        "slopes differ by {:e} (norm {:e})",
+        (&got - &beta).norm(),
+        beta.norm()
+    );
+    let (m, r) = case.system();
+    assert!(
+        (&m * &got - &r).norm() <= 1e-13 * r.norm(),
+        "interpolation residual {:e} of {:e}",
+        (&m * &got - &r).norm(),
+        r.norm()
+    );
 }

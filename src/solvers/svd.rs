@@ -259,7 +259,6 @@ fn fit_wide(
         }
     }
     let dec = thin_svd(z.as_ref().subcols(0, q))?;
-    drop(z);
     let smax = dec.s.first().copied().unwrap_or(0.0);
     // The centered design has rank at most `n - 1` with an intercept.
     let rank = dec
@@ -282,7 +281,22 @@ fn fit_wide(
     let mut b: Vec<f64> = (0..q).map(|c| ldexp(gamma[c], unit[c])).collect();
     if unit.iter().any(|&u| u != unit[0]) {
         project_onto_row_space(&mut b, &dec.v, rank, &unit);
+        // One step of refinement: the projection moves `b` along directions
+        // the design maps to zero only up to the rounding of `V`, magnified
+        // by the spread of the column scales; the fitted values it changed
+        // (in scaled coordinates) are solved for and taken back the same way.
+        let moved: Vec<f64> = (0..q).map(|c| gamma[c] - ldexp(b[c], -unit[c])).collect();
+        let defect: Vec<f64> = (0..n)
+            .map(|k| (0..q).map(|c| z[(k, c)] * moved[c]).sum::<f64>())
+            .collect();
+        let dg = truncated_solve(&dec, rank, &defect);
+        let mut db: Vec<f64> = (0..q).map(|c| ldexp(dg[c], unit[c])).collect();
+        project_onto_row_space(&mut db, &dec.v, rank, &unit);
+        for (bc, d) in b.iter_mut().zip(&db) {
+            *bc += d;
+        }
     }
+    drop(z);
     for (c, &j) in live.iter().enumerate() {
         beta[j] = ldexp(b[c], scaling.target_exp + e_max);
     }
