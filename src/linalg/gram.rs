@@ -54,9 +54,9 @@ pub(crate) fn gram_row_stride(k: usize) -> usize {
 /// product it reads the block where it lies (no packed copy) and forms only
 /// the tiles that hold entries on or below the diagonal; a tile that
 /// crosses it drops the vector wholly above. Each entry is summed over the
-/// rows in order, one fused multiply-add per row, then added to `acc`: the
-/// result does not depend on the thread count, and the levels differ only
-/// by rounding (the baseline level has no fused unit).
+/// rows in order, one fused multiply-add per row (rounded once on every
+/// level: the baseline's is the library's), then added to `acc`: the result
+/// does not depend on the thread count or on the level.
 pub(crate) fn lower_gram_rows_add(
     acc: MatMut<'_, f64>,
     z: &[f64],
@@ -168,7 +168,7 @@ impl Rows<'_, '_> {
             for (tc, &bc) in t.iter_mut().zip(b) {
                 let bv = simd.splat_f64s(bc);
                 for (tv, &avv) in tc.iter_mut().zip(&av) {
-                    *tv = simd.mul_add_e_f64s(avv, bv, *tv);
+                    *tv = simd.mul_add_f64s(avv, bv, *tv);
                 }
             }
         }
@@ -204,7 +204,7 @@ mod tests {
     use faer::Mat;
 
     /// The row kernel against sums written out, at every level this
-    /// processor runs, for every width up to 70 (every band and tail
+    /// processor runs (bit for bit the same at each), for every width up to 70 (every band and tail
     /// shape of each level) and a few wider, with rows that are not a
     /// multiple of anything; the entries above the diagonal that no tile
     /// reaches keep their value.
@@ -228,10 +228,27 @@ mod tests {
                     }
                 }
                 let start = Mat::<f64>::from_fn(k, k, |i, j| (i * k + j) as f64);
+                let mut first: Option<Mat<f64>> = None;
                 for level in Level::ALL {
                     let mut acc = start.clone();
                     if !lower_gram_rows_add_at(level, acc.as_mut(), &z, ld, len, k) {
                         continue;
+                    }
+                    // Every level gives the same bits on and below the
+                    // diagonal (the same sums in the same order).
+                    match &first {
+                        None => first = Some(acc.clone()),
+                        Some(f) => {
+                            for j in 0..k {
+                                for i in j..k {
+                                    assert_eq!(
+                                        acc[(i, j)].to_bits(),
+                                        f[(i, j)].to_bits(),
+                                        "{level:?} k {k} rows {len} ({i}, {j})"
+                                    );
+                                }
+                            }
+                        }
                     }
                     for j in 0..k {
                         for i in j..k {
