@@ -196,11 +196,15 @@ fn stacked_qr_impl(
         let start = panel.as_ptr().align_offset(64).min(PANEL);
         let pan = &mut panel[start..start + len * PANEL];
         match layout {
-            Layout::Rows(ld) => {
-                for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
-                    line.copy_from_slice(&row[j0..j0 + PANEL]);
-                }
-            }
+            // One 64-byte move per row where the processor has one.
+            Layout::Rows(ld) => kernels::dispatch(
+                #[inline(always)]
+                || {
+                    for (line, row) in pan.chunks_exact_mut(PANEL).zip(b.chunks_exact(ld)) {
+                        line.copy_from_slice(&row[j0..j0 + PANEL]);
+                    }
+                },
+            ),
             Layout::Cols(ld) => {
                 // Row by row, each line written whole (lanes past the last
                 // column read a column of zeros).
@@ -459,24 +463,50 @@ fn apply_panel(
         1.0,
         Par::Seq,
     );
-    // W = T^T W (rows from the bottom, each uses rows at or above it), and
-    // R[panel rows, trail] -= W, a column at a time in registers (each
-    // entry of a matrix view indexed once, not once per term).
+    // W = T^T W and R[panel rows, trail] -= W, a column at a time:
+    // `(T^T w)_i = sum_l T[l][i] w_l` over `l <= i` in increasing `l` (the
+    // rows of `T` are zero left of the diagonal, so a whole row is added at
+    // each `l`: the same sums in the same order as term by term, as vectors).
     for c in 0..nt {
         let mut wc = [0.0f64; PANEL];
-        for (i, x) in wc.iter_mut().enumerate().take(jn) {
-            *x = w[(i, c)];
-        }
-        for i in (0..jn).rev() {
-            let mut acc = 0.0;
-            for l in 0..=i {
-                acc += tm[l][i] * wc[l];
+        match w.rb().col(c).try_as_col_major() {
+            Some(col) => wc[..jn].copy_from_slice(&col.as_slice()[..jn]),
+            None => {
+                for (i, x) in wc.iter_mut().enumerate().take(jn) {
+                    *x = w[(i, c)];
+                }
             }
-            wc[i] = acc;
         }
-        for (i, &x) in wc.iter().enumerate().take(jn) {
-            w[(i, c)] = x;
-            r[(j0 + i, c0 + c)] -= x;
+        let mut out = [0.0f64; PANEL];
+        for (l, &wl) in wc.iter().enumerate().take(jn) {
+            for i in 0..PANEL {
+                out[i] += tm[l][i] * wl;
+            }
+        }
+        match w.rb_mut().col_mut(c).try_as_col_major_mut() {
+            Some(col) => col.as_slice_mut()[..jn].copy_from_slice(&out[..jn]),
+            None => {
+                for (i, &x) in out.iter().enumerate().take(jn) {
+                    w[(i, c)] = x;
+                }
+            }
+        }
+        match r
+            .rb_mut()
+            .col_mut(c0 + c)
+            .subrows_mut(j0, jn)
+            .try_as_col_major_mut()
+        {
+            Some(col) => {
+                for (ri, &x) in col.as_slice_mut().iter_mut().zip(&out) {
+                    *ri -= x;
+                }
+            }
+            None => {
+                for (i, &x) in out.iter().enumerate().take(jn) {
+                    r[(j0 + i, c0 + c)] -= x;
+                }
+            }
         }
     }
     // B[:, trail] -= V W.
