@@ -23,8 +23,9 @@ use crate::problem::Problem;
 /// kernel ([`crate::linalg::gram::lower_gram_rows_add`], which forms only
 /// the tiles on and below the diagonal), a column-major design's column by
 /// column for a symmetric rank-k update by panels
-/// ([`crate::linalg::gram::lower_gram_add`], faer's sequential kernel). Extra memory: one block and one `k x k` matrix per
-/// thread and level of the tree (about `threads * (1 + log2 64)` matrices).
+/// ([`crate::linalg::gram::lower_gram_add`], faer's sequential kernel).
+/// Extra memory: one block and one `k x k` matrix per thread and level of
+/// the tree (about `threads * (1 + log2 64)` matrices).
 /// A row-major design with at most 16 columns in the block (design and
 /// target) skips the block: each row is transformed and multiplied in
 /// registers (see `narrow_gram`), which halves the pass at ten columns.
@@ -62,7 +63,7 @@ pub(crate) fn centered_gram_with(
         return Ok(g);
     }
     // A column-major design is read column by column into a `rows x k`
-    // block; any other layout row by row into a `k x rows` block.
+    // block; any other layout row by row into a block of rows.
     let design = problem.design();
     let strides = design.strides();
     let by_columns = strides[0] == 1 && strides[1] != 1;
@@ -93,27 +94,16 @@ pub(crate) fn centered_gram_with(
             }
             return acc;
         }
-        let mut block = if by_columns {
-            Mat::<f64>::zeros(b, k)
-        } else {
-            Mat::<f64>::zeros(k, b)
-        };
+        // A column-major design: the `len x k` block column by column.
+        let mut block = Mat::<f64>::zeros(b, k);
         for &(r0, r1) in group {
             if !watch.go_on() {
                 break;
             }
             let len = r1 - r0;
-            // `z` is the `len x k` block of Z, whatever its storage.
-            let z = if by_columns {
-                let mut z = block.as_mut().subrows_mut(0, len);
-                fill_tail(problem, scaling, r0, r1, tail, z.rb_mut());
-                z.into_const()
-            } else {
-                let mut zt = block.as_mut().subcols_mut(0, len);
-                fill_tail(problem, scaling, r0, r1, tail, zt.rb_mut().transpose_mut());
-                zt.into_const().transpose()
-            };
-            lower_gram_add(acc.as_mut(), z);
+            let mut z = block.as_mut().subrows_mut(0, len);
+            fill_tail(problem, scaling, r0, r1, tail, z.rb_mut());
+            lower_gram_add(acc.as_mut(), z.into_const());
             watch.rows_done(len);
         }
         acc
