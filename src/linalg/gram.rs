@@ -204,10 +204,10 @@ mod tests {
     use faer::Mat;
 
     /// The row kernel against sums written out, at every level this
-    /// processor runs (bit for bit the same at each), for every width up to 70 (every band and tail
-    /// shape of each level) and a few wider, with rows that are not a
-    /// multiple of anything; the entries above the diagonal that no tile
-    /// reaches keep their value.
+    /// processor runs (bit for bit the same at each), for every width up
+    /// to 70 (every band and tail shape of each level) and a few wider,
+    /// with rows that are not a multiple of anything; the entries above the
+    /// diagonal that no tile reaches keep their value.
     #[test]
     fn row_kernel_matches_direct_sums() {
         let mut seed = 0x2545_f491_4f6c_dd1du64;

@@ -141,6 +141,15 @@ pub(crate) fn truncated_solve(dec: &Svd, rank: usize, rhs: &[f64]) -> Vec<f64> {
     gamma
 }
 
+/// `rhs - a x`, entry by entry (the residuals of a truncated solve in the
+/// rows of a triangle).
+pub(crate) fn residuals(a: MatRef<'_, f64>, rhs: &[f64], x: &[f64]) -> Vec<f64> {
+    rhs.iter()
+        .enumerate()
+        .map(|(i, &r)| r - (0..a.ncols()).map(|c| a[(i, c)] * x[c]).sum::<f64>())
+        .collect()
+}
+
 /// From the column scale exponents `e_c` of the live columns: `e_max =
 /// max(-e_c)` and `unit_c = -e_c - e_max`, so that `gamma_c 2^unit_c` is a
 /// coefficient in the caller's units divided by the common power of two

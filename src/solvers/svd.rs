@@ -2,7 +2,9 @@ use faer::Mat;
 
 use crate::error::{Error, Result};
 use crate::linalg::qr;
-use crate::linalg::svd::{common_units, project_off_null_space, thin_svd, truncated_solve};
+use crate::linalg::svd::{
+    common_units, project_off_null_space, residuals, thin_svd, truncated_solve,
+};
 use crate::observe::{Observer, Stage, Watch};
 use crate::passes;
 use crate::prep::{fill_block, Scaling};
@@ -138,9 +140,7 @@ impl Solver for Svd {
                 .count();
             // gamma = V_r S_r^-1 U_r^T rhs (scaled coordinates of live columns).
             let gamma = truncated_solve(&dec, rank, &rhs);
-            for (i, h) in head.iter_mut().enumerate() {
-                *h -= (0..q).map(|c| r11[(i, c)] * gamma[c]).sum::<f64>();
-            }
+            head = residuals(r11.as_ref(), &rhs, &gamma);
             // Minimum norm in caller units: b_c = gamma_c 2^(e_y - e_c),
             // worked in units of a common power of two (see `common_units`).
             let exps: Vec<i32> = live.iter().map(|&j| scaling.scale_exp[j]).collect();

@@ -282,9 +282,7 @@ impl TriangleState {
                 let mut resid = rhs.clone();
                 if let Some(dec) = &dec {
                     let gamma = crate::linalg::svd::truncated_solve(dec, rank, &rhs);
-                    for (i, r) in resid.iter_mut().enumerate() {
-                        *r -= (0..q).map(|cc| r11[(i, cc)] * gamma[cc]).sum::<f64>();
-                    }
+                    resid = crate::linalg::svd::residuals(r11.as_ref(), &rhs, &gamma);
                     // Minimum norm in caller units (see `Svd`): work in a
                     // common power of two so that the projection is exact.
                     let exps: Vec<i32> = live.iter().map(|&j| frame.exps[j]).collect();
