@@ -2,6 +2,7 @@
 
 use faer::reborrow::{IntoConst, ReborrowMut};
 use faer::{Mat, MatMut};
+use pulp::{Simd, WithSimd};
 
 use crate::error::Result;
 use crate::linalg::gram::{gram_row_stride, lower_gram_add, lower_gram_rows_add};
@@ -149,25 +150,13 @@ struct Narrow<'a> {
     /// The problem's weight scale (a power of four; its inverse may not be
     /// representable, so weights are divided by it, as everywhere).
     ws: f64,
+    /// Transformed values a row: `p`, and one more with the target.
+    k: usize,
 }
 
-/// The transformed block's Gram matrix for narrow row-major designs
-/// (`k <= 16`, no tail or the problem's target), in one pass that fills no
-/// block: each row is loaded as sixteen values, centered, scaled and
-/// weighted in registers, and its outer product added to accumulators held
-/// in registers, one set per row block, added to the group's sum at the
-/// block's end (so a sum runs over at most one block of rows before it is
-/// rounded into the next level). The same fixed groups and tree as the
-/// panelled pass, and the same transformed values as [`fill_tail`]
-/// (`sw * ((x - m) * inv)`), added in another order. `None` for other
-/// shapes and layouts (the panelled pass).
-fn narrow_gram(
-    problem: &Problem<'_>,
-    scaling: &Scaling,
-    tail: &Tail<'_>,
-    groups: &[Vec<(usize, usize)>],
-    watch: &Watch<'_>,
-) -> Option<Mat<f64>> {
+/// The fused narrow pass's job for `problem` (see [`narrow_gram`]), `None`
+/// for the shapes and layouts it does not take.
+fn narrow_job<'a>(problem: &Problem<'a>, scaling: &Scaling, tail: &Tail<'_>) -> Option<Narrow<'a>> {
     let x = problem.design();
     let (n, p) = x.dim();
     let with_target = match tail {
@@ -187,7 +176,7 @@ fn narrow_gram(
     if with_target {
         unit[p] = 1.0;
     }
-    let job = Narrow {
+    Some(Narrow {
         data: x.to_slice()?,
         p,
         y: problem.target().to_slice()?,
@@ -205,23 +194,36 @@ fn narrow_gram(
             0.0
         },
         ws: problem.stats.weight_scale,
-    };
+        k,
+    })
+}
+
+/// The transformed block's Gram matrix for narrow row-major designs
+/// (`k <= 16`, no tail or the problem's target), in one pass that fills no
+/// block: rows are transformed a small chunk at a time in the first-level
+/// cache and their outer products added to sums held in registers (see
+/// [`NarrowBlock`]), one set per row block, added to the group's sum at the
+/// block's end (so a sum runs over at most one block of rows before it is
+/// rounded into the next level). The same fixed groups and tree as the
+/// panelled pass, and the same transformed values as [`fill_tail`]
+/// (`sw * ((x - m) * inv)`), added in another order. `None` for other
+/// shapes and layouts (the panelled pass).
+fn narrow_gram(
+    problem: &Problem<'_>,
+    scaling: &Scaling,
+    tail: &Tail<'_>,
+    groups: &[Vec<(usize, usize)>],
+    watch: &Watch<'_>,
+) -> Option<Mat<f64>> {
+    let job = narrow_job(problem, scaling, tail)?;
+    let k = job.k;
     let leaf = |group: &[(usize, usize)]| {
         let mut acc = [[0.0f64; NARROW]; NARROW];
         for &(r0, r1) in group {
             if !watch.go_on() {
                 break;
             }
-            let part = crate::linalg::kernels::dispatch(
-                #[inline(always)]
-                || {
-                    if job.w.is_some() {
-                        narrow_rows::<true>(&job, k, r0, r1)
-                    } else {
-                        narrow_rows::<false>(&job, k, r0, r1)
-                    }
-                },
-            );
+            let part = crate::linalg::kernels::dispatch_simd(NarrowBlock { job: &job, r0, r1 });
             add_tile(&mut acc, &part);
             watch.rows_done(r1 - r0);
         }
@@ -252,73 +254,28 @@ fn add_tile(acc: &mut [[f64; NARROW]; NARROW], part: &[[f64; NARROW]; NARROW]) {
     }
 }
 
-/// [`narrow_block`] for `k` columns in all: as many rows as there are
-/// (eight for `k <= 8`, whose spare rows are zeros).
-#[inline(always)]
-fn narrow_rows<const WEIGHTED: bool>(
-    job: &Narrow<'_>,
-    k: usize,
-    r0: usize,
-    r1: usize,
-) -> [[f64; NARROW]; NARROW] {
-    match k {
-        0..=8 => narrow_block::<WEIGHTED, 8, 0>(job, r0, r1),
-        9 => narrow_block::<WEIGHTED, 8, 1>(job, r0, r1),
-        10 => narrow_block::<WEIGHTED, 8, 2>(job, r0, r1),
-        11 => narrow_block::<WEIGHTED, 8, 3>(job, r0, r1),
-        12 => narrow_block::<WEIGHTED, 8, 4>(job, r0, r1),
-        13 => narrow_block::<WEIGHTED, 8, 5>(job, r0, r1),
-        14 => narrow_block::<WEIGHTED, 8, 6>(job, r0, r1),
-        15 => narrow_block::<WEIGHTED, 8, 7>(job, r0, r1),
-        _ => narrow_block::<WEIGHTED, 8, 8>(job, r0, r1),
-    }
-}
+/// Transformed rows of a narrow pass's chunk: a chunk (four KiB at
+/// [`NARROW`] values a row) stays in the first-level cache between its fill
+/// and its products, beside the next chunk's design rows fetched meanwhile
+/// (32 and 64 rows measured alike at 10,000,000 x 10; 128 slower).
+const CHUNK: usize = 32;
 
-/// `acc[l] += s * z[l]` for the eight lanes (fused multiply-adds).
-#[inline(always)]
-fn fma8(acc: &mut [f64; 8], s: f64, z: &[f64; 8]) {
-    for l in 0..8 {
-        acc[l] = s.mul_add(z[l], acc[l]);
-    }
-}
+/// A chunk of transformed rows, each on its own cache line pair.
+#[repr(align(64))]
+struct Chunk([[f64; NARROW]; CHUNK]);
 
-/// `acc[r] += s[r] * z` for the first `$rows` rows of a tile (a constant),
-/// written out: a loop over the rows is vectorised across them, with
-/// gathers and scatters, instead of along the lanes.
-macro_rules! outer_rows {
-    ($acc:ident, $s:ident, $z:ident, $rows:expr) => {
-        if $rows > 0 {
-            fma8(&mut $acc[0], $s[0], &$z);
-        }
-        if $rows > 1 {
-            fma8(&mut $acc[1], $s[1], &$z);
-        }
-        if $rows > 2 {
-            fma8(&mut $acc[2], $s[2], &$z);
-        }
-        if $rows > 3 {
-            fma8(&mut $acc[3], $s[3], &$z);
-        }
-        if $rows > 4 {
-            fma8(&mut $acc[4], $s[4], &$z);
-        }
-        if $rows > 5 {
-            fma8(&mut $acc[5], $s[5], &$z);
-        }
-        if $rows > 6 {
-            fma8(&mut $acc[6], $s[6], &$z);
-        }
-        if $rows > 7 {
-            fma8(&mut $acc[7], $s[7], &$z);
-        }
-    };
-}
-
-/// The outer products of the transformed rows `r0..r1`, summed: row `i` of
-/// the result holds `sum z_i z_l` for lanes `l <= i`: the first `LO` rows
-/// in their first 8 lanes, the `HI` rows from row 8 on in all 16 (`k =
-/// LO + HI` when `HI > 0`, so only the rows that exist are formed). Zero-
+/// The outer products of the transformed rows `r0..r1` of a narrow pass,
+/// summed: row `i` of the result holds `sum z_i z_l` for lanes `l <= i`
+/// (lanes past the diagonal hold products of their own, not read). Zero-
 /// weight rows are skipped.
+///
+/// The rows are transformed a chunk of [`CHUNK`] at a time into a buffer in
+/// the first-level cache (one pass over the design's bytes, in order, the
+/// arithmetic in vectors), then multiplied from it by register tiles whose
+/// multipliers are broadcast from the buffer as operands of the fused
+/// multiply-adds (shuffling the lanes of a row held in registers costs more
+/// than the products). Each entry is one chain of fused multiply-adds over
+/// the rows in order, whatever the level: the same bits on every level.
 ///
 /// Row `i` is read as the sixteen values from its start (the next rows'
 /// values, finite like every design value, fill the lanes past `p` and are
@@ -326,56 +283,229 @@ macro_rules! outer_rows {
 /// sixteen values would run past the design, through a zero-padded copy.
 /// The target goes into lane `p` by a fused multiply-add with a unit
 /// vector (exact: `t * 1 + 0` and `t * 0 + z`).
-#[inline(always)]
-fn narrow_block<const WEIGHTED: bool, const LO: usize, const HI: usize>(
-    job: &Narrow<'_>,
+struct NarrowBlock<'a, 'b> {
+    job: &'a Narrow<'b>,
     r0: usize,
     r1: usize,
-) -> [[f64; NARROW]; NARROW] {
-    let mut lo = [[0.0f64; 8]; 8];
-    let mut hi_a = [[0.0f64; 8]; 8];
-    let mut hi_b = [[0.0f64; 8]; 8];
-    let p = job.p;
-    for i in r0..r1 {
-        let sw = if WEIGHTED {
-            let wi = job.w.map_or(1.0, |w| w[i]) / job.ws;
-            if wi == 0.0 {
-                continue;
-            }
-            wi.sqrt()
+}
+
+impl WithSimd for NarrowBlock<'_, '_> {
+    type Output = [[f64; NARROW]; NARROW];
+
+    #[inline(always)]
+    fn with_simd<S: Simd>(self, simd: S) -> Self::Output {
+        macro_rules! widths {
+            ($w:literal) => {
+                match self.job.k {
+                    0 | 1 => self.run::<S, $w, 1>(simd),
+                    2 => self.run::<S, $w, 2>(simd),
+                    3 => self.run::<S, $w, 3>(simd),
+                    4 => self.run::<S, $w, 4>(simd),
+                    5 => self.run::<S, $w, 5>(simd),
+                    6 => self.run::<S, $w, 6>(simd),
+                    7 => self.run::<S, $w, 7>(simd),
+                    8 => self.run::<S, $w, 8>(simd),
+                    9 => self.run::<S, $w, 9>(simd),
+                    10 => self.run::<S, $w, 10>(simd),
+                    11 => self.run::<S, $w, 11>(simd),
+                    12 => self.run::<S, $w, 12>(simd),
+                    13 => self.run::<S, $w, 13>(simd),
+                    14 => self.run::<S, $w, 14>(simd),
+                    15 => self.run::<S, $w, 15>(simd),
+                    _ => self.run::<S, $w, 16>(simd),
+                }
+            };
+        }
+        if self.job.w.is_some() {
+            widths!(true)
         } else {
-            1.0
-        };
-        let start = i * p;
-        let mut v = [0.0f64; NARROW];
-        match job.data.get(start..start + NARROW) {
-            Some(s) => v.copy_from_slice(s),
-            None => {
-                let end = (start + p).min(job.data.len());
-                v[..end - start].copy_from_slice(&job.data[start..end]);
+            widths!(false)
+        }
+    }
+}
+
+impl NarrowBlock<'_, '_> {
+    #[inline(always)]
+    fn run<S: Simd, const WEIGHTED: bool, const K: usize>(
+        &self,
+        simd: S,
+    ) -> [[f64; NARROW]; NARROW] {
+        let job = self.job;
+        let p = job.p;
+        let mut acc = [[0.0f64; NARROW]; NARROW];
+        let mut chunk = Chunk([[0.0f64; NARROW]; CHUNK]);
+        // The per-lane constants as vectors (the first `nv` used: the
+        // vectors that hold the `K` lanes).
+        let l = S::F64_LANES;
+        let nv = K.div_ceil(l);
+        let zero = simd.splat_f64s(0.0);
+        let mut mean = [zero; NARROW];
+        let mut inv = [zero; NARROW];
+        let mut unit = [zero; NARROW];
+        for v in 0..nv {
+            mean[v] = load::<S>(&job.mean[v * l..(v + 1) * l]);
+            inv[v] = load::<S>(&job.inv[v * l..(v + 1) * l]);
+            unit[v] = load::<S>(&job.unit[v * l..(v + 1) * l]);
+        }
+        // The last rows' values, zero-padded (zeroed once: the lanes past
+        // `p` keep finite values of earlier rows, multiplied by zero).
+        let mut padded = [0.0f64; NARROW];
+        let mut i = self.r0;
+        while i < self.r1 {
+            let mut len = 0;
+            while len < CHUNK && i < self.r1 {
+                let row = i;
+                i += 1;
+                let sw = if WEIGHTED {
+                    let wi = job.w.map_or(1.0, |w| w[row]) / job.ws;
+                    if wi == 0.0 {
+                        continue;
+                    }
+                    wi.sqrt()
+                } else {
+                    1.0
+                };
+                let start = row * p;
+                let values = match job.data.get(start..start + NARROW) {
+                    Some(s) => s,
+                    None => {
+                        let end = (start + p).min(job.data.len());
+                        padded[..end - start].copy_from_slice(&job.data[start..end]);
+                        &padded[..]
+                    }
+                };
+                let t = simd.splat_f64s((job.y[row] - job.ym) * job.inv_sy);
+                let s = simd.splat_f64s(sw);
+                let z = &mut chunk.0[len];
+                for v in 0..nv {
+                    let x = load::<S>(&values[v * l..(v + 1) * l]);
+                    let centered = simd.mul_f64s(simd.sub_f64s(x, mean[v]), inv[v]);
+                    // Only the last vector holds the target's lane (`K - 1`).
+                    let mut c = if v + 1 == nv {
+                        simd.mul_add_f64s(t, unit[v], centered)
+                    } else {
+                        centered
+                    };
+                    if WEIGHTED {
+                        c = simd.mul_f64s(s, c);
+                    }
+                    store::<S>(&mut z[v * l..(v + 1) * l], c);
+                }
+                len += 1;
+            }
+            // The next chunk's rows, fetched while this chunk's products
+            // run (they read only the first-level cache, so the hardware's
+            // prefetchers, which follow demand reads, would stall).
+            let ahead = job.data.get(i * p..).unwrap_or(&[]);
+            products::<S, K>(simd, &chunk.0[..len], ahead, p, &mut acc);
+        }
+        acc
+    }
+}
+
+/// `acc[i][l] += sum_r z[r][i] z[r][l]` for rows `i < K` and the lanes `l`
+/// of every vector that holds a lane `<= i`, over the rows `z` in order.
+///
+/// The sums are one vector each (row `i` times the vector of lanes from
+/// `v L`, for `i >= v L`), kept in registers through the rows: with sixteen
+/// lanes of vectors in 32 registers (AVX-512) all of them at once (at most
+/// 24), so that one row's products are independent of each other; with
+/// narrower vectors those of one vector of lanes at a time. Loaded and
+/// stored by value with constant indices (`K` and the lanes are constants),
+/// so never borrowed; the multipliers are broadcast from the rows.
+#[inline(always)]
+fn products<S: Simd, const K: usize>(
+    simd: S,
+    z: &[[f64; NARROW]],
+    ahead: &[f64],
+    p: usize,
+    acc: &mut [[f64; NARROW]; NARROW],
+) {
+    let l = S::F64_LANES;
+    let nv = K.div_ceil(l);
+    if l >= 8 {
+        tile::<S, K>(simd, z, 0, nv, ahead, p, acc);
+    } else {
+        for v in 0..nv {
+            let ahead = if v == 0 { ahead } else { &[] };
+            tile::<S, K>(simd, z, v, v + 1, ahead, p, acc);
+        }
+    }
+}
+
+/// [`products`] for the vectors of lanes `v0..v1`: the sums `acc[i][v L..v
+/// L + L]` for `i` from `v L` to `K`.
+#[inline(always)]
+fn tile<S: Simd, const K: usize>(
+    simd: S,
+    z: &[[f64; NARROW]],
+    v0: usize,
+    v1: usize,
+    ahead: &[f64],
+    p: usize,
+    acc: &mut [[f64; NARROW]; NARROW],
+) {
+    let l = S::F64_LANES;
+    assert!(K <= NARROW && v1 * l <= NARROW && v1 - v0 <= 2);
+    let zero = simd.splat_f64s(0.0);
+    let mut t = [[zero; K]; 2];
+    for v in v0..v1 {
+        for i in v * l..K {
+            t[v - v0][i] = load::<S>(&acc[i][v * l..(v + 1) * l]);
+        }
+    }
+    for (r, row) in z.iter().enumerate() {
+        // The `r`-th row ahead: its first value, the one a cache line on
+        // and its last (a row of up to sixteen values lies on at most three
+        // lines).
+        prefetch(ahead, r * p);
+        if p > 8 {
+            prefetch(ahead, r * p + 8);
+        }
+        prefetch(ahead, r * p + p - 1);
+        for v in v0..v1 {
+            let zv = load::<S>(&row[v * l..(v + 1) * l]);
+            for i in v * l..K {
+                t[v - v0][i] = simd.mul_add_f64s(simd.splat_f64s(row[i]), zv, t[v - v0][i]);
             }
         }
-        let t = (job.y[i] - job.ym) * job.inv_sy;
-        let mut z = [0.0f64; NARROW];
-        for l in 0..NARROW {
-            let c = t.mul_add(job.unit[l], (v[l] - job.mean[l]) * job.inv[l]);
-            z[l] = if WEIGHTED { sw * c } else { c };
-        }
-        let za: [f64; 8] = std::array::from_fn(|l| z[l]);
-        outer_rows!(lo, za, za, LO);
-        if HI > 0 {
-            let zb: [f64; 8] = std::array::from_fn(|l| z[8 + l]);
-            outer_rows!(hi_a, zb, za, HI);
-            outer_rows!(hi_b, zb, zb, HI);
+    }
+    for v in v0..v1 {
+        for i in v * l..K {
+            store::<S>(&mut acc[i][v * l..(v + 1) * l], t[v - v0][i]);
         }
     }
-    let mut acc = [[0.0f64; NARROW]; NARROW];
-    for r in 0..8 {
-        acc[r][..8].copy_from_slice(&lo[r]);
-        acc[8 + r][..8].copy_from_slice(&hi_a[r]);
-        acc[8 + r][8..].copy_from_slice(&hi_b[r]);
+}
+
+/// Asks the processor to bring `values[at]` into the first-level cache
+/// (nothing when `at` is past the end).
+#[inline(always)]
+fn prefetch(values: &[f64], at: usize) {
+    #[cfg(target_arch = "x86_64")]
+    if let Some(v) = values.get(at) {
+        // SAFETY: a prefetch is a hint: it reads nothing architecturally
+        // and never faults; the address is that of an element of `values`.
+        unsafe {
+            core::arch::x86_64::_mm_prefetch::<{ core::arch::x86_64::_MM_HINT_T0 }>(
+                (v as *const f64).cast(),
+            );
+        }
     }
-    acc
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = (values, at);
+}
+
+/// One vector from the `L` values of `s` (a plain load: pulp's partial
+/// loads go through a table of masked loads).
+#[inline(always)]
+fn load<S: Simd>(s: &[f64]) -> S::f64s {
+    pulp::bytemuck::pod_read_unaligned(pulp::bytemuck::cast_slice(s))
+}
+
+/// Stores `v` into the `L` values of `s` (a plain store).
+#[inline(always)]
+fn store<S: Simd>(s: &mut [f64], v: S::f64s) {
+    pulp::bytemuck::cast_slice_mut::<f64, S::f64s>(s)[0] = v;
 }
 
 #[cfg(test)]
@@ -472,6 +602,97 @@ mod tests {
                                     g[(i, j)]
                                 );
                                 assert_eq!(g[(i, j)].to_bits(), g[(j, i)].to_bits());
+                            }
+                        }
+                    }
+                }
+            }
+        }
+    }
+    /// Every entry of the fused narrow pass's block sums, on and below the
+    /// diagonal, is one chain of fused multiply-adds over the transformed
+    /// rows in order (the transformation written out here as `fill_tail`
+    /// does it): bit for bit, at every level the processor runs, for every
+    /// width, with and without weights (zeros among them, across chunk
+    /// boundaries) and the target, over ranges that end in the last rows
+    /// (the zero-padded copy) and start inside the design.
+    #[test]
+    fn narrow_block_is_one_fused_chain_per_entry_at_every_level() {
+        use crate::linalg::kernels::{dispatch_simd_at, Level};
+        for p in 1..=16usize {
+            let n = 150;
+            let x = Array2::from_shape_fn((n, p), |(i, j)| {
+                -3e3 * (j as f64 + 1.0) + (((i * 7919 + j * 104_729) % 1009) as f64 / 97.0)
+            });
+            let y = Array1::from_shape_fn(n, |i| ((i * 31) % 17) as f64 - 8.5);
+            let w = Array1::from_shape_fn(n, |i| {
+                if i % 7 == 2 || (30..36).contains(&i) {
+                    0.0
+                } else {
+                    0.25 + (i % 5) as f64
+                }
+            });
+            for weighted in [false, true] {
+                let mut b = Problem::builder(x.view(), y.view());
+                if weighted {
+                    b = b.with_weights(w.view());
+                }
+                let problem = b.build().expect("valid");
+                let scaling = Scaling::new(&problem, 0.0);
+                for with_target in [false, true] {
+                    let tail = if with_target {
+                        Tail::Target
+                    } else {
+                        Tail::None
+                    };
+                    let Some(job) = narrow_job(&problem, &scaling, &tail) else {
+                        assert!(with_target && p == 16, "p {p} target {with_target}");
+                        continue;
+                    };
+                    let k = job.k;
+                    let st = &problem.stats;
+                    for &(r0, r1) in &[(0usize, n), (5, 37), (100, n), (n - 1, n), (64, 64)] {
+                        let mut want = [[0.0f64; NARROW]; NARROW];
+                        for r in r0..r1 {
+                            let wr = if weighted {
+                                w[r] / st.weight_scale
+                            } else {
+                                1.0
+                            };
+                            if wr == 0.0 {
+                                continue;
+                            }
+                            let sw = wr.sqrt();
+                            let mut z = [0.0f64; NARROW];
+                            for j in 0..p {
+                                z[j] = sw * ((x[(r, j)] - st.means[j]) * scaling.inv_scale[j]);
+                            }
+                            if with_target {
+                                z[p] = sw * ((y[r] - st.target_mean) / scaling.target_scale);
+                            }
+                            for i in 0..k {
+                                for l in 0..=i {
+                                    want[i][l] = z[i].mul_add(z[l], want[i][l]);
+                                }
+                            }
+                        }
+                        for level in Level::ALL {
+                            let Some(got) =
+                                dispatch_simd_at(level, NarrowBlock { job: &job, r0, r1 })
+                            else {
+                                continue;
+                            };
+                            for i in 0..k {
+                                for l in 0..=i {
+                                    assert_eq!(
+                                        got[i][l].to_bits(),
+                                        want[i][l].to_bits(),
+                                        "{} p {p} weighted {weighted} target {with_target} rows {r0}..{r1} ({i},{l}): {} vs {}",
+                                        level.name(),
+                                        got[i][l],
+                                        want[i][l]
+                                    );
+                                }
                             }
                         }
                     }
