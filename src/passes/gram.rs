@@ -350,22 +350,32 @@ impl NarrowBlock<'_, '_> {
         // The last rows' values, zero-padded (zeroed once: the lanes past
         // `p` keep finite values of earlier rows, multiplied by zero).
         let mut padded = [0.0f64; NARROW];
+        // A chunk's centered, scaled targets and square-root weights, as
+        // vectors over the rows (the same operations as one row at a
+        // time), taken by the rows as broadcast operands.
+        let mut targets = [0.0f64; CHUNK];
+        let mut roots = [1.0f64; CHUNK];
         let mut i = self.r0;
         while i < self.r1 {
-            let mut len = 0;
-            while len < CHUNK && i < self.r1 {
-                let row = i;
-                i += 1;
-                let sw = if WEIGHTED {
-                    let wi = job.w.map_or(1.0, |w| w[row]) / job.ws;
-                    if wi == 0.0 {
-                        continue;
+            let m = (self.r1 - i).min(CHUNK);
+            for (t, &y) in targets[..m].iter_mut().zip(&job.y[i..i + m]) {
+                *t = (y - job.ym) * job.inv_sy;
+            }
+            if WEIGHTED {
+                if let Some(w) = job.w {
+                    for (s, &wr) in roots[..m].iter_mut().zip(&w[i..i + m]) {
+                        *s = (wr / job.ws).sqrt();
                     }
-                    wi.sqrt()
-                } else {
-                    1.0
-                };
-                let start = row * p;
+                }
+            }
+            let mut len = 0;
+            for r in 0..m {
+                // Weights are at least zero: the root is zero exactly when
+                // the scaled weight is.
+                if WEIGHTED && roots[r] == 0.0 {
+                    continue;
+                }
+                let start = (i + r) * p;
                 let values = match job.data.get(start..start + NARROW) {
                     Some(s) => s,
                     None => {
@@ -374,8 +384,8 @@ impl NarrowBlock<'_, '_> {
                         &padded[..]
                     }
                 };
-                let t = simd.splat_f64s((job.y[row] - job.ym) * job.inv_sy);
-                let s = simd.splat_f64s(sw);
+                let t = simd.splat_f64s(targets[r]);
+                let s = simd.splat_f64s(roots[r]);
                 let z = &mut chunk.0[len];
                 for v in 0..nv {
                     let x = load::<S>(&values[v * l..(v + 1) * l]);
@@ -393,6 +403,7 @@ impl NarrowBlock<'_, '_> {
                 }
                 len += 1;
             }
+            i += m;
             // The next chunk's rows, fetched while this chunk's products
             // run (they read only the first-level cache, so the hardware's
             // prefetchers, which follow demand reads, would stall).
