@@ -254,6 +254,39 @@ pub(crate) fn for_each_row<'a>(
     true
 }
 
+/// Asks the processor to bring `values[at]` into the first-level cache
+/// (nothing when `at` is past the end).
+#[inline(always)]
+pub(crate) fn prefetch(values: &[f64], at: usize) {
+    #[cfg(target_arch = "x86_64")]
+    if let Some(v) = values.get(at) {
+        // SAFETY: a prefetch is a hint: it reads nothing architecturally
+        // and never faults; the address is that of an element of `values`.
+        unsafe {
+            core::arch::x86_64::_mm_prefetch::<{ core::arch::x86_64::_MM_HINT_T0 }>(
+                (v as *const f64).cast(),
+            );
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = (values, at);
+}
+
+/// [`prefetch`] for every cache line of `values[from..from + len]` (one
+/// value in eight, and the last: a line holds eight values).
+#[inline(always)]
+pub(crate) fn prefetch_span(values: &[f64], from: usize, len: usize) {
+    let end = from + len;
+    let mut at = from;
+    while at < end {
+        prefetch(values, at);
+        at += 8;
+    }
+    if len > 0 {
+        prefetch(values, end - 1);
+    }
+}
+
 /// `out[j] = sw * ((x[j] - m[j]) * inv[j])` for `j < x.len()`.
 #[inline(always)]
 pub(crate) fn center_scale(x: &[f64], m: &[f64], inv: &[f64], sw: f64, out: &mut [f64]) {

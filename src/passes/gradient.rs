@@ -44,6 +44,12 @@ pub(crate) struct Pass {
     pub sq: f64,
 }
 
+/// Values ahead of the current row that the contiguous pass prefetches.
+const PREFETCH_VALUES: usize = 256;
+
+/// Columns from which the contiguous pass prefetches (rows of 256 bytes).
+const PREFETCH_MIN_COLUMNS: usize = 32;
+
 /// Rows per block of the partition (and of a column-major pass's residual
 /// vectors): [`crate::linalg::block_rows`].
 fn block_len(p: usize) -> usize {
@@ -373,7 +379,15 @@ fn contiguous_impl<const WEIGHTED: bool>(
     let inv_ws = 1.0 / inputs.problem.stats.weight_scale;
     let (ym, inv_sy) = (inputs.ym, inputs.inv_sy);
     let mut sq = 0.0;
+    // Wide rows: the rows about two KiB ahead are fetched while this one
+    // is worked on (1, 2, 4 and 8 KiB measured at 1,000,000 x 100: 2 the
+    // steadiest, the pass 5-10% closer to one streaming read). Narrow rows
+    // are left to the hardware (at 10 columns the prefetches cost 10%).
+    let ahead = (p >= PREFETCH_MIN_COLUMNS).then(|| PREFETCH_VALUES.div_ceil(p) * p);
     for (k, (row, &yi)) in data.chunks_exact(p).zip(y).enumerate() {
+        if let Some(ahead) = ahead {
+            kernels::prefetch_span(data, k * p + ahead, p);
+        }
         let wi = if WEIGHTED { w[k] * inv_ws } else { 1.0 };
         if WEIGHTED && wi == 0.0 {
             continue;

@@ -6,6 +6,7 @@ use pulp::{Simd, WithSimd};
 
 use crate::error::Result;
 use crate::linalg::gram::{gram_row_stride, lower_gram_add, lower_gram_rows_add};
+use crate::linalg::kernels::prefetch;
 use crate::linalg::{accumulator_groups, block_groups, block_rows, tree_reduce};
 use crate::observe::Watch;
 use crate::prep::{fill_tail, Scaling, Tail};
@@ -486,24 +487,6 @@ fn tile<S: Simd, const K: usize>(
             store::<S>(&mut acc[i][v * l..(v + 1) * l], t[v - v0][i]);
         }
     }
-}
-
-/// Asks the processor to bring `values[at]` into the first-level cache
-/// (nothing when `at` is past the end).
-#[inline(always)]
-fn prefetch(values: &[f64], at: usize) {
-    #[cfg(target_arch = "x86_64")]
-    if let Some(v) = values.get(at) {
-        // SAFETY: a prefetch is a hint: it reads nothing architecturally
-        // and never faults; the address is that of an element of `values`.
-        unsafe {
-            core::arch::x86_64::_mm_prefetch::<{ core::arch::x86_64::_MM_HINT_T0 }>(
-                (v as *const f64).cast(),
-            );
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    let _ = (values, at);
 }
 
 /// One vector from the `L` values of `s` (a plain load: pulp's partial
