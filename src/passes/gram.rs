@@ -508,6 +508,19 @@ mod tests {
     use crate::prep::fill_block;
     use ndarray::{Array1, Array2};
 
+    /// The problem of `x` and `y`, with the weights `w` if given.
+    fn build<'a>(
+        x: &'a Array2<f64>,
+        y: &'a Array1<f64>,
+        w: Option<&'a Array1<f64>>,
+    ) -> crate::error::Result<Problem<'a>> {
+        let mut b = Problem::builder(x.view(), y.view());
+        if let Some(w) = w {
+            b = b.with_weights(w.view());
+        }
+        b.build()
+    }
+
     /// The panelled Gram over blocks equals `Z^T Z` summed straight from
     /// the filled rows (the same numbers in another order: equal to
     /// rounding), for shapes around the panel and block sizes.
@@ -568,11 +581,7 @@ mod tests {
                     }
                 });
                 for weighted in [false, true] {
-                    let mut b = Problem::builder(x.view(), y.view());
-                    if weighted {
-                        b = b.with_weights(w.view());
-                    }
-                    let Ok(problem) = b.build() else {
+                    let Ok(problem) = build(&x, &y, weighted.then_some(&w)) else {
                         continue;
                     };
                     let scaling = Scaling::new(&problem, 0.0);
@@ -627,11 +636,7 @@ mod tests {
                 }
             });
             for weighted in [false, true] {
-                let mut b = Problem::builder(x.view(), y.view());
-                if weighted {
-                    b = b.with_weights(w.view());
-                }
-                let problem = b.build().expect("valid");
+                let problem = build(&x, &y, weighted.then_some(&w)).expect("valid");
                 let scaling = Scaling::new(&problem, 0.0);
                 for with_target in [false, true] {
                     let tail = if with_target {
