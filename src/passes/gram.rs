@@ -12,6 +12,9 @@ use crate::observe::Watch;
 use crate::prep::{fill_tail, Scaling, Tail};
 use crate::problem::Problem;
 
+#[cfg(target_arch = "x86_64")]
+mod lanes;
+
 /// Returns the full symmetric `k x k` matrix `Z^T Z`, where `Z` is the
 /// centered, weighted, scaled design (with the target as a last column when
 /// `with_target`, so that `Z^T y` and `y^T y` come with it).
@@ -277,6 +280,10 @@ struct Chunk([[f64; NARROW]; CHUNK]);
 /// multiply-adds (shuffling the lanes of a row held in registers costs more
 /// than the products). Each entry is one chain of fused multiply-adds over
 /// the rows in order, whatever the level: the same bits on every level.
+/// With AVX-512, the widths [`lanes::takes`] names go to [`lanes::block`]
+/// instead (eight rows as the lanes of a vector: fewer products a row,
+/// each entry summed in eight lanes, so within rounding of the other
+/// levels).
 ///
 /// Row `i` is read as the sixteen values from its start (the next rows'
 /// values, finite like every design value, fill the lanes past `p` and are
@@ -295,6 +302,13 @@ impl WithSimd for NarrowBlock<'_, '_> {
 
     #[inline(always)]
     fn with_simd<S: Simd>(self, simd: S) -> Self::Output {
+        // Eight-lane vectors: eight rows as the lanes (see `lanes`).
+        #[cfg(target_arch = "x86_64")]
+        if S::F64_LANES == 8 {
+            if let Some(sums) = lanes::block(self.job, self.r0, self.r1) {
+                return sums;
+            }
+        }
         macro_rules! widths {
             ($w:literal) => {
                 match self.job.k {
@@ -618,7 +632,11 @@ mod tests {
     /// does it): bit for bit, at every level the processor runs, for every
     /// width, with and without weights (zeros among them, across chunk
     /// boundaries) and the target, over ranges that end in the last rows
-    /// (the zero-padded copy) and start inside the design.
+    /// (the zero-padded copy) and start inside the design. Where the
+    /// AVX-512 kernel of eight rows as lanes takes the job (`lanes`), it
+    /// is checked bit for bit against its own model written out here: a
+    /// chain a lane over the rows `r0 + q, r0 + q + 8, ...` (zero-weight
+    /// rows included as zeros), the lanes added in its fixed order.
     #[test]
     fn narrow_block_is_one_fused_chain_per_entry_at_every_level() {
         use crate::linalg::kernels::{dispatch_simd_at, Level};
@@ -652,15 +670,16 @@ mod tests {
                     let st = &problem.stats;
                     for &(r0, r1) in &[(0usize, n), (5, 37), (100, n), (n - 1, n), (64, 64)] {
                         let mut want = [[0.0f64; NARROW]; NARROW];
+                        // The AVX-512 kernel's model (see `lanes`): lane
+                        // `(r - r0) mod 8` of each entry, zero-weight rows
+                        // included as zero lanes.
+                        let mut lane_sums = [[[0.0f64; 8]; NARROW]; NARROW];
                         for r in r0..r1 {
                             let wr = if weighted {
                                 w[r] / st.weight_scale
                             } else {
                                 1.0
                             };
-                            if wr == 0.0 {
-                                continue;
-                            }
                             let sw = wr.sqrt();
                             let mut z = [0.0f64; NARROW];
                             for j in 0..p {
@@ -669,10 +688,22 @@ mod tests {
                             if with_target {
                                 z[p] = sw * ((y[r] - st.target_mean) / scaling.target_scale);
                             }
+                            let q = (r - r0) % 8;
                             for i in 0..k {
                                 for l in 0..=i {
-                                    want[i][l] = z[i].mul_add(z[l], want[i][l]);
+                                    lane_sums[i][l][q] = z[i].mul_add(z[l], lane_sums[i][l][q]);
+                                    if wr != 0.0 {
+                                        want[i][l] = z[i].mul_add(z[l], want[i][l]);
+                                    }
                                 }
+                            }
+                        }
+                        let mut want_lanes = [[0.0f64; NARROW]; NARROW];
+                        for i in 0..k {
+                            for l in 0..=i {
+                                let s = &lane_sums[i][l];
+                                want_lanes[i][l] = ((s[0] + s[1]) + (s[2] + s[3]))
+                                    + ((s[4] + s[5]) + (s[6] + s[7]));
                             }
                         }
                         for level in Level::ALL {
@@ -680,6 +711,11 @@ mod tests {
                                 dispatch_simd_at(level, NarrowBlock { job: &job, r0, r1 })
                             else {
                                 continue;
+                            };
+                            let want = if level == Level::V4 && lanes::takes(&job) {
+                                &want_lanes
+                            } else {
+                                &want
                             };
                             for i in 0..k {
                                 for l in 0..=i {
