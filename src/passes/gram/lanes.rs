@@ -120,15 +120,17 @@ fn store(s: &mut [f64], v: __m512d) {
 }
 
 /// Index of the entry `(a, b)`, `b <= a`, of a `k`-value lower triangle
-/// stored column after column.
+/// stored column after column (for `b` past `k`, the number of entries:
+/// the tiles of columns past `k`, never run, are still compiled in
+/// profiles that keep dead branches).
 const fn entry(k: usize, b: usize, a: usize) -> usize {
     let mut e = 0;
     let mut j = 0;
-    while j < b {
+    while j < b && j < k {
         e += k - j;
         j += 1;
     }
-    e + (a - b)
+    e + a.saturating_sub(b)
 }
 
 /// Columns of the tile that starts at column `b0` for `k` values, zero
