@@ -158,7 +158,7 @@ impl Lanes<'_, '_> {
     #[inline(always)]
     fn run<const WEIGHTED: bool, const K: usize>(&self) -> [[f64; NARROW]; NARROW] {
         let job = self.job;
-        let p = job.p;
+        let p = K - 1;
         let mut sums = [[0.0f64; LANES]; ENTRIES];
         let mut cols = Columns([[0.0f64; LANES]; NARROW * GROUPS]);
         let mut i = self.r0;
@@ -170,8 +170,7 @@ impl Lanes<'_, '_> {
                 let rows = (m - g * LANES).min(LANES);
                 // Whole groups whose rows' values all lie in the design
                 // take the straight path.
-                let wide = if K - 1 > LANES { 2 * LANES } else { LANES };
-                if rows == LANES && (first + LANES - 1) * (K - 1) + wide <= job.data.len() {
+                if rows == LANES && group_end::<K>(first) <= job.data.len() {
                     self.fill::<WEIGHTED, K, true>(first, rows, &mut cols, g);
                 } else {
                     self.fill::<WEIGHTED, K, false>(first, rows, &mut cols, g);
@@ -214,11 +213,11 @@ impl Lanes<'_, '_> {
         // Each row's first eight values and, past eight columns, the next
         // eight (values of the next rows beyond the row's end, ignored).
         let wide = p > LANES;
-        let width = if wide { 2 * LANES } else { LANES };
+        let width = read_width::<K>();
         let mut lo = [zero; LANES];
         let mut hi = [zero; LANES];
         if WHOLE {
-            let block = &data[first * p..(first + LANES - 1) * p + width];
+            let block = &data[first * p..group_end::<K>(first)];
             for r in 0..LANES {
                 lo[r] = load(&block[r * p..]);
                 if wide {
@@ -350,6 +349,23 @@ impl Lanes<'_, '_> {
             store(&mut sums[base + e], t[e]);
         }
     }
+}
+
+/// Values read from each row's start for `K` values with the target
+/// (`p = K - 1` columns): one vector, or two past eight columns.
+const fn read_width<const K: usize>() -> usize {
+    if K - 1 > LANES {
+        2 * LANES
+    } else {
+        LANES
+    }
+}
+
+/// End of the values read for the group of eight rows from `first`: the
+/// straight path of [`Lanes::fill`] reads up to here.
+#[inline(always)]
+fn group_end<const K: usize>(first: usize) -> usize {
+    (first + LANES - 1) * (K - 1) + read_width::<K>()
 }
 
 /// The eight values of `values` from `first`, the `rows` first of them
