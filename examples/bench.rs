@@ -9,8 +9,8 @@
 //! Options: `--rows N` (default 100000), `--cols P` (default 50),
 //! `--solvers a,b,...` (default: every solver in [`SOLVERS`]),
 //! `--threads T` (default: rayon's global pool; otherwise every pass runs
-//! inside a pool of T threads), `--repeats R` (timed runs after one warm-up,
-//! default 5; the median is reported), `--seed S`, `--no-intercept`,
+//! inside a pool of T threads), `--repeats R` (timed rounds after one
+//! warm-up, default 5; the median is reported), `--seed S`, `--no-intercept`,
 //! `--no-baselines` (skip the straightforward versions), `--col-major` (store
 //! the design column by column instead of row by row), `--json` (one JSON
 //! object per line instead of the table), `--backend faer|lapack` (the
@@ -23,7 +23,14 @@
 //! with the target column, over row blocks in parallel (the work every
 //! closed-form solver must at least do); `stream` is one read of the design
 //! (the work of one gradient iteration). Each solver's ratio is to the floor
-//! of its kind. Baselines (`obvious-*`) are the same methods written the
+//! of its kind.
+//!
+//! Rounds: every entry (floors, passes, solvers, baselines, state paths) runs
+//! once to warm up, then `R` rounds each run every entry once, in the order
+//! of the table. A ratio of two entries is the median over the rounds of the
+//! ratio of their two runs in the same round, seconds apart, so that the
+//! host's speed, which can move by a factor of two within minutes on a
+//! shared machine, moves both sides of each ratio together. Baselines (`obvious-*`) are the same methods written the
 //! straightforward way with faer's high-level API on a column-major copy of
 //! `[1 | X]` made before the clock starts (so the copy is not charged to
 //! them). `extra` is the peak memory a run allocated beyond what was live
@@ -418,25 +425,12 @@ fn median(v: &mut [f64]) -> f64 {
 /// One timed entry: median wall and CPU seconds over `repeats` runs after a
 /// warm-up, the fastest run, and the largest extra allocation of the timed
 /// runs (the warm-up is left out: it includes buffers that faer's
-/// matrix-product backend allocates once per thread and keeps).
+/// matrix-product backend allocates once per thread and keeps). Used for
+/// the machine's limits, which are measured before the rows.
 fn time(repeats: usize, f: &mut dyn FnMut() -> f64) -> Timing {
     measure(f);
-    let mut wall = Vec::with_capacity(repeats);
-    let mut cpu = Vec::with_capacity(repeats);
-    let mut extra = 0;
-    for _ in 0..repeats {
-        let s = measure(f);
-        wall.push(s.wall);
-        cpu.push(s.cpu);
-        extra = extra.max(s.extra);
-    }
-    let min = wall.iter().copied().fold(f64::INFINITY, f64::min);
-    Timing {
-        seconds: median(&mut wall),
-        min,
-        cpu: median(&mut cpu),
-        extra,
-    }
+    let samples: Vec<Sample> = (0..repeats).map(|_| measure(f)).collect();
+    Timing::of(&samples)
 }
 
 struct Timing {
@@ -444,6 +438,21 @@ struct Timing {
     min: f64,
     cpu: f64,
     extra: usize,
+}
+
+impl Timing {
+    /// Median wall and CPU seconds, the fastest run and the largest extra
+    /// allocation of `samples`.
+    fn of(samples: &[Sample]) -> Timing {
+        let mut wall: Vec<f64> = samples.iter().map(|s| s.wall).collect();
+        let mut cpu: Vec<f64> = samples.iter().map(|s| s.cpu).collect();
+        Timing {
+            seconds: median(&mut wall),
+            min: wall.iter().copied().fold(f64::INFINITY, f64::min),
+            cpu: median(&mut cpu),
+            extra: samples.iter().map(|s| s.extra).max().unwrap_or(0),
+        }
+    }
 }
 
 /// What a timed entry's rate is measured in.
@@ -458,6 +467,9 @@ struct Row {
     kind: &'static str,
     floor: Option<Floor>,
     t: Timing,
+    /// Wall seconds of each round, in round order (one entry for a row
+    /// timed once outside the rounds).
+    walls: Vec<f64>,
     work: Work,
     targets: usize,
     blocks: usize,
@@ -471,6 +483,74 @@ impl Row {
         }
     }
 }
+
+/// The ratio of `a`'s time to `b`'s: the median over the rounds of the two
+/// runs of the same round (taken seconds apart, so a change of the host's
+/// speed between the entries of a run does not enter it); the ratio of the
+/// medians where one of them was not timed in the rounds.
+fn ratio(a: &Row, b: &Row) -> f64 {
+    if a.walls.len() == b.walls.len() && a.walls.len() > 1 {
+        let mut r: Vec<f64> = a.walls.iter().zip(&b.walls).map(|(x, y)| x / y).collect();
+        median(&mut r)
+    } else {
+        a.t.seconds / b.t.seconds
+    }
+}
+
+/// An entry of the rounds: what it is and the run that is timed.
+struct Entry<'a> {
+    name: String,
+    kind: &'static str,
+    floor: Option<Floor>,
+    work: Work,
+    targets: usize,
+    blocks: usize,
+    run: Box<dyn FnMut() -> f64 + 'a>,
+}
+
+impl<'a> Entry<'a> {
+    fn new(
+        name: &str,
+        kind: &'static str,
+        floor: Option<Floor>,
+        work: Work,
+        run: impl FnMut() -> f64 + 'a,
+    ) -> Entry<'a> {
+        Entry {
+            name: name.to_string(),
+            kind,
+            floor,
+            work,
+            targets: 1,
+            blocks: 1,
+            run: Box::new(run),
+        }
+    }
+}
+
+/// Runs every entry once (the warm-up, not counted), then `repeats` rounds
+/// that each run every entry once in order, and returns each entry's
+/// samples in round order. Interleaving puts every entry's runs in the same
+/// stretch of time as its floor's, so that their ratio does not depend on
+/// how the host's speed moves during the run (it moved by a factor of two
+/// within minutes on the machine the README's numbers come from).
+fn rounds(entries: &mut [Entry<'_>], repeats: usize) -> Vec<Vec<Sample>> {
+    for e in entries.iter_mut() {
+        measure(&mut e.run);
+    }
+    let mut samples: Vec<Vec<Sample>> = entries.iter().map(|_| Vec::new()).collect();
+    for _ in 0..repeats {
+        for (e, s) in entries.iter_mut().zip(&mut samples) {
+            s.push(measure(&mut e.run));
+        }
+    }
+    samples
+}
+
+/// Name of the rounds' fixed-step gradient fit with no iterations and with
+/// ten (the gradient step is their difference over ten, round by round).
+const GRADIENT_NONE: &str = "gradient-0";
+const GRADIENT_TEN: &str = "gradient-10";
 
 fn run(o: &Options) {
     let (n, p) = (o.rows, o.cols);
@@ -501,52 +581,43 @@ fn run(o: &Options) {
     let bytes = Work::Bytes((n * p * 8) as f64);
     let gram_work = Work::Flops(floors::gram_flops(n, k));
     let qr_work = Work::Flops(floors::qr_flops(n, k));
-    let mut rows: Vec<Row> = Vec::new();
     let mut accelerated_iterations = None;
-    let mut push = |name: &str, kind, floor, t, work| {
-        rows.push(Row {
-            name: name.to_string(),
-            kind,
-            floor,
-            t,
-            work,
-            targets: 1,
-            blocks: 1,
-        })
-    };
-
-    push(
-        "gram",
-        "floor",
-        None,
-        time(r, &mut || floors::gram_floor(&problem)),
-        gram_work,
-    );
-    push(
-        "stream",
-        "floor",
-        None,
-        time(r, &mut || floors::stream_floor(&problem)),
-        bytes,
-    );
-    let t = time(r, &mut || {
-        build().map(|pr| pr.total_weight()).unwrap_or(f64::NAN)
-    });
-    push("validate", "pass", Some(Floor::Stream), t, bytes);
     let beta = vec![0.25; p];
-    let t = time(r, &mut || floors::residual_pass(&problem, &beta));
-    push("residuals", "pass", Some(Floor::Stream), t, bytes);
-    let t = time(r, &mut || floors::fill_pass(&problem));
-    push("fill", "pass", Some(Floor::Stream), t, bytes);
-    let t = time(r, &mut || floors::tall_skinny_r(&problem));
-    push("tsqr", "pass", Some(Floor::Gram), t, qr_work);
+    // The straightforward least-squares calls need at least as many rows as
+    // unknowns (they would stop the program otherwise).
+    if o.baselines && n < k {
+        eprintln!("baselines skipped: {n} rows < {k} unknowns");
+    }
+    let d = (o.baselines && n >= k).then(|| dense(&x, &y, o.intercept));
+    let targets = state_targets(o, &x, &y);
+    let problem = &problem;
+    let mut entries: Vec<Entry<'_>> = vec![
+        Entry::new("gram", "floor", None, gram_work, || {
+            floors::gram_floor(problem)
+        }),
+        Entry::new("stream", "floor", None, bytes, || {
+            floors::stream_floor(problem)
+        }),
+        Entry::new("validate", "pass", Some(Floor::Stream), bytes, || {
+            build().map(|pr| pr.total_weight()).unwrap_or(f64::NAN)
+        }),
+        Entry::new("residuals", "pass", Some(Floor::Stream), bytes, || {
+            floors::residual_pass(problem, &beta)
+        }),
+        Entry::new("fill", "pass", Some(Floor::Stream), bytes, || {
+            floors::fill_pass(problem)
+        }),
+        Entry::new("tsqr", "pass", Some(Floor::Gram), qr_work, || {
+            floors::tall_skinny_r(problem)
+        }),
+    ];
 
     for (name, floor, make) in SOLVERS {
         if !o.solvers.iter().any(|s| s == name) {
             continue;
         }
         let solver = make();
-        match solver.fit(&problem) {
+        match solver.fit(problem) {
             Err(err) => {
                 eprintln!("{name}: {err}");
                 continue;
@@ -557,78 +628,106 @@ fn run(o: &Options) {
                 }
             }
         }
-        let t = time(r, &mut || {
-            solver
-                .fit(&problem)
-                .map_or(f64::NAN, |fit| fit.report.residual_sum_of_squares)
-        });
         let work = if *name == "cholesky" {
             gram_work
         } else {
             qr_work
         };
-        push(name, "solver", Some(*floor), t, work);
+        entries.push(Entry::new(name, "solver", Some(*floor), work, move || {
+            solver
+                .fit(problem)
+                .map_or(f64::NAN, |fit| fit.report.residual_sum_of_squares)
+        }));
     }
 
     // One full-gradient iteration: a fit of ten iterations at a fixed step
     // minus a fit of none (the set-up passes), divided by ten.
     if o.solvers.iter().any(|s| s == GRADIENT_STEP) {
-        let fixed = |iterations| {
-            GradientDescent::new()
+        for (name, iterations) in [(GRADIENT_NONE, 0), (GRADIENT_TEN, 10)] {
+            let fixed = GradientDescent::new()
                 .with_step(0.1)
                 .with_max_iterations(iterations)
-                .with_history_stride(0)
-        };
-        let (none, ten) = (fixed(0), fixed(10));
-        let t0 = time(r, &mut || {
-            none.fit(&problem)
-                .map_or(f64::NAN, |f| f.report.residual_sum_of_squares)
-        });
-        let t10 = time(r, &mut || {
-            ten.fit(&problem)
-                .map_or(f64::NAN, |f| f.report.residual_sum_of_squares)
-        });
-        let per = |a: f64, b: f64| ((b - a) / 10.0).max(0.0);
-        let t = Timing {
-            seconds: per(t0.seconds, t10.seconds),
-            min: per(t0.min, t10.min),
-            cpu: per(t0.cpu, t10.cpu),
-            extra: t10.extra,
-        };
-        push(GRADIENT_STEP, "solver", Some(Floor::Stream), t, bytes);
+                .with_history_stride(0);
+            entries.push(Entry::new(name, "part", None, bytes, move || {
+                fixed
+                    .fit(problem)
+                    .map_or(f64::NAN, |f| f.report.residual_sum_of_squares)
+            }));
+        }
     }
 
-    // The straightforward least-squares calls need at least as many rows as
-    // unknowns (they would stop the program otherwise).
-    if o.baselines && n < k {
-        eprintln!("baselines skipped: {n} rows < {k} unknowns");
-    }
-    if o.baselines && n >= k {
-        let d = dense(&x, &y, o.intercept);
+    if let Some(d) = &d {
         for (name, versus, f) in BASELINES {
             if !o.solvers.iter().any(|s| s == versus) {
                 continue;
             }
-            let t = time(r, &mut || f(&d));
             let work = if *versus == "cholesky" {
                 Work::Flops(2.0 * n as f64 * (k * k) as f64)
             } else {
                 qr_work
             };
-            push(name, "baseline", Some(Floor::Gram), t, work);
+            entries.push(Entry::new(
+                name,
+                "baseline",
+                Some(Floor::Gram),
+                work,
+                || f(d),
+            ));
         }
     }
 
-    state_rows(o, &x, &y, &mut rows);
+    state_entries(o, &x, &targets, &mut entries);
+
+    let samples = rounds(&mut entries, r);
+    let mut rows: Vec<Row> = Vec::new();
+    let mut parts: Vec<Vec<Sample>> = Vec::new();
+    for (e, s) in entries.into_iter().zip(samples) {
+        if e.kind == "part" {
+            parts.push(s);
+            continue;
+        }
+        rows.push(Row {
+            name: e.name,
+            kind: e.kind,
+            floor: e.floor,
+            t: Timing::of(&s),
+            walls: s.iter().map(|s| s.wall).collect(),
+            work: e.work,
+            targets: e.targets,
+            blocks: e.blocks,
+        });
+    }
+    if let [none, ten] = &parts[..] {
+        let per = |a: f64, b: f64| ((b - a) / 10.0).max(0.0);
+        let step: Vec<Sample> = none
+            .iter()
+            .zip(ten)
+            .map(|(a, b)| Sample {
+                wall: per(a.wall, b.wall),
+                cpu: per(a.cpu, b.cpu),
+                extra: b.extra,
+            })
+            .collect();
+        rows.push(Row {
+            name: GRADIENT_STEP.into(),
+            kind: "solver",
+            floor: Some(Floor::Stream),
+            t: Timing::of(&step),
+            walls: step.iter().map(|s| s.wall).collect(),
+            work: bytes,
+            targets: 1,
+            blocks: 1,
+        });
+    }
+
     if o.reference {
         reference_row(o, &x, &y, &mut rows);
     }
     let load_after = load_average();
 
-    let floor_secs = |f: Floor, rows: &[Row]| {
+    let floor_row = |f: Floor, rows: &'_ [Row]| {
         rows.iter()
-            .find(|row| row.kind == "floor" && row.name == f.name())
-            .map_or(f64::NAN, |row| row.t.seconds)
+            .position(|row| row.kind == "floor" && row.name == f.name())
     };
     let threads = rayon::current_num_threads();
     if o.json {
@@ -662,11 +761,10 @@ fn run(o: &Options) {
                 let limit = limits.seconds(cost(row, o, accelerated_iterations));
                 map.insert("limit_seconds".into(), limit.into());
                 map.insert("ratio_to_limit".into(), (row.t.seconds / limit).into());
-                if let Some(f) = row.floor {
-                    let fs = floor_secs(f, &rows);
+                if let Some((f, i)) = row.floor.and_then(|f| Some((f, floor_row(f, &rows)?))) {
                     map.insert("floor".into(), f.name().into());
-                    map.insert("floor_seconds".into(), fs.into());
-                    map.insert("ratio".into(), (row.t.seconds / fs).into());
+                    map.insert("floor_seconds".into(), rows[i].t.seconds.into());
+                    map.insert("ratio".into(), ratio(row, &rows[i]).into());
                 }
             }
             println!("{obj}");
@@ -674,7 +772,7 @@ fn run(o: &Options) {
         return;
     }
     println!(
-        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, backend {}, median of {r} runs",
+        "leastline bench: {n} rows x {p} columns, intercept {}, {threads} threads, backend {}, median of {r} rounds",
         o.intercept,
         o.backend.name()
     );
@@ -695,7 +793,8 @@ fn run(o: &Options) {
     for row in &rows {
         let ratio = row
             .floor
-            .map(|f| format!("{:.2} x {}", row.t.seconds / floor_secs(f, &rows), f.name()))
+            .and_then(|f| Some((f, floor_row(f, &rows)?)))
+            .map(|(f, i)| format!("{:.2} x {}", ratio(row, &rows[i]), f.name()))
             .unwrap_or_else(|| "-".into());
         let (rate, unit) = row.rate();
         let limit = limits.seconds(cost(row, o, accelerated_iterations));
@@ -854,11 +953,9 @@ fn cost(row: &Row, o: &Options, accelerated_iterations: Option<usize>) -> (f64, 
 
 /// Prints the ratios the speed goals are stated in, each with its goal.
 fn print_checks(rows: &[Row], limits: &Limits, o: &Options) {
-    let secs = |name: &str, targets: usize| {
-        rows.iter()
-            .find(|r| r.name == name && r.targets == targets)
-            .map(|r| r.t.seconds)
-    };
+    let find =
+        |name: &str, targets: usize| rows.iter().find(|r| r.name == name && r.targets == targets);
+    let secs = |name: &str, targets: usize| find(name, targets).map(|r| r.t.seconds);
     let mut lines = Vec::new();
     if let Some(g) = secs("gram", 1) {
         let rate = floors::gram_flops(o.rows, o.cols + 1) / g * 1e-9;
@@ -926,23 +1023,26 @@ fn print_checks(rows: &[Row], limits: &Limits, o: &Options) {
         if a == b && ta == tb {
             continue;
         }
-        if let (Some(x), Some(y)) = (secs(a, ta), secs(b, tb)) {
-            lines.push(format!("{what}: {:.2}", x / y));
+        if let (Some(x), Some(y)) = (find(a, ta), find(b, tb)) {
+            lines.push(format!("{what}: {:.2}", ratio(x, y)));
         }
     }
     // A caller of the in-memory path pays the problem's validation pass
     // too; a state validates each block as it absorbs it.
     for (state, memory) in [("qr-state", "qr"), ("cholesky-state", "cholesky")] {
-        if let (Some(x), Some(v), Some(y)) = (secs(state, 1), secs("validate", 1), secs(memory, 1))
+        if let (Some(x), Some(v), Some(y)) = (find(state, 1), find("validate", 1), find(memory, 1))
         {
+            let mut r: Vec<f64> = (x.walls.iter().zip(&v.walls).zip(&y.walls))
+                .map(|((x, v), y)| x / (v + y))
+                .collect();
             lines.push(format!(
                 "{state} / (validate + {memory}) (goal <= 1.1): {:.2}",
-                x / (v + y)
+                median(&mut r)
             ));
         }
     }
     if !lines.is_empty() {
-        println!("ratios (medians of this run):");
+        println!("ratios (each the median over the rounds of the two runs of a round):");
         for l in lines {
             println!("  {l}");
         }
@@ -1007,50 +1107,66 @@ fn state_fit<S: FitState + Send>(
         .sum())
 }
 
-/// Times the state paths with one target and (with `--targets K`) `K`.
-fn state_rows(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<Row>) {
-    let (n, p) = x.dim();
+/// The target matrices of the state paths: one target and (with
+/// `--targets K`) `K`; none when no state path was asked for.
+fn state_targets(o: &Options, x: &Array2<f64>, y: &Array1<f64>) -> Vec<(usize, Array2<f64>)> {
+    if !STATE_SOLVERS
+        .iter()
+        .any(|name| o.solvers.iter().any(|s| s == name))
+    {
+        return Vec::new();
+    }
     let mut counts = vec![1];
     if o.targets > 1 {
         counts.push(o.targets);
     }
-    for &t in &counts {
-        let ys = targets_matrix(x, y, t);
+    counts
+        .into_iter()
+        .map(|t| (t, targets_matrix(x, y, t)))
+        .collect()
+}
+
+/// Adds the state paths, one entry for each of `targets` and state.
+fn state_entries<'a>(
+    o: &'a Options,
+    x: &'a Array2<f64>,
+    targets: &'a [(usize, Array2<f64>)],
+    entries: &mut Vec<Entry<'a>>,
+) {
+    let (n, p) = x.dim();
+    for (t, ys) in targets {
+        let t = *t;
         for &name in STATE_SOLVERS {
             if !o.solvers.iter().any(|s| s == name) {
                 continue;
             }
-            let run = |xv: ArrayView2<'_, f64>| -> leastline::Result<f64> {
+            let run = move || -> leastline::Result<f64> {
                 if name == "qr-state" {
-                    state_fit(xv, ys.view(), o.blocks, &|| {
+                    state_fit(x.view(), ys.view(), o.blocks, &|| {
                         TriangleState::new(p, t, o.intercept)
                     })
                 } else {
-                    state_fit(xv, ys.view(), o.blocks, &|| {
+                    state_fit(x.view(), ys.view(), o.blocks, &|| {
                         CrossProductState::new(p, t, o.intercept)
                     })
                 }
             };
-            if let Err(err) = run(x.view()) {
+            if let Err(err) = run() {
                 eprintln!("{name} ({t} targets): {err}");
                 continue;
             }
-            let timing = time(o.repeats, &mut || run(x.view()).unwrap_or(f64::NAN));
             let k = (p + t) as f64;
             let work = if name == "qr-state" {
                 Work::Flops(2.0 * n as f64 * k * k - 2.0 * k * k * k / 3.0)
             } else {
                 Work::Flops(n as f64 * k * (k + 1.0))
             };
-            rows.push(Row {
-                name: name.to_string(),
-                kind: "solver",
-                floor: Some(Floor::Gram),
-                t: timing,
-                work,
-                targets: t,
-                blocks: o.blocks.clamp(1, n.max(1)),
+            let mut entry = Entry::new(name, "solver", Some(Floor::Gram), work, move || {
+                run().unwrap_or(f64::NAN)
             });
+            entry.targets = t;
+            entry.blocks = o.blocks.clamp(1, n.max(1));
+            entries.push(entry);
         }
     }
 }
@@ -1095,6 +1211,7 @@ fn reference_row(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<R
             cpu: s.cpu,
             extra: s.extra,
         },
+        walls: vec![s.wall],
         work: Work::Flops(4.0 * n as f64 * c * c - 4.0 * c * c * c / 3.0),
         targets: 1,
         blocks: 1,
