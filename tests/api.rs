@@ -61,8 +61,9 @@ fn every_settings_type_builds_with_new_and_with_setters() {
         .with_seed(5);
     assert_eq!(
         (sgd.max_iterations(), sgd.batch_size(), sgd.seed()),
-        (11, 32, 5)
+        (Some(11), 32, 5)
     );
+    assert_eq!(Stochastic::new().max_iterations(), None);
     let folds = RowFolds::new().with_folds(4).with_seed(3);
     assert_eq!((folds.folds(), folds.seed()), (4, 3));
     let options = InferenceOptions::new()

@@ -370,6 +370,16 @@ fn saved_settings_reproduce_the_fit_bit_for_bit() {
             "solver {k}: {before:?} != {after:?}"
         );
     }
+    // The default epoch limit is unset (the rule of
+    // `Stochastic::epoch_limit`) and stays unset through a save; a saved
+    // number is read as that limit.
+    let sgd = Stochastic::new().with_batch_size(3);
+    assert_eq!(round_trip(&sgd).max_iterations(), None);
+    let mut v = serde_json::to_value(&sgd).unwrap();
+    assert!(v["max_iterations"].is_null());
+    v["max_iterations"] = 40.into();
+    let loaded: Stochastic = serde_json::from_value(v).unwrap();
+    assert_eq!(loaded, sgd.with_max_iterations(40));
     let folds = RowFolds::new().with_folds(4).with_seed(9);
     assert_eq!(round_trip(&folds), folds);
     let a = folds.held_out_error(&Qr::new(), &problem).unwrap();

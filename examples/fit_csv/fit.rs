@@ -826,7 +826,7 @@ fn fit_one(problem: &Problem<'_>, s: &Settings, observer: Observer<'_>) -> Resul
             if let Some(m) = s.max_iterations {
                 g = g.with_max_iterations(m);
             }
-            g.fit_observed(problem, &watch(g.max_iterations()))
+            g.fit_observed(problem, &watch(g.epoch_limit(problem)))
         }
     }
 }
