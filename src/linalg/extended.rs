@@ -11,7 +11,7 @@
 //! The passes that use them (`crate::passes::extended`) read the caller's **original** data, uncentered, so the
 //! residual `y_i - b0 - x_i . b` they produce is that of the problem as
 //! given, with the intercept explicit. Each value is multiplied by an exact
-//! power of two on the way in ([`Units`]: `x_ij / s_j`, `y_i / s_y`, the
+//! power of two on the way in ([`crate::passes::extended::Units`]: `x_ij / s_j`, `y_i / s_y`, the
 //! scales of [`crate::prep::Scaling`]), so that data near the ends of the
 //! `f64` range give products and sums of moderate size; coefficients are
 //! then in scaled units (`gamma_j = b_j s_j / s_y`, `b0 / s_y`). Rows are
