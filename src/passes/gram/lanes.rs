@@ -25,7 +25,7 @@ use pulp::x86::V4;
 use pulp::{Simd, WithSimd};
 
 use super::{Narrow, NARROW};
-use crate::linalg::kernels::prefetch_span;
+use crate::linalg::kernels::prefetch;
 
 /// Lanes of a vector: rows a group.
 const LANES: usize = 8;
@@ -154,6 +154,22 @@ const fn tile_width(k: usize, b0: usize) -> usize {
     0
 }
 
+/// Number of tiles of [`tile_width`] for `k` values.
+const fn tile_count(k: usize) -> usize {
+    tile_ordinal(k, k)
+}
+
+/// Number of tiles that start before column `b0` for `k` values.
+const fn tile_ordinal(k: usize, b0: usize) -> usize {
+    let mut b = 0;
+    let mut t = 0;
+    while b < k && b < b0 {
+        b += tile_width(k, b);
+        t += 1;
+    }
+    t
+}
+
 impl Lanes<'_, '_> {
     #[inline(always)]
     fn run<const WEIGHTED: bool, const K: usize>(&self) -> [[f64; NARROW]; NARROW] {
@@ -178,9 +194,9 @@ impl Lanes<'_, '_> {
             }
             i += m;
             // The next chunk's design rows, fetched while the products run
-            // (they read only the first-level cache).
-            prefetch_span(job.data, i * p, LANES * GROUPS * p);
-            self.tiles::<K>(&cols, groups, &mut sums);
+            // (they read only the first-level cache), a share after each
+            // tile.
+            self.tiles::<K>(&cols, groups, &mut sums, (i * p, LANES * GROUPS * p));
         }
         let mut out = [[0.0f64; NARROW]; NARROW];
         for b in 0..K {
@@ -284,19 +300,33 @@ impl Lanes<'_, '_> {
     }
 
     /// Adds the products of the chunk's first `groups` groups to the lane
-    /// sums, tile by tile (see [`tile_width`]).
+    /// sums, tile by tile (see [`tile_width`]), and prefetches the lines of
+    /// `len` design values from `from` (the next chunk's rows), a share
+    /// after each tile: spread over the products, the fetches proceed
+    /// while the multiply-adds run (issued in one burst before them, they
+    /// held the products back: at 10,000,000 x 10 on two threads the pass
+    /// took 0.0349 s against 0.0330 s, medians of eight alternations).
     #[inline(always)]
     fn tiles<const K: usize>(
         &self,
         cols: &Columns,
         groups: usize,
         sums: &mut [[f64; LANES]; ENTRIES],
+        (from, len): (usize, usize),
     ) {
+        let count = const { tile_count(K) };
+        let lines = len.div_ceil(LANES) + 1;
         macro_rules! tiles {
             ($($b:literal)*) => {
                 $(
                     if const { tile_width(K, $b) } > 0 {
                         self.tile::<K, $b>(cols, groups, sums);
+                        let t = const { tile_ordinal(K, $b) };
+                        let mut l = t * lines / count;
+                        while l < (t + 1) * lines / count {
+                            prefetch(self.job.data, from + l * LANES);
+                            l += 1;
+                        }
                     }
                 )*
             };
