@@ -23,18 +23,20 @@
 //! with the target column, over row blocks in parallel (the work every
 //! closed-form solver must at least do); `stream` is one read of the design
 //! (the work of one gradient iteration). Each solver's ratio is to the floor
-//! of its kind.
+//! of its kind. Baselines (`obvious-*`) are the same methods written the
+//! straightforward way with faer's high-level API on a column-major copy of
+//! `[1 | X]` made before the clock starts (so the copy is not charged to
+//! them; it is held through all the rounds, so with baselines the bench
+//! holds the design twice). `extra` is the peak memory a run allocated
+//! beyond what was live before it, counted by a global allocator in this
+//! example.
 //!
 //! Rounds: every entry (floors, passes, solvers, baselines, state paths) runs
 //! once to warm up, then `R` rounds each run every entry once, in the order
 //! of the table. A ratio of two entries is the median over the rounds of the
 //! ratio of their two runs in the same round, seconds apart, so that the
 //! host's speed, which can move by a factor of two within minutes on a
-//! shared machine, moves both sides of each ratio together. Baselines (`obvious-*`) are the same methods written the
-//! straightforward way with faer's high-level API on a column-major copy of
-//! `[1 | X]` made before the clock starts (so the copy is not charged to
-//! them). `extra` is the peak memory a run allocated beyond what was live
-//! before it, counted by a global allocator in this example.
+//! shared machine, moves both sides of each ratio together.
 //!
 //! Physical limits, measured in the same run before the rows: the peak rate
 //! of fused multiply-adds (a register-resident loop at each instruction set
