@@ -464,22 +464,51 @@ enum Work {
     Bytes(f64),
 }
 
-struct Row {
+/// What a row of the table is: its name and kind, the floor of its ratio,
+/// its work, and the targets and blocks of a state path (1 otherwise).
+struct Spec {
     name: String,
     kind: &'static str,
     floor: Option<Floor>,
-    t: Timing,
-    /// Wall seconds of each round, in round order (one entry for a row
-    /// timed once outside the rounds).
-    walls: Vec<f64>,
     work: Work,
     targets: usize,
     blocks: usize,
 }
 
+impl Spec {
+    fn new(name: &str, kind: &'static str, floor: Option<Floor>, work: Work) -> Spec {
+        Spec {
+            name: name.to_string(),
+            kind,
+            floor,
+            work,
+            targets: 1,
+            blocks: 1,
+        }
+    }
+}
+
+/// A row of the table: its spec and its timing.
+struct Row {
+    spec: Spec,
+    t: Timing,
+    /// Wall seconds of each round, in round order (one entry for a row
+    /// timed once outside the rounds).
+    walls: Vec<f64>,
+}
+
 impl Row {
+    /// The row of `spec` timed by `samples` (in round order).
+    fn of(spec: Spec, samples: &[Sample]) -> Row {
+        Row {
+            spec,
+            t: Timing::of(samples),
+            walls: samples.iter().map(|s| s.wall).collect(),
+        }
+    }
+
     fn rate(&self) -> (f64, &'static str) {
-        match self.work {
+        match self.spec.work {
             Work::Flops(f) => (f / self.t.seconds * 1e-9, "GFLOP/s"),
             Work::Bytes(b) => (b / self.t.seconds * 1e-9, "GB/s"),
         }
@@ -501,12 +530,7 @@ fn ratio(a: &Row, b: &Row) -> f64 {
 
 /// An entry of the rounds: what it is and the run that is timed.
 struct Entry<'a> {
-    name: String,
-    kind: &'static str,
-    floor: Option<Floor>,
-    work: Work,
-    targets: usize,
-    blocks: usize,
+    spec: Spec,
     run: Box<dyn FnMut() -> f64 + 'a>,
 }
 
@@ -519,12 +543,7 @@ impl<'a> Entry<'a> {
         run: impl FnMut() -> f64 + 'a,
     ) -> Entry<'a> {
         Entry {
-            name: name.to_string(),
-            kind,
-            floor,
-            work,
-            targets: 1,
-            blocks: 1,
+            spec: Spec::new(name, kind, floor, work),
             run: Box::new(run),
         }
     }
@@ -684,20 +703,11 @@ fn run(o: &Options) {
     let mut rows: Vec<Row> = Vec::new();
     let mut parts: Vec<Vec<Sample>> = Vec::new();
     for (e, s) in entries.into_iter().zip(samples) {
-        if e.kind == "part" {
+        if e.spec.kind == "part" {
             parts.push(s);
             continue;
         }
-        rows.push(Row {
-            name: e.name,
-            kind: e.kind,
-            floor: e.floor,
-            t: Timing::of(&s),
-            walls: s.iter().map(|s| s.wall).collect(),
-            work: e.work,
-            targets: e.targets,
-            blocks: e.blocks,
-        });
+        rows.push(Row::of(e.spec, &s));
     }
     if let [none, ten] = &parts[..] {
         let per = |a: f64, b: f64| ((b - a) / 10.0).max(0.0);
@@ -710,16 +720,10 @@ fn run(o: &Options) {
                 extra: b.extra,
             })
             .collect();
-        rows.push(Row {
-            name: GRADIENT_STEP.into(),
-            kind: "solver",
-            floor: Some(Floor::Stream),
-            t: Timing::of(&step),
-            walls: step.iter().map(|s| s.wall).collect(),
-            work: bytes,
-            targets: 1,
-            blocks: 1,
-        });
+        rows.push(Row::of(
+            Spec::new(GRADIENT_STEP, "solver", Some(Floor::Stream), bytes),
+            &step,
+        ));
     }
 
     if o.reference {
@@ -729,15 +733,15 @@ fn run(o: &Options) {
 
     let floor_row = |f: Floor, rows: &'_ [Row]| {
         rows.iter()
-            .position(|row| row.kind == "floor" && row.name == f.name())
+            .position(|row| row.spec.kind == "floor" && row.spec.name == f.name())
     };
     let threads = rayon::current_num_threads();
     if o.json {
         for row in &rows {
             let (rate, unit) = row.rate();
             let mut obj = serde_json::json!({
-                "solver": row.name,
-                "kind": row.kind,
+                "solver": row.spec.name,
+                "kind": row.spec.kind,
                 "rows": n,
                 "cols": p,
                 "intercept": o.intercept,
@@ -747,8 +751,8 @@ fn run(o: &Options) {
                 "min_seconds": row.t.min,
                 "cpu_seconds": row.t.cpu,
                 "extra_bytes": row.t.extra,
-                "targets": row.targets,
-                "blocks": row.blocks,
+                "targets": row.spec.targets,
+                "blocks": row.spec.blocks,
                 "peak_gflops": limits.peak_all,
                 "peak_gflops_one_thread": limits.peak_one,
                 "read_gbps": limits.read_gbps,
@@ -763,7 +767,7 @@ fn run(o: &Options) {
                 let limit = limits.seconds(cost(row, o, accelerated_iterations));
                 map.insert("limit_seconds".into(), limit.into());
                 map.insert("ratio_to_limit".into(), (row.t.seconds / limit).into());
-                if let Some((f, i)) = row.floor.and_then(|f| Some((f, floor_row(f, &rows)?))) {
+                if let Some((f, i)) = row.spec.floor.and_then(|f| Some((f, floor_row(f, &rows)?))) {
                     map.insert("floor".into(), f.name().into());
                     map.insert("floor_seconds".into(), rows[i].t.seconds.into());
                     map.insert("ratio".into(), ratio(row, &rows[i]).into());
@@ -794,21 +798,22 @@ fn run(o: &Options) {
     );
     for row in &rows {
         let ratio = row
+            .spec
             .floor
             .and_then(|f| Some((f, floor_row(f, &rows)?)))
             .map(|(f, i)| format!("{:.2} x {}", ratio(row, &rows[i]), f.name()))
             .unwrap_or_else(|| "-".into());
         let (rate, unit) = row.rate();
         let limit = limits.seconds(cost(row, o, accelerated_iterations));
-        let name = if row.targets > 1 {
-            format!("{} t={}", row.name, row.targets)
+        let name = if row.spec.targets > 1 {
+            format!("{} t={}", row.spec.name, row.spec.targets)
         } else {
-            row.name.clone()
+            row.spec.name.clone()
         };
         println!(
             "{:<18} {:<8} {:>9.4} {:>9.4} {:>9.4} {:>15} {:>14} {:>10.1} {:>9.4} {:>8.2}",
             name,
-            row.kind,
+            row.spec.kind,
             row.t.seconds,
             row.t.min,
             row.t.cpu,
@@ -928,11 +933,11 @@ fn cost(row: &Row, o: &Options, accelerated_iterations: Option<usize>) -> (f64, 
     let (n, p) = (o.rows as f64, o.cols as f64);
     let k = p + 1.0;
     let c = p + if o.intercept { 1.0 } else { 0.0 };
-    let t = row.targets as f64;
+    let t = row.spec.targets as f64;
     let f = 8.0;
     let gram = n * k * (k + 1.0);
     let qr = |m: f64| 2.0 * n * m * m - 2.0 * m * m * m / 3.0;
-    match row.name.as_str() {
+    match row.spec.name.as_str() {
         "gram" => (gram, f * n * k),
         "stream" => (n * p, f * n * p),
         "validate" | "fill" => (n * p, f * n * k),
@@ -955,8 +960,10 @@ fn cost(row: &Row, o: &Options, accelerated_iterations: Option<usize>) -> (f64, 
 
 /// Prints the ratios the speed goals are stated in, each with its goal.
 fn print_checks(rows: &[Row], limits: &Limits, o: &Options) {
-    let find =
-        |name: &str, targets: usize| rows.iter().find(|r| r.name == name && r.targets == targets);
+    let find = |name: &str, targets: usize| {
+        rows.iter()
+            .find(|r| r.spec.name == name && r.spec.targets == targets)
+    };
     let secs = |name: &str, targets: usize| find(name, targets).map(|r| r.t.seconds);
     let mut lines = Vec::new();
     if let Some(g) = secs("gram", 1) {
@@ -1166,8 +1173,8 @@ fn state_entries<'a>(
             let mut entry = Entry::new(name, "solver", Some(Floor::Gram), work, move || {
                 run().unwrap_or(f64::NAN)
             });
-            entry.targets = t;
-            entry.blocks = o.blocks.clamp(1, n.max(1));
+            entry.spec.targets = t;
+            entry.spec.blocks = o.blocks.clamp(1, n.max(1));
             entries.push(entry);
         }
     }
@@ -1203,21 +1210,11 @@ fn reference_row(o: &Options, x: &Array2<f64>, y: &Array1<f64>, rows: &mut Vec<R
         }
     });
     let c = (p + off) as f64;
-    rows.push(Row {
-        name: "reference-svd".into(),
-        kind: "baseline",
-        floor: Some(Floor::Gram),
-        t: Timing {
-            seconds: s.wall,
-            min: s.wall,
-            cpu: s.cpu,
-            extra: s.extra,
-        },
-        walls: vec![s.wall],
-        work: Work::Flops(4.0 * n as f64 * c * c - 4.0 * c * c * c / 3.0),
-        targets: 1,
-        blocks: 1,
-    });
+    let work = Work::Flops(4.0 * n as f64 * c * c - 4.0 * c * c * c / 3.0);
+    rows.push(Row::of(
+        Spec::new("reference-svd", "baseline", Some(Floor::Gram), work),
+        &[s],
+    ));
 }
 
 fn main() {
